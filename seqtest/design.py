@@ -29,6 +29,7 @@ from scipy import optimize, special
 from seqtest import classical, spending
 from seqtest.boundaries import (
     DEFAULT_R,
+    _solve_upper,
     _State,
     constant_bounds,
     crossing_probabilities,
@@ -360,18 +361,24 @@ def _efficacy_bounds(t: np.ndarray, alpha: float, sides: int, eff: Boundary,
 
 
 def _futility_bounds(t: np.ndarray, drift: float, a: np.ndarray, sides: int,
-                     beta: float, fut: SpendingFunction, r: int) -> np.ndarray:
-    """Beta-spending futility boundary under the design alternative, given ``a``."""
+                     beta: float, fut: SpendingFunction, r: int,
+                     final: bool = True) -> np.ndarray:
+    """Beta-spending futility boundary under the design alternative, given ``a``.
+
+    ``t`` are information fractions (values above 1 spend all of beta); when
+    ``final`` the last look's futility boundary is the efficacy boundary."""
     k = t.size
-    cum = fut(t, beta)
+    cum = fut(np.minimum(t, 1.0), beta)
     inc = np.diff(np.concatenate(([0.0], cum)))
     b = np.empty(k)
     state = _State.origin(drift)
     for j in range(k):
-        if j == k - 1:
+        if j == k - 1 and final:
             b[j] = a[j]
             break
         b[j] = _solve_futility(state, t[j], inc[j], a[j], sides)
+        if j == k - 1:
+            break
         if sides == 1:
             iv = [(b[j], a[j])] if b[j] < a[j] else []
         else:
@@ -606,24 +613,30 @@ def design(
 
 
 def _binding_bounds(t: np.ndarray, alpha: float, sides: int, eff: Boundary,
-                    fut: SpendingFunction, beta: float, drift: float, r: int
+                    fut: SpendingFunction, beta: float, drift: float, r: int,
+                    final: bool = True, cum_alpha: np.ndarray | None = None,
                     ) -> tuple[np.ndarray, np.ndarray]:
-    """Efficacy and futility boundaries that account for each other (binding)."""
+    """Efficacy and futility boundaries that account for each other (binding).
+
+    ``cum_alpha`` (per tail) overrides the spending function's cumulative alpha."""
     k = t.size
     if isinstance(eff, SpendingFunction):
-        inc_a = np.diff(np.concatenate(([0.0], eff(t, alpha / sides)))) * sides
-        inc_b = np.diff(np.concatenate(([0.0], fut(t, beta))))
+        tc = np.minimum(t, 1.0)
+        ca = eff(tc, alpha / sides) if cum_alpha is None else cum_alpha
+        inc_a = np.diff(np.concatenate(([0.0], ca))) * sides
+        inc_b = np.diff(np.concatenate(([0.0], fut(tc, beta))))
         a = np.empty(k)
         b = np.empty(k)
         s0, s1 = _State.origin(0.0), _State.origin(drift)
-        from seqtest.boundaries import _solve_upper
         for j in range(k):
             prev_floor = 0.0 if sides == 2 else -40.0
             a[j] = _solve_upper(s0, t[j], inc_a[j], sides, prev_floor)
-            if j == k - 1:
+            if j == k - 1 and final:
                 b[j] = a[j]
                 break
             b[j] = _solve_futility(s1, t[j], inc_b[j], a[j], sides)
+            if j == k - 1:
+                break
             iv = _continuation_iv(a[j], b[j], sides)
             s0 = s0.advance(iv, t[j], r)
             s1 = s1.advance(iv, t[j], r)
