@@ -1,0 +1,223 @@
+"""The only place the service calls the seqtest library.
+
+Everything statistical (plans, boundaries, validation of totals, decisions)
+is the library's; this module turns requests into library calls, library
+errors into HTTP errors that name what to fix, and results into plain JSON.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import seqtest
+from seqtest.metrics import ARMS, LookDataError
+from service.errors import InvalidPlan, InvalidTotals, Unavailable, Unprocessable
+from service.storage import Experiment, Look, NewLook, NewPlan, PlanVersion
+
+# How the service's experiment lifecycle follows the monitor's decision.
+_STATE_OF_DECISION = {
+    "continue": "running",
+    "stop_efficacy": "stopped",
+    "stop_futility": "stopped",
+    "complete_not_significant": "completed",
+}
+
+
+def json_safe(value: Any) -> Any:
+    """Plain JSON types with every non-finite float replaced by ``None``.
+
+    numpy scalars and arrays are turned into Python numbers and lists.
+    """
+    if isinstance(value, dict):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    if isinstance(value, bool) or value is None or isinstance(value, str):
+        return value
+    if isinstance(value, int):
+        return value
+    if hasattr(value, "tolist"):  # numpy scalar or array
+        return json_safe(value.tolist())
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    return str(value)
+
+
+# ----------------------------------------------------------------------- plans
+
+
+def read_plan(document: dict[str, Any]) -> Any:
+    """The library's plan object for a stored or posted plan document."""
+    try:
+        return seqtest.plan_from_dict(document)
+    except (ValueError, TypeError, KeyError, AttributeError, IndexError) as exc:
+        raise InvalidPlan(f"The plan document is not usable: {_text(exc)}") from exc
+
+
+def build_plan(document: dict[str, Any] | None, design: dict[str, Any] | None) -> NewPlan:
+    """A plan from a posted document, or designed from posted inputs."""
+    if document is not None:
+        plan = read_plan(document)
+        source: dict[str, Any] = {"from": "document"}
+    else:
+        assert design is not None
+        try:
+            plan = seqtest.design(**design)
+        except (ValueError, TypeError) as exc:
+            raise InvalidPlan(f"The plan cannot be designed: {_text(exc)}") from exc
+        source = {"from": "design", "inputs": json_safe(design)}
+    doc = json_safe(plan.to_dict())
+    return NewPlan(kind=str(doc.get("kind", "")), document=doc, source=source)
+
+
+def boundary_table(document: dict[str, Any]) -> list[dict[str, Any]] | None:
+    """One row per planned look: information fraction, boundaries, nominal p.
+
+    Read from the plan object; ``None`` for plans without looks (e.g. a
+    mixture plan, which is monitored continuously).
+    """
+    plan = read_plan(document)
+    fractions = getattr(plan, "info_fractions", None)
+    efficacy = getattr(plan, "efficacy_z", None)
+    if fractions is None or efficacy is None:
+        return None
+    futility = getattr(plan, "futility_z", None)
+    nominal = getattr(plan, "nominal_p", None)
+    cumulative = getattr(plan, "cumulative_alpha", None)
+    rows = []
+    for k in range(len(fractions)):
+        rows.append(
+            json_safe(
+                {
+                    "look": k + 1,
+                    "information_fraction": float(fractions[k]),
+                    "efficacy_z": float(efficacy[k]),
+                    "futility_z": None if futility is None else float(futility[k]),
+                    "nominal_p": None if nominal is None else float(nominal[k]),
+                    "cumulative_alpha": None if cumulative is None else float(cumulative[k]),
+                }
+            )
+        )
+    return rows
+
+
+# ----------------------------------------------------------------------- looks
+
+
+def to_roles(exp: Experiment, totals: dict[str, dict[str, float]]) -> dict[str, dict]:
+    """Posted totals keyed by arm name -> keyed by role (control, treatment)."""
+    names = {exp.control_arm: ARMS[0], exp.treatment_arm: ARMS[1]}
+    unknown = sorted(set(totals) - set(names))
+    if unknown:
+        raise InvalidTotals(
+            f"totals: unknown arm {unknown[0]!r}; this experiment's arms are "
+            f"{exp.control_arm!r} (control) and {exp.treatment_arm!r} (treatment)",
+            details=[
+                {"location": ["body", "totals", a], "message": "unknown arm"} for a in unknown
+            ],
+        )
+    missing = [n for n in names if n not in totals]
+    if missing:
+        raise InvalidTotals(
+            f"totals: arm {missing[0]!r} is missing; post the cumulative totals of both "
+            f"arms, {exp.control_arm!r} and {exp.treatment_arm!r}",
+            details=[
+                {"location": ["body", "totals", a], "message": "missing arm"} for a in missing
+            ],
+        )
+    return {names[name]: dict(values) for name, values in totals.items()}
+
+
+def to_names(exp: Experiment, totals: dict[str, Any]) -> dict[str, Any]:
+    """Stored totals keyed by role -> keyed by the experiment's arm names."""
+    names = {ARMS[0]: exp.control_arm, ARMS[1]: exp.treatment_arm}
+    return {names.get(role, role): values for role, values in totals.items()}
+
+
+def _monitor() -> Any:
+    try:
+        from seqtest import monitor
+    except ImportError as exc:  # the library's monitor is not installed
+        raise Unavailable(
+            "Looks cannot be analysed: this installation of seqtest has no monitor. "
+            "Nothing was stored."
+        ) from exc
+    return monitor
+
+
+def analyze_look(
+    exp: Experiment,
+    plan: PlanVersion,
+    prior: list[Look],
+    totals: dict[str, dict[str, float]],
+    final: bool,
+) -> NewLook:
+    """Run the monitor over every stored look plus the new one."""
+    roles = to_roles(exp, totals)
+    looks = [lk.totals for lk in prior] + [roles]
+    plan_obj = read_plan(plan.document)
+    monitor = _monitor()
+    try:
+        result = monitor.analyze(
+            plan_obj, looks, metric=exp.metric, allocation=exp.allocation, final=final
+        )
+    except LookDataError as exc:
+        raise _totals_error(exc, exp, len(looks)) from exc
+    except (ValueError, TypeError) as exc:
+        raise Unprocessable(f"The look cannot be analysed: {_text(exc)}") from exc
+    analysis = json_safe(result.to_dict())
+    decision = analysis.get("decision")
+    if decision not in _STATE_OF_DECISION:
+        raise RuntimeError(f"the monitor returned an unknown decision {decision!r}")
+    state = "completed" if final else _STATE_OF_DECISION[decision]
+    return NewLook(
+        totals=roles, final=final, decision=decision, state=state, analysis=analysis
+    )
+
+
+def _totals_error(exc: LookDataError, exp: Experiment, this_look: int) -> InvalidTotals:
+    arm = to_names(exp, {exc.arm: None}).popitem()[0] if exc.arm is not None else None
+    location: list[Any] = ["body", "totals"]
+    where = "totals"
+    if arm is not None:
+        location.append(arm)
+        where += f".{arm}"
+    if exc.field is not None:
+        location.append(exc.field)
+        where += f".{exc.field}"
+    detail = exc.detail
+    if exc.look is not None and exc.look != this_look:
+        detail += f" (at stored look {exc.look})"
+    message = f"{where}: {detail}"
+    return InvalidTotals(
+        message,
+        details=[
+            {
+                "location": location,
+                "message": detail,
+                "look": exc.look,
+                "arm": arm,
+                "field": exc.field,
+            }
+        ],
+    )
+
+
+def look_row(analysis: dict[str, Any], number: int) -> dict[str, Any] | None:
+    """The monitor's row for look ``number`` (1-based) in a stored analysis."""
+    rows = analysis.get("looks")
+    if isinstance(rows, list) and 0 < number <= len(rows) and isinstance(rows[number - 1], dict):
+        return rows[number - 1]
+    return None
+
+
+def _text(exc: BaseException) -> str:
+    text = str(exc) or type(exc).__name__
+    if isinstance(exc, KeyError):
+        text = f"missing field {text}"
+    return text[:1000]
+
+
+def library_version() -> str:
+    return str(getattr(seqtest, "__version__", "unknown"))

@@ -1,0 +1,256 @@
+"""Request and response bodies (pydantic) of the HTTP service.
+
+These check the *shape* of requests (types, finite numbers, lengths, known
+keys). Whether totals make sense for a metric, and everything statistical, is
+checked by the seqtest library, whose messages the service passes on.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from pydantic import (
+    AllowInfNan,
+    BaseModel,
+    ConfigDict,
+    Field,
+    Strict,
+    StringConstraints,
+    field_validator,
+    model_validator,
+)
+
+from seqtest.metrics import METRIC_KINDS
+
+MetricKind = Literal[METRIC_KINDS]  # type: ignore[valid-type]
+
+ArmName = Annotated[
+    str,
+    StringConstraints(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.\-]{0,63}$"),
+    Field(description="1 to 64 letters, digits, '_', '.', '-', starting with a letter or digit"),
+]
+FieldName = Annotated[str, StringConstraints(min_length=1, max_length=64)]
+# JSON numbers only (no strings, no booleans), and never NaN or Infinity.
+Number = Annotated[float, Strict(), AllowInfNan(False)]
+
+STATES = ("planned", "running", "stopped", "completed")
+State = Literal[STATES]  # type: ignore[valid-type]
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+class Arms(_Strict):
+    """Names of the two arms; totals are posted under these names."""
+
+    control: ArmName = "control"
+    treatment: ArmName = "treatment"
+
+    @model_validator(mode="after")
+    def _distinct(self) -> Arms:
+        if self.control == self.treatment:
+            raise ValueError(
+                f"arms: control and treatment are both named {self.control!r}; "
+                "give two different names"
+            )
+        return self
+
+
+class DesignInputs(_Strict):
+    """Inputs to :func:`seqtest.design`; omitted fields take the library's defaults."""
+
+    alpha: Number | None = None
+    sides: Annotated[int, Strict()] | None = None
+    power: Number | None = None
+    looks: Annotated[int, Strict()] | None = None
+    info_fractions: Annotated[list[Number], Field(max_length=50)] | None = None
+    efficacy: Annotated[str, StringConstraints(max_length=100)] | dict[str, Any] | None = Field(
+        default=None,
+        description="spending function or boundary name, e.g. 'obrien-fleming-type', "
+        "'pocock-type', 'hsd:-4', 'power:3', 'pocock', 'obrien-fleming', "
+        "'wang-tsiatis:0.25', 'haybittle-peto'",
+    )
+    futility: Annotated[str, StringConstraints(max_length=100)] | dict[str, Any] | None = Field(
+        default=None, description="beta-spending function name for a futility boundary"
+    )
+    binding: Annotated[bool, Strict()] | None = None
+    metric: dict[str, Any] | None = Field(
+        default=None,
+        description="metric for the sample size, e.g. "
+        "{'kind': 'binary', 'baseline': 0.12, 'mde': 0.015}",
+    )
+
+    def arguments(self) -> dict[str, Any]:
+        """Keyword arguments for ``seqtest.design`` (only the fields given)."""
+        return self.model_dump(exclude_unset=True)
+
+
+class _PlanChoice(_Strict):
+    plan: dict[str, Any] | None = Field(
+        default=None, description="a plan document as written by `seqtest plan --json`"
+    )
+    design: DesignInputs | None = Field(
+        default=None, description="inputs from which the service designs the plan"
+    )
+
+    @model_validator(mode="after")
+    def _one_plan(self) -> _PlanChoice:
+        if (self.plan is None) == (self.design is None):
+            raise ValueError(
+                "give exactly one of 'plan' (a plan document) or 'design' (inputs to design it)"
+            )
+        return self
+
+
+class ExperimentCreate(_PlanChoice):
+    name: Annotated[str, StringConstraints(min_length=1, max_length=200, strip_whitespace=True)]
+    description: Annotated[str, StringConstraints(max_length=2000)] = ""
+    metric: MetricKind = Field(description="kind of metric the totals describe")
+    arms: Arms = Field(default_factory=Arms)
+    allocation: Number = Field(
+        default=1.0,
+        gt=0,
+        le=100,
+        description="planned ratio of treatment to control units (1 = equal split)",
+    )
+
+
+class AmendmentCreate(_PlanChoice):
+    reason: Annotated[str, StringConstraints(min_length=1, max_length=2000, strip_whitespace=True)]
+
+
+class LookCreate(_Strict):
+    totals: Annotated[
+        dict[ArmName, Annotated[dict[FieldName, Number], Field(max_length=16)]],
+        Field(max_length=8),
+    ] = Field(description="cumulative totals per arm name, since the start of the experiment")
+    final: Annotated[bool, Strict()] = Field(
+        default=False,
+        description="true for the last look: it spends whatever error is left",
+    )
+
+    @field_validator("totals")
+    @classmethod
+    def _non_empty(cls, v: dict) -> dict:
+        if not v:
+            raise ValueError("totals: give the cumulative totals of both arms")
+        return v
+
+
+# ----------------------------------------------------------------- responses
+
+
+class BoundaryRow(BaseModel):
+    look: int
+    information_fraction: float | None = None
+    efficacy_z: float | None = None
+    futility_z: float | None = None
+    nominal_p: float | None = None
+    cumulative_alpha: float | None = None
+
+
+class PlanOut(BaseModel):
+    version: int
+    kind: str
+    document: dict[str, Any]
+    boundaries: list[BoundaryRow] | None
+    source: dict[str, Any]
+    reason: str | None
+    after_look: int = Field(description="looks already recorded when this version was made")
+    recorded_at: str
+    recorded_by: str
+
+
+class ExperimentSummary(BaseModel):
+    id: str
+    name: str
+    description: str
+    metric: str
+    arms: Arms
+    allocation: float
+    state: State
+    decision: str | None
+    looks: int
+    plan_version: int
+    created_at: str
+    created_by: str
+    updated_at: str
+
+
+class LookOut(BaseModel):
+    experiment_id: str
+    look: int
+    plan_version: int
+    final: bool
+    totals: dict[str, dict[str, float]]
+    decision: str
+    state: State
+    recorded_at: str
+    recorded_by: str
+    result: dict[str, Any] | None = Field(description="the monitor's row for this look")
+    analysis: dict[str, Any] = Field(description="everything the monitor computed at this look")
+
+
+class LookSummary(BaseModel):
+    look: int
+    plan_version: int
+    final: bool
+    totals: dict[str, dict[str, float]]
+    decision: str
+    recorded_at: str
+    recorded_by: str
+    result: dict[str, Any] | None
+
+
+class ExperimentOut(ExperimentSummary):
+    plan: PlanOut
+    plan_versions: list[PlanOut] = Field(
+        description="every version of the plan, oldest first; versions after the first are "
+        "amendments, each with its reason, who recorded it and when"
+    )
+    looks_recorded: list[LookSummary]
+    current: dict[str, Any] | None = Field(
+        description="the monitor's full analysis at the latest look (null before the first)"
+    )
+
+
+class ExperimentCreated(ExperimentSummary):
+    plan: PlanOut
+
+
+class ExperimentList(BaseModel):
+    experiments: list[ExperimentSummary]
+    total: int
+    limit: int
+    offset: int
+
+
+class AmendmentOut(BaseModel):
+    experiment_id: str
+    plan: PlanOut
+
+
+class Health(BaseModel):
+    status: Literal["ok"]
+    database: str
+    schema_version: int
+    version: str
+
+
+class ErrorDetail(BaseModel):
+    location: list[str | int]
+    message: str
+    look: int | None = None
+    arm: str | None = None
+    field: str | None = None
+
+
+class ErrorBody(BaseModel):
+    code: str
+    message: str
+    details: list[ErrorDetail] | None = None
+
+
+class Error(BaseModel):
+    error: ErrorBody

@@ -1,0 +1,123 @@
+"""Table definitions (SQLAlchemy Core), the same on SQLite and PostgreSQL.
+
+JSON documents (plans, totals, analyses, stored responses) are kept as text
+written by :func:`service.storage.dump_json`, so both databases store exactly
+the same bytes and a replayed answer is byte-for-byte the first one.
+Timestamps are ISO 8601 text in UTC (``2024-05-01T12:00:00.000000Z``), which
+sorts in time order on both databases.
+"""
+
+from __future__ import annotations
+
+from sqlalchemy import (
+    Boolean,
+    Column,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    MetaData,
+    String,
+    Table,
+    Text,
+)
+
+metadata = MetaData()
+
+schema_version = Table(
+    "schema_version",
+    metadata,
+    Column("version", Integer, primary_key=True, autoincrement=False),
+    Column("description", String(200), nullable=False),
+    Column("applied_at", String(32), nullable=False),
+)
+
+teams = Table(
+    "teams",
+    metadata,
+    Column("id", String(40), primary_key=True),
+    Column("name", String(200), nullable=False, unique=True),
+    Column("created_at", String(32), nullable=False),
+)
+
+api_keys = Table(
+    "api_keys",
+    metadata,
+    Column("id", String(40), primary_key=True),
+    Column("team_id", String(40), ForeignKey("teams.id"), nullable=False),
+    Column("key_hash", String(64), nullable=False, unique=True),
+    Column("label", String(200), nullable=False),
+    Column("created_at", String(32), nullable=False),
+    Column("revoked_at", String(32), nullable=True),
+)
+
+experiments = Table(
+    "experiments",
+    metadata,
+    Column("id", String(40), primary_key=True),
+    Column("team_id", String(40), ForeignKey("teams.id"), nullable=False),
+    Column("name", String(200), nullable=False),
+    Column("description", Text, nullable=False),
+    Column("metric", String(20), nullable=False),
+    Column("control_arm", String(64), nullable=False),
+    Column("treatment_arm", String(64), nullable=False),
+    Column("allocation", Float, nullable=False),
+    Column("plan_version", Integer, nullable=False),
+    Column("look_count", Integer, nullable=False),
+    Column("state", String(20), nullable=False),
+    Column("decision", String(40), nullable=True),
+    Column("created_at", String(32), nullable=False),
+    Column("created_by", String(40), nullable=False),
+    Column("updated_at", String(32), nullable=False),
+)
+Index("experiments_team_state", experiments.c.team_id, experiments.c.state)
+Index("experiments_team_created", experiments.c.team_id, experiments.c.created_at)
+
+plan_versions = Table(
+    "plan_versions",
+    metadata,
+    Column("experiment_id", String(40), ForeignKey("experiments.id"), primary_key=True),
+    Column("version", Integer, primary_key=True, autoincrement=False),
+    Column("kind", String(40), nullable=False),
+    Column("document", Text, nullable=False),
+    Column("source", Text, nullable=False),
+    Column("reason", Text, nullable=True),
+    Column("after_look", Integer, nullable=False),
+    Column("recorded_at", String(32), nullable=False),
+    Column("recorded_by", String(40), nullable=False),
+)
+
+looks = Table(
+    "looks",
+    metadata,
+    Column("experiment_id", String(40), ForeignKey("experiments.id"), primary_key=True),
+    Column("number", Integer, primary_key=True, autoincrement=False),
+    Column("plan_version", Integer, nullable=False),
+    Column("totals", Text, nullable=False),
+    Column("final", Boolean, nullable=False),
+    Column("decision", String(40), nullable=False),
+    Column("analysis", Text, nullable=False),
+    Column("recorded_at", String(32), nullable=False),
+    Column("recorded_by", String(40), nullable=False),
+)
+
+idempotency_keys = Table(
+    "idempotency_keys",
+    metadata,
+    Column("team_id", String(40), ForeignKey("teams.id"), primary_key=True),
+    Column("key", String(200), primary_key=True),
+    Column("request_hash", String(64), nullable=False),
+    Column("status_code", Integer, nullable=False),
+    Column("response", Text, nullable=False),
+    Column("created_at", String(32), nullable=False),
+)
+
+VERSION_1_TABLES = [
+    schema_version,
+    teams,
+    api_keys,
+    experiments,
+    plan_versions,
+    looks,
+    idempotency_keys,
+]
