@@ -127,10 +127,20 @@ class _State:
         return float(self.g.sum())
 
     def advance(self, intervals: Sequence[tuple[float, float]], info_next: float,
-                r: int) -> _State:
+                r: int, info_after: float | None = None) -> _State:
+        """Sub-density at ``info_next`` on the continuation ``intervals``.
+
+        ``info_after`` (the information of the look after, when known) refines the
+        grid when that next increment is small: the kernel of the next step has
+        standard deviation ``sqrt(increment / info_next)`` on the z scale and the
+        grid spacing (``3 / (2 r)`` near the mean) must stay below it.
+        """
         mean_s, sd = self._moments(info_next)
         q = math.sqrt(info_next)
         mu = self.theta * q
+        if info_after is not None and info_after > info_next:
+            need = 1.5 / math.sqrt((info_after - info_next) / info_next)
+            r = int(min(200, max(r, math.ceil(need))))
         zs, ws = [], []
         for lo, hi in intervals:
             z, w = _grid(mu, max(lo, -_BIG), min(hi, _BIG), r)
@@ -262,7 +272,8 @@ def crossing_probabilities(
         if il[j] < iu[j]:
             p_in[j] = state.prob_between(max(il[j], lo[j]), min(iu[j], up[j]), inf[j])
         if j + 1 < k:
-            state = state.advance(_intervals(lo[j], up[j], il[j], iu[j]), inf[j], r)
+            state = state.advance(_intervals(lo[j], up[j], il[j], iu[j]), inf[j], r,
+                                  inf[j + 1])
     return Crossing(p_up, p_lo, p_in)
 
 
@@ -361,7 +372,7 @@ def spending_bounds(
         out[j] = _solve_upper(state, inf[j], inc[j], sides, floor)
         if j + 1 < k:
             state = state.advance(_continuation(out[j], sides, None if fut is None else fut[j]),
-                                  inf[j], r)
+                                  inf[j], r, inf[j + 1])
     return out
 
 

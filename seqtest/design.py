@@ -384,7 +384,7 @@ def _futility_bounds(t: np.ndarray, drift: float, a: np.ndarray, sides: int,
         else:
             bb = max(b[j], 0.0)
             iv = [(-a[j], -bb), (bb, a[j])] if bb < a[j] else []
-        state = state.advance(iv, t[j], r)
+        state = state.advance(iv, t[j], r, t[j + 1])
     return b
 
 
@@ -638,8 +638,8 @@ def _binding_bounds(t: np.ndarray, alpha: float, sides: int, eff: Boundary,
             if j == k - 1:
                 break
             iv = _continuation_iv(a[j], b[j], sides)
-            s0 = s0.advance(iv, t[j], r)
-            s1 = s1.advance(iv, t[j], r)
+            s0 = s0.advance(iv, t[j], r, t[j + 1])
+            s1 = s1.advance(iv, t[j], r, t[j + 1])
         return a, b
     shape, fixed = eff.shape(t)
 
