@@ -1,0 +1,150 @@
+"""The `seqtest` command: plan, analyze, demo; bad input gives exit 2 and one line."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import seqtest
+from seqtest.cli import main
+
+ROOT = Path(__file__).resolve().parent.parent
+EXAMPLE = ROOT / "examples" / "checkout_looks.csv"
+
+
+def run(args: list[str], capsys) -> tuple[int, str, str]:
+    rc = main(args)
+    out, err = capsys.readouterr()
+    return rc, out, err
+
+
+def test_plan_table_matches_library(capsys):
+    rc, out, _ = run(["plan", "--looks", "5"], capsys)
+    assert rc == 0
+    plan = seqtest.design(looks=5)
+    for z in plan.efficacy_z:
+        assert f"{z:.4f}" in out
+    assert "nominal_p" in out and "cum_alpha" in out and "futility_z" in out
+
+
+def test_plan_json_round_trip(tmp_path, capsys):
+    target = tmp_path / "plan.json"
+    rc, _, _ = run(["plan", "--looks", "4", "--futility", "pocock-type", "--metric",
+                    "binary", "--baseline", "0.1", "--mde", "0.02", "--json", str(target)],
+                   capsys)
+    assert rc == 0
+    doc = json.loads(target.read_text())
+    assert doc["kind"] == "group_sequential" and doc["version"] == seqtest.__version__
+    back = seqtest.plan_from_dict(doc)
+    direct = seqtest.design(looks=4, futility="pocock-type",
+                            metric={"kind": "binary", "baseline": 0.1, "mde": 0.02})
+    np.testing.assert_allclose(back.efficacy_z, direct.efficacy_z, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(back.futility_z, direct.futility_z, rtol=0, atol=1e-12)
+    assert back.sample_size().n_control == direct.sample_size().n_control
+
+
+def test_plan_json_to_stdout_is_pure_json(capsys):
+    rc, out, _ = run(["plan", "--json", "-"], capsys)
+    assert rc == 0
+    assert json.loads(out)["kind"] == "group_sequential"
+
+
+def test_plan_csv(tmp_path, capsys):
+    target = tmp_path / "plan.csv"
+    rc, _, _ = run(["plan", "--looks", "3", "--csv", str(target)], capsys)
+    assert rc == 0
+    import pandas as pd
+    frame = pd.read_csv(target)
+    assert list(frame["look"]) == [1, 2, 3]
+    np.testing.assert_allclose(frame["efficacy_z"], seqtest.design(looks=3).efficacy_z,
+                               atol=1e-12)
+
+
+@pytest.mark.parametrize("args, word", [
+    (["plan", "--alpha", "0"], "alpha"),
+    (["plan", "--alpha", "0.6", "--sides", "1"], "alpha"),
+    (["plan", "--power", "0.01"], "power"),
+    (["plan", "--looks", "51"], "looks"),
+    (["plan", "--looks", "0"], "looks"),
+    (["plan", "--fractions", "0.5,0.4,1"], "info_fractions"),
+    (["plan", "--fractions", "0.5,1.2"], "info_fractions"),
+    (["plan", "--efficacy", "fastest"], "efficacy"),
+    (["plan", "--metric", "binary", "--mde", "0.02"], "baseline"),
+    (["plan", "--mde", "0.02"], "--mde"),
+])
+def test_plan_bad_input_exit_2_one_line(args, word, capsys):
+    rc, out, err = run(args, capsys)
+    assert rc == 2
+    assert word in err
+    assert err.count("\n") == 1 and "Traceback" not in err
+
+
+def test_bad_input_in_a_real_process_has_no_traceback():
+    proc = subprocess.run([sys.executable, "-m", "seqtest.cli", "plan", "--alpha", "2"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 2
+    assert "Traceback" not in proc.stderr and "alpha" in proc.stderr
+
+
+@pytest.fixture
+def plan_file(tmp_path):
+    from seqtest.demo import DEMO_PLAN
+    p = tmp_path / "plan.json"
+    p.write_text(json.dumps(seqtest.design(**DEMO_PLAN).to_dict()))
+    return p
+
+
+def test_analyze_example(plan_file, tmp_path, capsys):
+    png = tmp_path / "looks.png"
+    out_json = tmp_path / "analysis.json"
+    rc, out, _ = run(["analyze", str(EXAMPLE), "--plan", str(plan_file), "--json",
+                      str(out_json), "--plot", str(png)], capsys)
+    assert rc == 0
+    doc = json.loads(out_json.read_text())
+    assert doc["decision"] in ("continue", "stop_efficacy", "stop_futility",
+                               "complete_not_significant")
+    for item in doc["looks"]:
+        for key in ("z", "efficacy_z", "futility_z", "information_fraction"):
+            assert key in item
+    assert "Decision at look" in out and "statistician" in out
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # the CLI's decision is the library's
+    from seqtest.lookfile import read_looks_csv
+    lib = seqtest.analyze(seqtest.plan_from_dict(json.loads(plan_file.read_text())),
+                          read_looks_csv(EXAMPLE, "binary"))
+    assert lib.decision == doc["decision"]
+
+
+def test_analyze_unknown_column(plan_file, tmp_path, capsys):
+    bad = tmp_path / "looks.csv"
+    bad.write_text("control_n,control_wins,treatment_n,treatment_successes\n10,1,10,2\n")
+    rc, _, err = run(["analyze", str(bad), "--plan", str(plan_file)], capsys)
+    assert rc == 2
+    assert "control_wins" in err and "control_successes" in err
+
+
+def test_analyze_totals_backwards(plan_file, tmp_path, capsys):
+    bad = tmp_path / "looks.csv"
+    bad.write_text("control_n,control_successes,treatment_n,treatment_successes\n"
+                   "1000,80,1000,90\n900,85,1100,95\n")
+    rc, _, err = run(["analyze", str(bad), "--plan", str(plan_file)], capsys)
+    assert rc == 2
+    assert "look 2" in err and "control" in err and "n" in err
+
+
+def test_analyze_missing_plan(tmp_path, capsys):
+    rc, _, err = run(["analyze", str(EXAMPLE), "--plan", str(tmp_path / "nope.json")], capsys)
+    assert rc == 2 and "does not exist" in err
+
+
+def test_demo_without_service(tmp_path, capsys):
+    rc, out, _ = run(["demo", "--out", str(tmp_path / "demo"), "--no-service"], capsys)
+    assert rc == 0
+    assert (tmp_path / "demo" / "plan.json").exists()
+    assert (tmp_path / "demo" / "looks.png").exists()
+    assert "Decision at look" in out
