@@ -427,15 +427,21 @@ def analyze(
         warnings.append(f"look {last} reached the maximum information and was the final "
                         f"look; looks {last + 1}..{k} are not analysed")
 
-    # decide look by look, on the boundaries known at that look
+    # Boundaries of all looks in one pass: a look's boundary depends only on the
+    # fractions up to it, so these are the boundaries known at each look. When the
+    # last look is not final, the remaining planned looks are appended (for the
+    # projection); that changes nothing before them.
+    last_final = bool(final or t[last - 1] >= 1.0)
+    future = np.empty(0) if last_final else _future_fractions(plan, float(t[last - 1]))
+    a_all, b_all = bounds_at(plan, np.concatenate([t[:last], future]), final=True)
+
+    # decide look by look
     records: list[LookResult] = []
     decision, direction, stopped = "continue", None, None
-    a_final = None
     for j in range(last):
-        is_final = (j == last - 1) and (final or t[j] >= 1.0)
-        a, b = bounds_at(plan, t[: j + 1], final=is_final)
-        a_j = float(a[-1])
-        b_j = None if b is None else float(b[-1])
+        is_final = (j == last - 1) and last_final
+        a_j = float(a_all[j])
+        b_j = None if b_all is None else float(b_all[j])
         dec = _decide_one(float(z[j]), a_j, b_j, plan.sides, is_final, degenerate[j])
         srm_p = None
         if kind != "rate":  # exposure is not a count of units: no chi-square check
@@ -461,7 +467,6 @@ def analyze(
             rci_lower=float(rci_lo), rci_upper=float(rci_hi), decision=dec,
             srm_p_value=srm_p,
         ))
-        a_final = a
         if dec == "stop_futility" and not plan.binding and j < last - 1:
             warnings.append(f"look {j + 1} crossed the non-binding futility boundary and "
                             "the experiment went on; that keeps the type I error")
@@ -479,10 +484,10 @@ def analyze(
     fin = proj = None
     if stopped is not None:
         fin = _final_inference(plan, z[:stopped], info[:stopped], t[:stopped],
-                               a_final, est[stopped - 1], se[stopped - 1])
+                               a_all[:stopped], est[stopped - 1], se[stopped - 1])
     if decision == "continue":
-        proj = _projection(plan, float(z[last - 1]), float(t[last - 1]), t[:last],
-                           total_max, daily_traffic)
+        proj = _projection(plan, float(z[last - 1]), float(t[last - 1]), future,
+                           a_all[last:], total_max, daily_traffic)
     return Analysis(decision=decision, direction=direction, stopped_at=stopped,
                     looks=records, final=fin, projection=proj, warnings=warnings,
                     metric=kind, scale=scale)
@@ -510,8 +515,9 @@ def _max_total(plan: Plan, max_n: float | None) -> float:
     if plan.metric is None:
         raise ValueError("max_n: the plan has no metric, so give the maximum total sample "
                          "over both arms")
-    ss = plan.sample_size()
-    return float(ss.n_control + ss.n_treatment)
+    from seqtest.sizing import max_sizes
+    n_c, n_t = max_sizes(plan, **plan.metric)
+    return float(n_c + n_t)
 
 
 def _final_inference(plan: Plan, z: np.ndarray, info: np.ndarray, t: np.ndarray,
@@ -530,17 +536,18 @@ def _final_inference(plan: Plan, z: np.ndarray, info: np.ndarray, t: np.ndarray,
                           naive_ci_lower=n_lo, naive_ci_upper=n_hi, naive_p_value=naive_p)
 
 
-def _projection(plan: Plan, z_now: float, t_now: float, t_seen: np.ndarray,
-                total_max: float | None, daily: float | None) -> Projection:
+def _future_fractions(plan: Plan, t_now: float) -> np.ndarray:
+    """Planned looks still ahead; a planned look within 1% of the maximum information
+    of the current one is taken to be the current one."""
     planned = plan.info_fractions
-    # a planned look within 1% of the maximum information of the current one is
-    # taken to be the current one
     future = planned[planned > t_now + 0.01]
     if future.size == 0 or future[-1] < 1.0:
         future = np.append(future, 1.0)
-    t_all = np.concatenate([t_seen, future])
-    a_all, _ = bounds_at(plan, t_all, final=True)
-    fa = a_all[t_seen.size:]
+    return future
+
+
+def _projection(plan: Plan, z_now: float, t_now: float, future: np.ndarray,
+                fa: np.ndarray, total_max: float | None, daily: float | None) -> Projection:
     cp_plan = inference.conditional_power(z_now, t_now, future, fa, plan.drift,
                                           sides=plan.sides, r=plan.r)
     drift_now = z_now / math.sqrt(t_now)

@@ -34,7 +34,7 @@ import numpy as np
 if TYPE_CHECKING:
     from seqtest.design import Plan
 
-__all__ = ["SampleSize", "sample_size", "check_metric", "METRIC_KINDS"]
+__all__ = ["SampleSize", "sample_size", "max_sizes", "check_metric", "METRIC_KINDS"]
 
 METRIC_KINDS = ("binary", "continuous", "rate")
 _ALLOWED = {
@@ -192,6 +192,20 @@ class SampleSize:
         return self.n_control + self.n_treatment
 
 
+def _up(x: np.ndarray | float) -> np.ndarray:
+    # a relative tolerance keeps an exact 63.0000000001 from rounding up to 64
+    return np.ceil(np.asarray(x) * (1 - 1e-12)).astype(int)
+
+
+def max_sizes(plan: Plan, **metric: Any) -> tuple[int, int]:
+    """Maximum users (exposure) per arm, control and treatment, rounded up; the cheap
+    part of :func:`sample_size` (no expected sizes)."""
+    m = check_metric(dict(metric))
+    delta, unit = _delta_and_unit(m)
+    n_c = plan.max_information(delta) * unit
+    return int(_up(n_c)), int(_up(n_c * m["allocation"]))
+
+
 def sample_size(plan: Plan, **metric: Any) -> SampleSize:
     """Per-arm sample size of ``plan`` for a metric (fields as in :func:`check_metric`).
 
@@ -212,9 +226,7 @@ def sample_size(plan: Plan, **metric: Any) -> SampleSize:
     t = plan.info_fractions
     e0 = plan.characteristics(0.0).expected_fraction
     e1 = plan.characteristics(1.0).expected_fraction
-    # a relative tolerance keeps an exact 63.0000000001 from rounding up to 64
-    def up(x: np.ndarray | float) -> np.ndarray:
-        return np.ceil(np.asarray(x) * (1 - 1e-12)).astype(int)
+    up = _up
     return SampleSize(
         n_control=int(up(n_c)), n_treatment=int(up(n_c * q)),
         per_look_control=up(n_c * t), per_look_treatment=up(n_c * q * t),
