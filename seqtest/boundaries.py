@@ -31,7 +31,7 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -122,6 +122,13 @@ class _State:
         p = np.where(upper_side, special.ndtr(-a) - special.ndtr(-b),
                      special.ndtr(b) - special.ndtr(a))
         return float(self.g @ p)
+
+    def density(self, x: float, info_next: float) -> float:
+        """Sub-density of ``Z`` at ``x`` at the next look (for Newton steps)."""
+        mean_s, sd = self._moments(info_next)
+        q = math.sqrt(info_next)
+        y = (x * q - mean_s) / sd
+        return float(self.g @ np.exp(-0.5 * y * y)) * q / (sd * _SQRT2PI)
 
     def mass(self) -> float:
         return float(self.g.sum())
@@ -268,7 +275,8 @@ def crossing_probabilities(
     state = _State.origin(theta)
     for j in range(k):
         p_up[j] = state.prob_above(up[j], inf[j])
-        p_lo[j] = state.prob_below(lo[j], inf[j]) if lo[j] < up[j] else 0.0
+        # a lower boundary at or above the upper one stops every remaining path
+        p_lo[j] = state.prob_below(min(lo[j], up[j]), inf[j])
         if il[j] < iu[j]:
             p_in[j] = state.prob_between(max(il[j], lo[j]), min(iu[j], up[j]), inf[j])
         if j + 1 < k:
@@ -283,6 +291,45 @@ def _check_r(r: int) -> int:
     return int(r)
 
 
+def _solve_monotone(fun: Callable[[float], tuple[float, float]], target: float,
+                    lo: float, hi: float, x0: float, decreasing: bool) -> float:
+    """Root of ``F(x) = target`` for a monotone probability ``F`` on ``[lo, hi]``.
+
+    ``fun(x)`` returns ``(F(x), F'(x))``. Newton's method on ``log F - log target``
+    (nearly linear for normal tail probabilities, so two to four steps), kept inside
+    a bracket that shrinks at every step, with bisection whenever a step leaves it;
+    converges to 1e-12 on ``x``.
+    """
+    log_t = math.log(target)
+    x = min(max(x0, lo), hi)
+    for _ in range(100):
+        f, df = fun(x)
+        if f <= 0.0:
+            h, slope = -math.inf, 0.0
+        else:
+            h = math.log(f) - log_t
+            slope = df / f
+        if decreasing:
+            if h > 0:
+                lo = x
+            else:
+                hi = x
+        else:
+            if h > 0:
+                hi = x
+            else:
+                lo = x
+        if abs(h) < 1e-13:
+            return x
+        x_new = x - h / slope if slope != 0 and math.isfinite(h) else math.nan
+        if not (lo < x_new < hi):
+            x_new = 0.5 * (lo + hi)
+        if abs(x_new - x) < 1e-12 or hi - lo < 1e-12:
+            return x_new
+        x = x_new
+    return x
+
+
 def _solve_upper(state: _State, info_next: float, target: float, sides: int,
                  floor: float) -> float:
     """Bound ``u`` with exit probability ``target`` above ``u`` (and below ``-u`` when
@@ -290,21 +337,21 @@ def _solve_upper(state: _State, info_next: float, target: float, sides: int,
     if target <= 0.0:
         return math.inf
 
-    def excess(u: float) -> float:
+    def fun(u: float) -> tuple[float, float]:
         p = state.prob_above(u, info_next)
+        d = -state.density(u, info_next)
         if sides == 2:
             p += state.prob_below(-u, info_next)
-        return p - target
+            d -= state.density(-u, info_next)
+        return p, d
 
-    if excess(floor) <= 0.0:
+    if fun(floor)[0] <= target:
         # spending more than what is left to spend: everything stops here
         return floor
-    hi = 1.0 + floor if floor > 0 else 1.0
-    while excess(hi) > 0.0:
-        hi *= 2.0
-        if hi > _BIG:
-            return _BIG
-    return optimize.brentq(excess, floor, hi, xtol=1e-12, rtol=1e-12)
+    mass = state.mass()
+    share = min(target / (sides * mass), 0.5) if mass > 0 else 0.5
+    x0 = float(-special.ndtri(share))
+    return _solve_monotone(fun, target, floor, _BIG, x0, decreasing=True)
 
 
 def spending_bounds(

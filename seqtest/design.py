@@ -29,6 +29,7 @@ from scipy import optimize, special
 from seqtest import classical, spending
 from seqtest.boundaries import (
     DEFAULT_R,
+    _solve_monotone,
     _solve_upper,
     _State,
     constant_bounds,
@@ -390,21 +391,28 @@ def _futility_bounds(t: np.ndarray, drift: float, a: np.ndarray, sides: int,
 
 def _solve_futility(state: _State, info: float, target: float, a: float, sides: int) -> float:
     if sides == 1:
-        def spent(x: float) -> float:
-            return state.prob_below(x, info)
+        def fun(x: float) -> tuple[float, float]:
+            return state.prob_below(x, info), state.density(x, info)
         floor = -40.0
     else:
-        def spent(x: float) -> float:
-            return state.prob_between(-x, x, info)
+        def fun(x: float) -> tuple[float, float]:
+            return (state.prob_between(-x, x, info),
+                    state.density(x, info) + state.density(-x, info))
         floor = 0.0
     if target <= 0.0:
         return -np.inf if sides == 1 else 0.0
     top = min(a, 40.0)
-    if spent(top) <= target:
+    if fun(top)[0] <= target:
         return a
-    if spent(floor) >= target:
+    if sides == 2 and target <= 0.0:
         return floor
-    return optimize.brentq(lambda x: spent(x) - target, floor, top, xtol=1e-12, rtol=1e-12)
+    mass = state.mass()
+    mu = state.theta * math.sqrt(info)
+    if sides == 1:
+        x0 = mu + float(special.ndtri(min(max(target / max(mass, 1e-300), 1e-300), 0.5)))
+    else:
+        x0 = min(top, target / max(2 * state.density(0.0, info), 1e-300))
+    return _solve_monotone(fun, target, floor, top, x0, decreasing=False)
 
 
 def _power(t: np.ndarray, a: np.ndarray, b: np.ndarray | None, sides: int, drift: float,
