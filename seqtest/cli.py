@@ -141,7 +141,40 @@ def plan_summary(plan: Any) -> str:
     return "\n".join(lines)
 
 
+def make_mixture_plan(args: argparse.Namespace) -> Any:
+    from seqtest.mixture import mixture_plan
+    for opt, default in (("looks", None), ("fractions", None), ("futility", None)):
+        if getattr(args, opt) != default:
+            raise UsageError(f"--{opt} has no meaning for a mixture plan, which may be "
+                             "looked at any time")
+    return mixture_plan(alpha=args.alpha, sides=args.sides, metric=_metric(args),
+                        max_n_per_arm=args.max_n_per_arm, tau2=args.tau2)
+
+
+def mixture_summary(plan: Any) -> str:
+    side = "two-sided" if plan.sides == 2 else "one-sided"
+    lines = [f"Plan: mixture SPRT (look at any time), {side} alpha {plan.alpha:g}",
+             f"  mixing variance tau^2 = {plan.tau2:.6g} (chosen by rule: {plan.tau2_rule})"]
+    if plan.mde is not None:
+        lines.append(f"  tuned to the minimum detectable effect {plan.mde:g} "
+                     f"({plan.scale} scale)")
+    if plan.max_n_per_arm:
+        lines.append(f"  complete at {plan.max_n_per_arm} per arm without a rejection")
+    return "\n".join(lines)
+
+
 def cmd_plan(args: argparse.Namespace) -> int:
+    if args.kind == "mixture":
+        plan = make_mixture_plan(args)
+        if args.json:
+            _write(json.dumps(plan.to_dict(), indent=2, allow_nan=False), args.json)
+        if args.csv:
+            raise UsageError("--csv: a mixture plan has no table of looks; use --json")
+        if args.json != "-":
+            print(mixture_summary(plan))
+        return 0
+    if args.max_n_per_arm is not None or args.tau2 is not None:
+        raise UsageError("--max-n-per-arm and --tau2 are for --kind mixture")
     plan = make_plan(args)
     if args.json:
         _write(json.dumps(plan.to_dict(), indent=2, allow_nan=False), args.json)
@@ -182,8 +215,10 @@ def _read_plan(path: str) -> Any:
 def analysis_text(analysis: Any) -> str:
     d = analysis.to_dict()
     looks = d["looks"]
+    ci = ("cs_lower", "cs_upper") if d.get("plan_kind") == "mixture" else ("rci_lower",
+                                                                          "rci_upper")
     headers = ["look", "n_control", "n_treatment", "estimate", "se", "z", "info_frac",
-               "efficacy_z", "futility_z", "rci_lower", "rci_upper", "decision"]
+               "efficacy_z", "futility_z", ci[0], ci[1], "decision"]
     rows = [[x["look"], x["n_control"], x["n_treatment"], x["estimate"], x["se"], x["z"],
              x["information_fraction"], x["efficacy_z"], x.get("futility_z"),
              x.get("rci_lower"), x.get("rci_upper"), x["decision"]] for x in looks]
@@ -200,14 +235,18 @@ def analysis_text(analysis: Any) -> str:
         line += f" ({d['direction'].replace('_', ' ')})"
     out.append(line)
     fin = d.get("final")
+    mixture = d.get("plan_kind") == "mixture"
     if fin:
-        out.append(f"  adjusted p-value (stage-wise ordering): {_fmt(fin['p_value'])}   "
+        p_label = "always-valid p-value" if mixture else "adjusted p-value (stage-wise ordering)"
+        ci_label = "confidence sequence" if mixture else "adjusted interval"
+        out.append(f"  {p_label}: {_fmt(fin['p_value'])}   "
                    f"unadjusted: {_fmt(fin['naive_p_value'])}")
-        out.append(f"  adjusted interval: [{_fmt(fin['ci_lower'])}, {_fmt(fin['ci_upper'])}]"
+        out.append(f"  {ci_label}: [{_fmt(fin['ci_lower'])}, {_fmt(fin['ci_upper'])}]"
                    f"   unadjusted: [{_fmt(fin['naive_ci_lower'])}, "
                    f"{_fmt(fin['naive_ci_upper'])}]")
-        out.append(f"  median-unbiased estimate: {_fmt(fin['median_unbiased'])}   "
-                   f"naive estimate: {_fmt(fin['naive_estimate'])}")
+        if not mixture:
+            out.append(f"  median-unbiased estimate: {_fmt(fin['median_unbiased'])}   "
+                       f"naive estimate: {_fmt(fin['naive_estimate'])}")
     proj = d.get("projection")
     if proj:
         out.append(f"  conditional power: {_fmt(proj['conditional_power_planned'], 3)} at the "
@@ -294,7 +333,15 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser("plan", help="design a stopping plan and print its boundaries")
+    p.add_argument("--kind", choices=("group-sequential", "mixture"),
+                   default="group-sequential",
+                   help="group-sequential looks (default) or a mixture SPRT for looking "
+                        "at any time")
     _add_plan_options(p)
+    p.add_argument("--max-n-per-arm", type=int, default=None, dest="max_n_per_arm",
+                   help="mixture: stop without significance when an arm reaches this")
+    p.add_argument("--tau2", type=float, default=None,
+                   help="mixture: mixing variance (default: tuned to --mde)")
     p.add_argument("--json", metavar="FILE", default=None,
                    help="write the plan document (JSON) to FILE ('-' for stdout)")
     p.add_argument("--csv", metavar="FILE", default=None,

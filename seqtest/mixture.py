@@ -467,7 +467,7 @@ def mixture_plan(
                 f"scale: got {scale!r} but metric.scale is {m['scale']!r}; give one scale"
             )
         scale = m["scale"]
-        delta, unit_control = sizing._delta_and_unit(m)
+        delta, unit_control = sizing.delta_and_unit(m)
         if mde is not None and not math.isclose(_real("mde", mde), delta, rel_tol=1e-12):
             raise ValueError(
                 f"mde: got {mde!r} but the metric's effect on the {scale} scale is "

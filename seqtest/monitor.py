@@ -194,6 +194,7 @@ class LookResult:
     rci_upper: float
     decision: str
     srm_p_value: float | None
+    always_valid_p: float | None = None
 
 
 @dataclass(frozen=True)
@@ -203,7 +204,9 @@ class FinalInference:
     Attributes
     ----------
     p_value, ci_lower, ci_upper, median_unbiased : float
-        Stage-wise ordering p-value and interval, and the median-unbiased estimate.
+        Stage-wise ordering p-value and interval, and the median-unbiased estimate
+        (for a mixture plan: the always-valid p-value and confidence sequence; no
+        median-unbiased estimate).
     naive_estimate, naive_ci_lower, naive_ci_upper, naive_p_value : float
         The same from a fixed-sample analysis of the last look, which ignores the
         looks (biased away from zero after an early stop).
@@ -212,7 +215,7 @@ class FinalInference:
     p_value: float
     ci_lower: float
     ci_upper: float
-    median_unbiased: float
+    median_unbiased: float | None
     naive_estimate: float
     naive_ci_lower: float
     naive_ci_upper: float
@@ -275,6 +278,7 @@ class Analysis:
     warnings: list[str] = field(default_factory=list)
     metric: str = ""
     scale: str = "difference"
+    plan_kind: str = "group_sequential"
     caution: str = CAUTION
 
     def to_dict(self) -> dict:

@@ -21,13 +21,17 @@ def plot_analysis(analysis: Any, plan: Any, path: str | Path) -> Path:
     import matplotlib.pyplot as plt
 
     looks = analysis.looks
-    t = np.array([x.information_fraction for x in looks])
+    mixture = getattr(analysis, "plan_kind", "") == "mixture"
+    if mixture:
+        t = np.array([max(x.n_control, x.n_treatment) for x in looks], float)
+    else:
+        t = np.array([x.information_fraction for x in looks])
     z = np.array([x.z for x in looks])
     a = np.array([x.efficacy_z for x in looks])
     fut = [x.futility_z for x in looks]
     fig, ax = plt.subplots(figsize=(7.5, 4.8), dpi=110)
     sides = getattr(plan, "sides", 2)
-    pt = getattr(plan, "info_fractions", None)
+    pt = None if mixture else getattr(plan, "info_fractions", None)
     cap = 6.0
     if pt is not None:
         pa = np.minimum(plan.efficacy_z, cap)
@@ -55,10 +59,14 @@ def plot_analysis(analysis: Any, plan: Any, path: str | Path) -> Path:
              "stop_futility": "stop: futility",
              "complete_not_significant": "complete: not significant"}
     ax.annotate(words.get(analysis.decision, analysis.decision),
-                (last.information_fraction, last.z), textcoords="offset points",
+                (float(t[-1]), last.z), textcoords="offset points",
                 xytext=(8, 8), fontsize=10, weight="bold")
-    ax.set_xlim(0, max(1.02, float(t.max()) + 0.02))
-    ax.set_xlabel("information fraction")
+    if mixture:
+        ax.set_xlim(0, float(t.max()) * 1.08)
+        ax.set_xlabel("units in the larger arm (look at any time)")
+    else:
+        ax.set_xlim(0, max(1.02, float(t.max()) + 0.02))
+        ax.set_xlabel("information fraction")
     ax.set_ylabel("z statistic (treatment - control)")
     ax.set_title("Looks against the stopping boundaries")
     ax.legend(loc="best", fontsize=8, frameon=False)

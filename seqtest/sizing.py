@@ -34,7 +34,8 @@ import numpy as np
 if TYPE_CHECKING:
     from seqtest.design import Plan
 
-__all__ = ["SampleSize", "sample_size", "max_sizes", "check_metric", "METRIC_KINDS"]
+__all__ = ["SampleSize", "sample_size", "max_sizes", "check_metric", "delta_and_unit",
+           "METRIC_KINDS"]
 
 METRIC_KINDS = ("binary", "continuous", "rate")
 _ALLOWED = {
@@ -142,8 +143,9 @@ def _variances(m: dict) -> tuple[float, float]:
     return sd * sd, m.get("sd_treatment", sd) ** 2
 
 
-def _delta_and_unit(m: dict) -> tuple[float, float]:
-    """Design effect on the analysis scale and ``n_c`` per unit of information."""
+def delta_and_unit(m: dict) -> tuple[float, float]:
+    """Design effect on the analysis scale and control users per unit of information,
+    for a metric already checked by :func:`check_metric`."""
     m_c, m_t = _means(m)
     v_c, v_t = _variances(m)
     q = m["allocation"]
@@ -201,7 +203,7 @@ def max_sizes(plan: Plan, **metric: Any) -> tuple[int, int]:
     """Maximum users (exposure) per arm, control and treatment, rounded up; the cheap
     part of :func:`sample_size` (no expected sizes)."""
     m = check_metric(dict(metric))
-    delta, unit = _delta_and_unit(m)
+    delta, unit = delta_and_unit(m)
     n_c = plan.max_information(delta) * unit
     return int(_up(n_c)), int(_up(n_c * m["allocation"]))
 
@@ -218,7 +220,7 @@ def sample_size(plan: Plan, **metric: Any) -> SampleSize:
     63
     """
     m = check_metric(dict(metric))
-    delta, unit = _delta_and_unit(m)
+    delta, unit = delta_and_unit(m)
     q = m["allocation"]
     i_max = plan.max_information(delta)
     n_c = i_max * unit

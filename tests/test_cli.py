@@ -148,3 +148,31 @@ def test_demo_without_service(tmp_path, capsys):
     assert (tmp_path / "demo" / "plan.json").exists()
     assert (tmp_path / "demo" / "looks.png").exists()
     assert "Decision at look" in out
+
+
+def test_mixture_plan_and_analysis(tmp_path, capsys):
+    # A mixture plan goes in the same plan document (kind "mixture") and through the
+    # same analyze command.
+    plan_path = tmp_path / "mix.json"
+    rc, out, _ = run(["plan", "--kind", "mixture", "--metric", "binary", "--baseline", "0.08",
+                      "--mde", "0.012", "--max-n-per-arm", "20000", "--json", str(plan_path)],
+                     capsys)
+    assert rc == 0 and "mixture" in out
+    doc = json.loads(plan_path.read_text())
+    assert doc["kind"] == "mixture"
+    out_json = tmp_path / "a.json"
+    png = tmp_path / "m.png"
+    rc, out, _ = run(["analyze", str(EXAMPLE), "--plan", str(plan_path), "--json",
+                      str(out_json), "--plot", str(png)], capsys)
+    assert rc == 0 and "always-valid p-value" in out
+    res = json.loads(out_json.read_text())
+    assert res["plan_kind"] == "mixture"
+    pv = [x["always_valid_p"] for x in res["looks"]]
+    assert all(b <= a for a, b in zip(pv, pv[1:], strict=False))  # running minimum
+    assert png.exists()
+
+
+def test_mixture_plan_refuses_look_options(capsys):
+    rc, _, err = run(["plan", "--kind", "mixture", "--looks", "5", "--metric", "binary",
+                      "--baseline", "0.1", "--mde", "0.02"], capsys)
+    assert rc == 2 and "--looks" in err
