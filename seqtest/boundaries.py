@@ -86,6 +86,8 @@ class _State:
     g: np.ndarray  # Simpson weight times sub-density at each node
     info: float
     theta: float
+    s0: float = 0.0  # score S at the starting point of the paths ...
+    i0: float = 0.0  # ... and its information: grids centre on E[S] from there
 
     @classmethod
     def origin(cls, theta: float) -> _State:
@@ -144,7 +146,7 @@ class _State:
         """
         mean_s, sd = self._moments(info_next)
         q = math.sqrt(info_next)
-        mu = self.theta * q
+        mu = (self.s0 + self.theta * (info_next - self.i0)) / q
         if info_after is not None and info_after > info_next:
             need = 1.5 / math.sqrt((info_after - info_next) / info_next)
             r = int(min(200, max(r, math.ceil(need))))
@@ -156,13 +158,13 @@ class _State:
         z = np.concatenate(zs) if zs else np.empty(0)
         w = np.concatenate(ws) if ws else np.empty(0)
         if z.size == 0:
-            return _State(z, w, info_next, self.theta)
+            return _State(z, w, info_next, self.theta, self.s0, self.i0)
         x = np.subtract.outer(z * (q / sd), mean_s / sd)
         np.square(x, out=x)
         x *= -0.5
         np.exp(x, out=x)
         dens = (x @ self.g) * (q / (sd * _SQRT2PI))
-        return _State(z, w * dens, info_next, self.theta)
+        return _State(z, w * dens, info_next, self.theta, self.s0, self.i0)
 
 
 def _intervals(lower: float, upper: float, in_lo: float, in_hi: float

@@ -219,7 +219,9 @@ def conditional_power(
     uf = np.asarray(future_upper, float).ravel()
     if tf.size == 0:
         return 0.0
-    state = _State(np.array([float(z_now)]), np.ones(1), float(t_now), float(drift))
+    s_now = float(z_now) * math.sqrt(float(t_now))
+    state = _State(np.array([float(z_now)]), np.ones(1), float(t_now), float(drift),
+                   s_now, float(t_now))
     total = 0.0
     for j in range(tf.size):
         total += state.prob_above(uf[j], tf[j])

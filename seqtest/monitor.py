@@ -17,7 +17,10 @@ looks keep the type I error:
   monitored through the cumulative alpha of its design, interpolated monotonely;
 - futility boundary: beta spending under the design alternative on the same
   fractions; non-binding plans compute efficacy ignoring it;
-- the z statistic, estimate and standard error come from :mod:`seqtest.metrics`.
+- the z statistic, estimate and standard error come from :mod:`seqtest.metrics`
+  (unpooled variances); on the relative scale the test runs on the log ratio
+  ``log(1 + r)`` with standard error ``se / (1 + r)`` and intervals are mapped back
+  with ``exp(.) - 1``.
 
 Decisions: ``continue``, ``stop_efficacy`` (with the direction), ``stop_futility``,
 or ``complete_not_significant`` at the final look.
@@ -399,6 +402,18 @@ def analyze(
     info = np.atleast_1d(np.asarray(eff.information, float))
     n_c = np.atleast_1d(np.asarray(eff.n_control, float))
     n_t = np.atleast_1d(np.asarray(eff.n_treatment, float))
+    # On the relative scale the test runs on the log ratio log(1 + r), whose
+    # delta-method standard error se / (1 + r) does not shrink with the estimate
+    # as the ratio's does (which makes z on the ratio itself lopsided at small
+    # counts); estimates and intervals are reported back on the relative scale.
+    relative = scale == "relative"
+    if relative:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            w_est = np.log1p(est)
+            w_se = se / (1.0 + est)
+            w_z = np.where(np.isfinite(w_se) & (w_se > 0), w_est / w_se, 0.0)
+    else:
+        w_est, w_se, w_z = est, se, z
     k = est.size
     warnings: list[str] = []
     degenerate = np.atleast_1d(np.asarray(eff.degenerate, bool))
@@ -446,7 +461,7 @@ def analyze(
         is_final = (j == last - 1) and last_final
         a_j = float(a_all[j])
         b_j = None if b_all is None else float(b_all[j])
-        dec = _decide_one(float(z[j]), a_j, b_j, plan.sides, is_final, degenerate[j])
+        dec = _decide_one(float(w_z[j]), a_j, b_j, plan.sides, is_final, degenerate[j])
         srm_p = None
         if kind != "rate":  # exposure is not a count of units: no chi-square check
             try:
@@ -457,17 +472,19 @@ def analyze(
                     warnings.append(f"look {j + 1}: {srm.message}")
             except ValueError:
                 srm_p = None
-        rci_lo, rci_hi = inference.repeated_ci(est[j], se[j], a_j, plan.sides)
+        rci_lo, rci_hi = inference.repeated_ci(w_est[j], w_se[j], a_j, plan.sides)
+        if relative:
+            rci_lo, rci_hi = np.expm1(rci_lo), np.expm1(rci_hi)
         records.append(LookResult(
             look=j + 1, n_control=float(n_c[j]), n_treatment=float(n_t[j]),
             control_value=float(np.atleast_1d(eff.control_value)[j]),
             treatment_value=float(np.atleast_1d(eff.treatment_value)[j]),
-            estimate=float(est[j]), se=float(se[j]), z=float(z[j]),
+            estimate=float(est[j]), se=float(se[j]), z=float(w_z[j]),
             information=float(info[j]), information_fraction=float(t[j]),
             efficacy_z=a_j, futility_z=b_j,
             nominal_p=float(plan.sides * special.ndtr(-a_j)),
-            unadjusted_p=float(plan.sides * special.ndtr(-abs(z[j]))) if plan.sides == 2
-            else float(special.ndtr(-z[j])),
+            unadjusted_p=float(plan.sides * special.ndtr(-abs(w_z[j]))) if plan.sides == 2
+            else float(special.ndtr(-w_z[j])),
             rci_lower=float(rci_lo), rci_upper=float(rci_hi), decision=dec,
             srm_p_value=srm_p,
         ))
@@ -477,7 +494,7 @@ def analyze(
         if dec in _TERMINAL or (dec == "stop_futility" and (plan.binding or j == last - 1)):
             decision, stopped = dec, j + 1
             if dec == "stop_efficacy":
-                direction = "treatment_better" if z[j] > 0 else "control_better"
+                direction = "treatment_better" if w_z[j] > 0 else "control_better"
             if j < last - 1:
                 warnings.append(f"the experiment stopped at look {j + 1} ({dec}); looks "
                                 f"{j + 2}..{k} came after the stop and are not analysed")
@@ -487,10 +504,20 @@ def analyze(
 
     fin = proj = None
     if stopped is not None:
-        fin = _final_inference(plan, z[:stopped], info[:stopped], t[:stopped],
-                               a_all[:stopped], est[stopped - 1], se[stopped - 1])
+        w_info = 1.0 / np.square(w_se[:stopped])
+        fin = _final_inference(plan, w_z[:stopped], w_info, t[:stopped],
+                               a_all[:stopped], w_est[stopped - 1], w_se[stopped - 1])
+        if relative:
+            fin = FinalInference(
+                p_value=fin.p_value, ci_lower=float(np.expm1(fin.ci_lower)),
+                ci_upper=float(np.expm1(fin.ci_upper)),
+                median_unbiased=float(np.expm1(fin.median_unbiased)),
+                naive_estimate=float(est[stopped - 1]),
+                naive_ci_lower=float(np.expm1(fin.naive_ci_lower)),
+                naive_ci_upper=float(np.expm1(fin.naive_ci_upper)),
+                naive_p_value=fin.naive_p_value)
     if decision == "continue":
-        proj = _projection(plan, float(z[last - 1]), float(t[last - 1]), future,
+        proj = _projection(plan, float(w_z[last - 1]), float(t[last - 1]), future,
                            a_all[last:], total_max, daily_traffic)
     return Analysis(decision=decision, direction=direction, stopped_at=stopped,
                     looks=records, final=fin, projection=proj, warnings=warnings,
