@@ -7,21 +7,17 @@ errors into HTTP errors that name what to fix, and results into plain JSON.
 
 from __future__ import annotations
 
+import logging
 import math
 from typing import Any
 
 import seqtest
 from seqtest.metrics import ARMS, LookDataError
+from seqtest.plans import plan_from_dict
 from service.errors import InvalidPlan, InvalidTotals, Unavailable, Unprocessable
 from service.storage import Experiment, Look, NewLook, NewPlan, PlanVersion
 
-# How the service's experiment lifecycle follows the monitor's decision.
-_STATE_OF_DECISION = {
-    "continue": "running",
-    "stop_efficacy": "stopped",
-    "stop_futility": "stopped",
-    "complete_not_significant": "completed",
-}
+log = logging.getLogger("seqtest.service")
 
 
 def json_safe(value: Any) -> Any:
@@ -50,12 +46,16 @@ def json_safe(value: Any) -> Any:
 def read_plan(document: dict[str, Any]) -> Any:
     """The library's plan object for a stored or posted plan document."""
     try:
-        return seqtest.plan_from_dict(document)
+        return plan_from_dict(document)
     except (ValueError, TypeError, KeyError, AttributeError, IndexError) as exc:
         raise InvalidPlan(f"The plan document is not usable: {_text(exc)}") from exc
 
 
-def build_plan(document: dict[str, Any] | None, design: dict[str, Any] | None) -> NewPlan:
+def build_plan(
+    document: dict[str, Any] | None,
+    design: dict[str, Any] | None,
+    design_kind: str = "group_sequential",
+) -> NewPlan:
     """A plan from a posted document, or designed from posted inputs."""
     if document is not None:
         plan = read_plan(document)
@@ -63,12 +63,59 @@ def build_plan(document: dict[str, Any] | None, design: dict[str, Any] | None) -
     else:
         assert design is not None
         try:
-            plan = seqtest.design(**design)
+            if design_kind == "mixture":
+                from seqtest.mixture import mixture_plan
+
+                plan = mixture_plan(**design)
+            else:
+                plan = seqtest.design(**design)
         except (ValueError, TypeError) as exc:
             raise InvalidPlan(f"The plan cannot be designed: {_text(exc)}") from exc
-        source = {"from": "design", "inputs": json_safe(design)}
+        source = {"from": "design", "kind": design_kind, "inputs": json_safe(design)}
     doc = json_safe(plan.to_dict())
     return NewPlan(kind=str(doc.get("kind", "")), document=doc, source=source)
+
+
+def plan_metric_kind(document: dict[str, Any]) -> str | None:
+    """The metric kind the plan was sized for, if it names one."""
+    metric = getattr(read_plan(document), "metric", None)
+    kind = metric.get("kind") if isinstance(metric, dict) else None
+    return kind if isinstance(kind, str) else None
+
+
+def check_sizing(plan: NewPlan, max_n: float | None) -> None:
+    """A group-sequential plan is monitored on sample fractions: it needs a size.
+
+    The size comes from the plan's metric (its sample size) or from ``max_n``.
+    """
+    if plan.kind != "group_sequential" or max_n is not None:
+        return
+    if plan_metric_kind(plan.document) is None:
+        raise Unprocessable(
+            "max_n: the plan has no metric to size it, so give max_n, the maximum total "
+            "sample over both arms (exposure for rates), or design the plan with a metric",
+            details=[{"location": ["body", "max_n"], "message": "missing"}],
+        )
+
+
+def resolve_metric(metric: str | None, plan: NewPlan) -> str:
+    """The experiment's metric kind: as given, else the plan's; the two must agree."""
+    planned = plan_metric_kind(plan.document)
+    if metric is None:
+        if planned is None:
+            raise Unprocessable(
+                "metric: give the metric kind of the totals (binary, continuous or rate); "
+                "the plan does not name one",
+                details=[{"location": ["body", "metric"], "message": "missing"}],
+            )
+        return planned
+    if planned is not None and planned != metric:
+        raise Unprocessable(
+            f"metric: got {metric!r} but the plan was sized for a {planned!r} metric; "
+            "give the same kind, or leave metric out",
+            details=[{"location": ["body", "metric"], "message": "differs from the plan"}],
+        )
+    return metric
 
 
 def boundary_table(document: dict[str, Any]) -> list[dict[str, Any]] | None:
@@ -152,25 +199,59 @@ def analyze_look(
     prior: list[Look],
     totals: dict[str, dict[str, float]],
     final: bool,
+    daily_traffic: float | None = None,
 ) -> NewLook:
-    """Run the monitor over every stored look plus the new one."""
+    """Run the monitor over every stored look plus the new one.
+
+    The experiment's state follows the monitor: ``stopped`` once it reports a
+    stop (``stopped_at``), ``completed`` at a final look or a completion without
+    significance, else ``running`` (which includes a non-binding futility
+    crossing: the monitor advises stopping, and further looks stay valid).
+    """
     roles = to_roles(exp, totals)
     looks = [lk.totals for lk in prior] + [roles]
     plan_obj = read_plan(plan.document)
     monitor = _monitor()
+    options: dict[str, Any] = {}
+    if exp.max_n is not None:
+        options["max_n"] = exp.max_n
+    if exp.fraction is not None:
+        options["fraction"] = exp.fraction
+    if daily_traffic is not None:
+        options["daily_traffic"] = daily_traffic
     try:
         result = monitor.analyze(
-            plan_obj, looks, metric=exp.metric, allocation=exp.allocation, final=final
+            plan_obj, looks, metric=exp.metric, allocation=exp.allocation, final=final,
+            **options,
         )
     except LookDataError as exc:
         raise _totals_error(exc, exp, len(looks)) from exc
+    except ImportError as exc:
+        raise Unavailable(
+            f"This kind of plan cannot be monitored by this installation of seqtest "
+            f"({_text(exc)}). Nothing was stored."
+        ) from exc
     except (ValueError, TypeError) as exc:
         raise Unprocessable(f"The look cannot be analysed: {_text(exc)}") from exc
+    except ArithmeticError as exc:
+        # The library could not compute on these totals (e.g. numbers near the
+        # float range, or no variation at all). Nothing is stored; say so plainly.
+        log.warning("monitor failed on experiment %s", exp.id, exc_info=True)
+        raise Unprocessable(
+            "The look cannot be analysed: the computation failed on these totals "
+            f"({type(exc).__name__}: {_text(exc)}). Nothing was stored. Check that the "
+            "totals are cumulative and in a plausible range."
+        ) from exc
     analysis = json_safe(result.to_dict())
     decision = analysis.get("decision")
-    if decision not in _STATE_OF_DECISION:
+    if decision not in monitor.DECISIONS:
         raise RuntimeError(f"the monitor returned an unknown decision {decision!r}")
-    state = "completed" if final else _STATE_OF_DECISION[decision]
+    if final or decision == "complete_not_significant":
+        state = "completed"
+    elif analysis.get("stopped_at") is not None:
+        state = "stopped"
+    else:
+        state = "running"
     return NewLook(
         totals=roles, final=final, decision=decision, state=state, analysis=analysis
     )

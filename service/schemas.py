@@ -7,6 +7,7 @@ checked by the seqtest library, whose messages the service passes on.
 
 from __future__ import annotations
 
+import math
 from typing import Annotated, Any, Literal
 
 from pydantic import (
@@ -14,8 +15,10 @@ from pydantic import (
     BaseModel,
     ConfigDict,
     Field,
+    PlainValidator,
     Strict,
     StringConstraints,
+    WithJsonSchema,
     field_validator,
     model_validator,
 )
@@ -32,6 +35,31 @@ ArmName = Annotated[
 FieldName = Annotated[str, StringConstraints(min_length=1, max_length=64)]
 # JSON numbers only (no strings, no booleans), and never NaN or Infinity.
 Number = Annotated[float, Strict(), AllowInfNan(False)]
+
+
+_JSON_TYPES = {
+    bool: "true/false", str: "text", type(None): "null", list: "a list", dict: "an object"
+}
+
+
+def _total(value: Any) -> int | float:
+    """A total as posted: whole numbers stay whole; never NaN, Infinity or text."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        got = _JSON_TYPES.get(type(value), type(value).__name__)
+        raise ValueError(f"a total must be a JSON number, got {got}")
+    if isinstance(value, int):
+        if abs(value) <= 10**15:
+            return value
+        try:
+            value = float(value)
+        except OverflowError:
+            raise ValueError("the number is too large for a total") from None
+    if not math.isfinite(value):
+        raise ValueError("a total must be a finite number (NaN and Infinity are not allowed)")
+    return value
+
+
+Total = Annotated[int | float, PlainValidator(_total), WithJsonSchema({"type": "number"})]
 
 STATES = ("planned", "running", "stopped", "completed")
 State = Literal[STATES]  # type: ignore[valid-type]
@@ -57,9 +85,23 @@ class Arms(_Strict):
         return self
 
 
-class DesignInputs(_Strict):
-    """Inputs to :func:`seqtest.design`; omitted fields take the library's defaults."""
+_GROUP_SEQUENTIAL_FIELDS = (
+    "alpha", "sides", "power", "looks", "info_fractions", "efficacy", "futility", "binding",
+    "metric",
+)
+_MIXTURE_FIELDS = (
+    "alpha", "sides", "mde", "max_n_per_arm", "unit_variance", "tau2", "scale", "metric",
+)
 
+
+class DesignInputs(_Strict):
+    """Inputs from which the library designs the plan; omitted fields take its defaults.
+
+    ``kind`` "group_sequential" (default) calls ``seqtest.design``; "mixture" calls
+    ``seqtest.mixture.mixture_plan`` (continuous monitoring by the mixture SPRT).
+    """
+
+    kind: Literal["group_sequential", "mixture"] = "group_sequential"
     alpha: Number | None = None
     sides: Annotated[int, Strict()] | None = None
     power: Number | None = None
@@ -80,10 +122,30 @@ class DesignInputs(_Strict):
         description="metric for the sample size, e.g. "
         "{'kind': 'binary', 'baseline': 0.12, 'mde': 0.015}",
     )
+    mde: Number | None = Field(default=None, description="mixture: minimum detectable effect")
+    max_n_per_arm: Annotated[int, Strict()] | None = Field(
+        default=None, description="mixture: planned cap on the larger arm"
+    )
+    unit_variance: Number | None = Field(default=None, description="mixture only")
+    tau2: Number | None = Field(default=None, description="mixture: mixing variance")
+    scale: Literal["difference", "relative"] | None = Field(
+        default=None, description="mixture only"
+    )
+
+    @model_validator(mode="after")
+    def _fields_of_kind(self) -> DesignInputs:
+        allowed = _MIXTURE_FIELDS if self.kind == "mixture" else _GROUP_SEQUENTIAL_FIELDS
+        wrong = [f for f in self.model_fields_set if f != "kind" and f not in allowed]
+        if wrong:
+            raise ValueError(
+                f"design: {', '.join(sorted(wrong))} does not apply to a {self.kind} plan; "
+                f"its inputs are {', '.join(allowed)}"
+            )
+        return self
 
     def arguments(self) -> dict[str, Any]:
-        """Keyword arguments for ``seqtest.design`` (only the fields given)."""
-        return self.model_dump(exclude_unset=True)
+        """Keyword arguments for the design function (only the fields given)."""
+        return self.model_dump(exclude_unset=True, exclude={"kind"})
 
 
 class _PlanChoice(_Strict):
@@ -106,13 +168,27 @@ class _PlanChoice(_Strict):
 class ExperimentCreate(_PlanChoice):
     name: Annotated[str, StringConstraints(min_length=1, max_length=200, strip_whitespace=True)]
     description: Annotated[str, StringConstraints(max_length=2000)] = ""
-    metric: MetricKind = Field(description="kind of metric the totals describe")
+    metric: MetricKind | None = Field(
+        default=None,
+        description="kind of metric the totals describe (default: the plan's metric kind)",
+    )
     arms: Arms = Field(default_factory=Arms)
     allocation: Number = Field(
         default=1.0,
         gt=0,
         le=100,
         description="planned ratio of treatment to control units (1 = equal split)",
+    )
+    max_n: Number | None = Field(
+        default=None,
+        gt=0,
+        description="maximum total sample over both arms (exposure for rates); needed "
+        "when the plan has no metric to size it",
+    )
+    fraction: Literal["sample", "information"] | None = Field(
+        default=None,
+        description="how information fractions are measured: by sample (default) or by "
+        "statistical information",
     )
 
 
@@ -122,12 +198,17 @@ class AmendmentCreate(_PlanChoice):
 
 class LookCreate(_Strict):
     totals: Annotated[
-        dict[ArmName, Annotated[dict[FieldName, Number], Field(max_length=16)]],
+        dict[ArmName, Annotated[dict[FieldName, Total], Field(max_length=16)]],
         Field(max_length=8),
     ] = Field(description="cumulative totals per arm name, since the start of the experiment")
     final: Annotated[bool, Strict()] = Field(
         default=False,
         description="true for the last look: it spends whatever error is left",
+    )
+    daily_traffic: Number | None = Field(
+        default=None,
+        gt=0,
+        description="units (or exposure) per day over both arms, for the projection in days",
     )
 
     @field_validator("totals")
@@ -169,6 +250,8 @@ class ExperimentSummary(BaseModel):
     metric: str
     arms: Arms
     allocation: float
+    max_n: float | None
+    fraction: str | None
     state: State
     decision: str | None
     looks: int
@@ -183,7 +266,7 @@ class LookOut(BaseModel):
     look: int
     plan_version: int
     final: bool
-    totals: dict[str, dict[str, float]]
+    totals: dict[str, dict[str, int | float]]
     decision: str
     state: State
     recorded_at: str
@@ -196,7 +279,7 @@ class LookSummary(BaseModel):
     look: int
     plan_version: int
     final: bool
-    totals: dict[str, dict[str, float]]
+    totals: dict[str, dict[str, int | float]]
     decision: str
     recorded_at: str
     recorded_by: str

@@ -194,6 +194,8 @@ class Experiment:
     control_arm: str
     treatment_arm: str
     allocation: float
+    max_n: float | None
+    fraction: str | None
     plan_version: int
     look_count: int
     state: str
@@ -235,6 +237,8 @@ class NewExperiment:
     control_arm: str
     treatment_arm: str
     allocation: float
+    max_n: float | None = None
+    fraction: str | None = None
 
 
 @dataclass(frozen=True)
@@ -283,6 +287,8 @@ def _experiment(row: Any) -> Experiment:
         control_arm=m["control_arm"],
         treatment_arm=m["treatment_arm"],
         allocation=float(m["allocation"]),
+        max_n=None if m["max_n"] is None else float(m["max_n"]),
+        fraction=m["fraction"],
         plan_version=int(m["plan_version"]),
         look_count=int(m["look_count"]),
         state=m["state"],
@@ -494,7 +500,14 @@ class Storage:
         team_id: str,
         idem: Idempotency | None,
         work: Callable[[Connection], tuple[int, dict[str, Any]]],
+        lock: Callable[[Connection], Any] | None = None,
     ) -> Stored:
+        """Run ``work`` in one write transaction, guarded by ``idem``.
+
+        ``lock`` (optional) runs first in the transaction; the stored answers
+        are checked again after it, so that a retry which waited for the lock
+        behind its own first attempt gets that attempt's answer.
+        """
         if idem is not None:
             with self.engine.connect() as conn:
                 prior = self._replay(conn, team_id, idem)
@@ -503,6 +516,8 @@ class Storage:
                 return prior
         try:
             with self._write() as conn:
+                if lock is not None:
+                    lock(conn)
                 if idem is not None:
                     prior = self._replay(conn, team_id, idem)
                     if prior is not None:
@@ -515,7 +530,8 @@ class Storage:
                             key=idem.key,
                             request_hash=idem.request_hash,
                             status_code=status,
-                            response=dump_json(body),
+                            # key order kept, so a replay is byte-for-byte the first answer
+                            response=json.dumps(body, separators=(",", ":"), allow_nan=False),
                             created_at=now(),
                         )
                     )
@@ -557,6 +573,8 @@ class Storage:
                     control_arm=new.control_arm,
                     treatment_arm=new.treatment_arm,
                     allocation=new.allocation,
+                    max_n=new.max_n,
+                    fraction=new.fraction,
                     plan_version=1,
                     look_count=0,
                     state="planned",
@@ -719,7 +737,10 @@ class Storage:
             )
             return 201, render(exp_after, look)
 
-        return self._idempotent_write(principal.team_id, idem, work)
+        return self._idempotent_write(
+            principal.team_id, idem, work,
+            lock=lambda conn: self._lock_experiment(conn, principal.team_id, exp_id),
+        )
 
     # -- amendments ---------------------------------------------------------------
 
@@ -731,8 +752,13 @@ class Storage:
         reason: str,
         render: Callable[[Experiment, PlanVersion], dict[str, Any]],
         idem: Idempotency | None = None,
+        check: Callable[[Experiment], None] | None = None,
     ) -> Stored:
-        """Record a new plan version for ``exp_id``; earlier versions stay as they were."""
+        """Record a new plan version for ``exp_id``; earlier versions stay as they were.
+
+        ``check`` (optional) sees the experiment under the lock and may refuse
+        the amendment by raising.
+        """
 
         def work(conn: Connection) -> tuple[int, dict[str, Any]]:
             exp = self._lock_experiment(conn, principal.team_id, exp_id)
@@ -740,6 +766,8 @@ class Storage:
                 raise Conflict(
                     f"Experiment {exp_id!r} is {exp.state}; its plan can no longer be amended."
                 )
+            if check is not None:
+                check(exp)
             ts = now()
             version = exp.plan_version + 1
             conn.execute(
@@ -762,4 +790,7 @@ class Storage:
             exp_after = self._lock_experiment(conn, principal.team_id, exp_id)
             return 201, render(exp_after, self._plan(conn, exp_id, version))
 
-        return self._idempotent_write(principal.team_id, idem, work)
+        return self._idempotent_write(
+            principal.team_id, idem, work,
+            lock=lambda conn: self._lock_experiment(conn, principal.team_id, exp_id),
+        )

@@ -16,6 +16,8 @@ def summary(exp: Experiment) -> dict[str, Any]:
         "metric": exp.metric,
         "arms": {"control": exp.control_arm, "treatment": exp.treatment_arm},
         "allocation": exp.allocation,
+        "max_n": exp.max_n,
+        "fraction": exp.fraction,
         "state": exp.state,
         "decision": exp.decision,
         "looks": exp.look_count,

@@ -11,6 +11,7 @@ from service import analysis, examples, idempotency, views
 from service.auth import PrincipalDep, StorageDep
 from service.routers.experiments import _ERRORS
 from service.schemas import AmendmentCreate, AmendmentOut
+from service.storage import Experiment
 
 router = APIRouter(prefix="/v1/experiments/{experiment_id}/amendments", tags=["amendments"])
 
@@ -35,8 +36,14 @@ def amend_plan(
     (the API key), when, why, and after how many looks. Refused (409) once the
     experiment has stopped or completed."""
     plan = analysis.build_plan(
-        body.plan, body.design.arguments() if body.design is not None else None
+        body.plan,
+        body.design.arguments() if body.design is not None else None,
+        body.design.kind if body.design is not None else "group_sequential",
     )
+
+    def check(exp: Experiment) -> None:
+        analysis.resolve_metric(exp.metric, plan)
+        analysis.check_sizing(plan, exp.max_n)
 
     stored = storage.amend_plan(
         principal,
@@ -45,5 +52,6 @@ def amend_plan(
         body.reason,
         views.amendment,
         idempotency.for_request(key, "POST", request.url.path, body),
+        check=check,
     )
     return idempotency.respond(stored)

@@ -57,15 +57,20 @@ def create_experiment(
     the experiment's id and the plan's boundary table. The plan is frozen from the first
     look on; changes are recorded amendments."""
     plan = analysis.build_plan(
-        body.plan, body.design.arguments() if body.design is not None else None
+        body.plan,
+        body.design.arguments() if body.design is not None else None,
+        body.design.kind if body.design is not None else "group_sequential",
     )
+    analysis.check_sizing(plan, body.max_n)
     new = NewExperiment(
         name=body.name,
         description=body.description,
-        metric=body.metric,
+        metric=analysis.resolve_metric(body.metric, plan),
         control_arm=body.arms.control,
         treatment_arm=body.arms.treatment,
         allocation=body.allocation,
+        max_n=body.max_n,
+        fraction=body.fraction,
     )
     stored = storage.create_experiment(
         principal,

@@ -12,7 +12,7 @@ from service.auth import PrincipalDep, StorageDep
 from service.errors import NotFound
 from service.routers.experiments import _ERRORS
 from service.schemas import LookCreate, LookOut
-from service.storage import Experiment, Look, PlanVersion
+from service.storage import Experiment, Look, NewLook, PlanVersion
 
 router = APIRouter(prefix="/v1/experiments/{experiment_id}/looks", tags=["looks"])
 
@@ -41,8 +41,10 @@ def post_look(
     and stored with the analysis in one transaction. Totals that go backwards, unknown
     arms and fields that do not fit the metric are refused with 422 naming the field."""
 
-    def compute(exp: Experiment, plan: PlanVersion, prior: list[Look]):  # noqa: ANN202
-        return analysis.analyze_look(exp, plan, prior, body.totals, body.final)
+    def compute(exp: Experiment, plan: PlanVersion, prior: list[Look]) -> NewLook:
+        return analysis.analyze_look(
+            exp, plan, prior, body.totals, body.final, body.daily_traffic
+        )
 
     stored = storage.append_look(
         principal,

@@ -10,17 +10,13 @@ the PostgreSQL tests are skipped, except in CI (``CI=true``), where they fail.
 from __future__ import annotations
 
 import os
-import re
 import secrets
-import signal
-import subprocess
-import sys
-import time
 from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
-import httpx
 import pytest
+from service_helpers import Server
 
 from service.storage import Storage
 
@@ -59,26 +55,26 @@ def postgres_base() -> str:
     pytest.skip(message)
 
 
-@pytest.fixture
-def postgres_url(postgres_base: str) -> Iterator[str]:
-    """A URL whose search_path is a fresh schema, dropped after the test."""
+@contextmanager
+def _schema(base: str) -> Iterator[str]:
+    """A URL whose search_path is a fresh, uniquely named schema, dropped afterwards."""
     import psycopg
 
     schema = f"seqtest_test_{os.getpid()}_{secrets.token_hex(4)}"
-    with psycopg.connect(_libpq(postgres_base), autocommit=True) as conn:
+    with psycopg.connect(_libpq(base), autocommit=True) as conn:
         conn.execute(f'CREATE SCHEMA "{schema}"')
-    sep = "&" if "?" in postgres_base else "?"
+    sep = "&" if "?" in base else "?"
     try:
-        yield f"{postgres_base}{sep}options=-csearch_path%3D{schema}"
+        yield f"{base}{sep}options=-csearch_path%3D{schema}"
     finally:
-        with psycopg.connect(_libpq(postgres_base), autocommit=True) as conn:
-            # end any session a killed server left behind before dropping
-            conn.execute(
-                "SELECT pg_terminate_backend(pid) FROM pg_stat_activity "
-                "WHERE pid <> pg_backend_pid() AND query ILIKE %s",
-                (f"%{schema}%",),
-            )
+        with psycopg.connect(_libpq(base), autocommit=True) as conn:
             conn.execute(f'DROP SCHEMA IF EXISTS "{schema}" CASCADE')
+
+
+@pytest.fixture
+def postgres_url(postgres_base: str) -> Iterator[str]:
+    with _schema(postgres_base) as url:
+        yield url
 
 
 @pytest.fixture
@@ -94,6 +90,21 @@ def database_url(request: pytest.FixtureRequest) -> str:
     return request.getfixturevalue("postgres_url")
 
 
+@pytest.fixture(
+    scope="module",
+    params=["sqlite", pytest.param("postgresql", marks=pytest.mark.postgres)],
+)
+def module_database_url(
+    request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory
+) -> Iterator[str]:
+    """One database per test module and kind, shared by the module's tests."""
+    if request.param == "sqlite":
+        yield f"sqlite:///{tmp_path_factory.mktemp('db') / 'seqtest.db'}"
+        return
+    with _schema(request.getfixturevalue("postgres_base")) as url:
+        yield url
+
+
 @pytest.fixture
 def storage(database_url: str) -> Iterator[Storage]:
     s = Storage(database_url)
@@ -103,94 +114,13 @@ def storage(database_url: str) -> Iterator[Storage]:
         s.close()
 
 
-# --------------------------------------------------------------------- a real server
-
-_RUNNING = re.compile(r"Uvicorn running on http://127\.0\.0\.1:(\d+)")
-
-
-class Server:
-    """``python -m service serve`` on 127.0.0.1, on a port the OS picks."""
-
-    def __init__(self, database_url: str, log_path: Path, workers: int = 1) -> None:
-        self.database_url = database_url
-        self.log_path = log_path
-        self.workers = workers
-        self.proc: subprocess.Popen | None = None
-        self.base_url = ""
-        self.starts = 0
-
-    def start(self, timeout: float = 30.0) -> Server:
-        env = dict(os.environ)
-        env["PYTHONPATH"] = str(REPO) + os.pathsep + env.get("PYTHONPATH", "")
-        self.starts += 1
-        log_path = self.log_path.with_suffix(f".{self.starts}.log")
-        with open(log_path, "w") as log:
-            self.proc = subprocess.Popen(
-                [
-                    sys.executable, "-m", "service", "serve",
-                    "--host", "127.0.0.1", "--port", "0",
-                    "--workers", str(self.workers),
-                    "--database-url", self.database_url,
-                    "--log-level", "info",
-                ],
-                cwd=REPO,
-                env=env,
-                stdout=log,
-                stderr=subprocess.STDOUT,
-                start_new_session=True,
-            )
-        deadline = time.monotonic() + timeout
-        while time.monotonic() < deadline:
-            if self.proc.poll() is not None:
-                raise RuntimeError(f"server exited:\n{log_path.read_text()}")
-            found = _RUNNING.findall(log_path.read_text())
-            if found:
-                self.base_url = f"http://127.0.0.1:{found[-1]}"
-                try:
-                    if httpx.get(self.base_url + "/v1/health", timeout=5).status_code == 200:
-                        return self
-                except httpx.TransportError:
-                    pass
-            time.sleep(0.05)
-        self.stop()
-        raise RuntimeError(f"server did not start in {timeout} s:\n{log_path.read_text()}")
-
-    def kill9(self) -> None:
-        """SIGKILL the whole process group: no clean shutdown of anything."""
-        assert self.proc is not None
-        os.killpg(self.proc.pid, signal.SIGKILL)
-        self.proc.wait(timeout=10)
-        self.proc = None
-
-    def stop(self) -> None:
-        if self.proc is None:
-            return
-        if self.proc.poll() is None:
-            os.killpg(self.proc.pid, signal.SIGTERM)
-            try:
-                self.proc.wait(timeout=10)
-            except subprocess.TimeoutExpired:
-                os.killpg(self.proc.pid, signal.SIGKILL)
-                self.proc.wait(timeout=10)
-        self.proc = None
-
-
-@pytest.fixture
-def server(database_url: str, tmp_path: Path) -> Iterator[Server]:
-    srv = Server(database_url, tmp_path / "server.log").start()
+@pytest.fixture(scope="module")
+def server(
+    module_database_url: str, tmp_path_factory: pytest.TempPathFactory
+) -> Iterator[Server]:
+    """A server shared by a module's tests (they use their own teams and experiments)."""
+    srv = Server(module_database_url, tmp_path_factory.mktemp("log") / "server.log").start()
     try:
         yield srv
     finally:
         srv.stop()
-
-
-def new_key(database_url: str, team: str, label: str = "tests") -> str:
-    s = Storage(database_url)
-    try:
-        return s.create_key(team, label)[1]
-    finally:
-        s.close()
-
-
-def auth(token: str) -> dict[str, str]:
-    return {"Authorization": f"Bearer {token}"}

@@ -1,0 +1,101 @@
+"""Small helpers shared by the service tests."""
+
+from __future__ import annotations
+
+import os
+import re
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import httpx
+
+from service.storage import Storage
+
+REPO = Path(__file__).resolve().parents[2]
+
+
+# --------------------------------------------------------------------- a real server
+
+_RUNNING = re.compile(r"Uvicorn running on http://127\.0\.0\.1:(\d+)")
+
+
+class Server:
+    """``python -m service serve`` on 127.0.0.1, on a port the OS picks."""
+
+    def __init__(self, database_url: str, log_path: Path, workers: int = 1) -> None:
+        self.database_url = database_url
+        self.log_path = log_path
+        self.workers = workers
+        self.proc: subprocess.Popen | None = None
+        self.base_url = ""
+        self.starts = 0
+
+    def start(self, timeout: float = 30.0) -> Server:
+        env = dict(os.environ)
+        env["PYTHONPATH"] = str(REPO) + os.pathsep + env.get("PYTHONPATH", "")
+        self.starts += 1
+        log_path = self.log_path.with_suffix(f".{self.starts}.log")
+        with open(log_path, "w") as log:
+            self.proc = subprocess.Popen(
+                [
+                    sys.executable, "-m", "service", "serve",
+                    "--host", "127.0.0.1", "--port", "0",
+                    "--workers", str(self.workers),
+                    "--database-url", self.database_url,
+                    "--log-level", "info",
+                ],
+                cwd=REPO,
+                env=env,
+                stdout=log,
+                stderr=subprocess.STDOUT,
+                start_new_session=True,
+            )
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            if self.proc.poll() is not None:
+                raise RuntimeError(f"server exited:\n{log_path.read_text()}")
+            found = _RUNNING.findall(log_path.read_text())
+            if found:
+                self.base_url = f"http://127.0.0.1:{found[-1]}"
+                try:
+                    if httpx.get(self.base_url + "/v1/health", timeout=5).status_code == 200:
+                        return self
+                except httpx.TransportError:
+                    pass
+            time.sleep(0.05)
+        self.stop()
+        raise RuntimeError(f"server did not start in {timeout} s:\n{log_path.read_text()}")
+
+    def kill9(self) -> None:
+        """SIGKILL the whole process group: no clean shutdown of anything."""
+        assert self.proc is not None
+        os.killpg(self.proc.pid, signal.SIGKILL)
+        self.proc.wait(timeout=10)
+        self.proc = None
+
+    def stop(self) -> None:
+        if self.proc is None:
+            return
+        if self.proc.poll() is None:
+            os.killpg(self.proc.pid, signal.SIGTERM)
+            try:
+                self.proc.wait(timeout=10)
+            except subprocess.TimeoutExpired:
+                os.killpg(self.proc.pid, signal.SIGKILL)
+                self.proc.wait(timeout=10)
+        self.proc = None
+
+
+def new_key(database_url: str, team: str, label: str = "tests") -> str:
+    s = Storage(database_url)
+    try:
+        return s.create_key(team, label)[1]
+    finally:
+        s.close()
+
+
+def auth(token: str) -> dict[str, str]:
+    return {"Authorization": f"Bearer {token}"}
