@@ -363,10 +363,6 @@ def test_conditional_power_is_a_probability_and_grows_with_the_drift():
     assert inference.conditional_power(1.0, 0.5, [], [], 3.0) == 0.0
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "known bug: _State.advance centres its grid on theta*sqrt(I) (the mean of a path "
-    "from the origin), but conditional_power starts from a point mass at z_now, so "
-    "the grid is off-centre when z_now disagrees with the drift: errors up to ~1e-5"))
 @pytest.mark.parametrize("z_now", [0.5, -1.0, -2.5])
 def test_conditional_power_accuracy_when_the_data_disagree_with_the_drift(z_now):
     # Source: scipy.stats.multivariate_normal on the conditional joint distribution
