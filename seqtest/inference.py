@@ -46,25 +46,33 @@ from seqtest.boundaries import DEFAULT_R, _State, crossing_probabilities
 __all__ = ["StagewiseResult", "stagewise", "repeated_ci", "conditional_power"]
 
 
+def _inner(inner: np.ndarray | None) -> dict:
+    if inner is None:
+        return {}
+    w = inner.copy()
+    w[-1] = 0.0  # the stopping look's own outcome is ordered by z alone
+    return {"inner_lower": -w, "inner_upper": w}
+
+
 def _upper_p(theta: float, upper: np.ndarray, lower: np.ndarray, info: np.ndarray,
-             z_stop: float, r: int) -> float:
+             z_stop: float, r: int, inner: np.ndarray | None = None) -> float:
     """P_theta(outcome at least as extreme upward as (T, z_stop))."""
     up = upper.copy()
     lo = lower.copy()
     up[-1] = z_stop
     lo[-1] = -np.inf
-    cr = crossing_probabilities(up, lo, info, theta, r=r)
+    cr = crossing_probabilities(up, lo, info, theta, r=r, **_inner(inner))
     return float(cr.upper.sum())
 
 
 def _lower_p(theta: float, upper: np.ndarray, lower: np.ndarray, info: np.ndarray,
-             z_stop: float, r: int) -> float:
+             z_stop: float, r: int, inner: np.ndarray | None = None) -> float:
     """P_theta(outcome at least as extreme downward as (T, z_stop))."""
     up = upper.copy()
     lo = lower.copy()
     up[-1] = np.inf
     lo[-1] = z_stop
-    cr = crossing_probabilities(up, lo, info, theta, r=r)
+    cr = crossing_probabilities(up, lo, info, theta, r=r, **_inner(inner))
     return float(cr.lower.sum())
 
 
@@ -97,6 +105,7 @@ def stagewise(
     alpha: float = 0.05,
     sides: int = 2,
     r: int = DEFAULT_R,
+    inner: Sequence[float] | None = None,
 ) -> StagewiseResult:
     """Stage-wise ordering p-value, confidence interval and median-unbiased estimate.
 
@@ -115,6 +124,10 @@ def stagewise(
         one-sided lower limit at ``1 - alpha`` and the upper limit is ``inf``).
     sides : {1, 2}
         Two-sided p-value ``2 min(p_up, p_down)`` or one-sided upper.
+    inner : array_like, optional
+        Half-widths ``b_k`` of a binding two-sided futility region (paths with
+        ``|Z_k| < b_k`` stopped at look ``k``); for a one-sided binding futility
+        boundary pass it as ``lower``.
 
     Returns
     -------
@@ -133,12 +146,15 @@ def stagewise(
     lo = (np.full(t, -np.inf) if lower is None else np.asarray(lower, float).ravel()[:t]).copy()
     if up.size != t or lo.size != t or ii.size != t:
         raise ValueError("z, info, upper, lower: need one value per look up to the stop")
+    inn = None if inner is None else np.asarray(inner, float).ravel()[:t].copy()
+    if inn is not None and inn.size != t:
+        raise ValueError("inner: need one value per look up to the stop")
     z_t = float(zz[-1])
     se_t = 1.0 / math.sqrt(ii[-1])
     est = z_t * se_t
 
-    p_up0 = _upper_p(0.0, up, lo, ii, z_t, r)
-    p_lo0 = _lower_p(0.0, up, lo, ii, z_t, r)
+    p_up0 = _upper_p(0.0, up, lo, ii, z_t, r, inn)
+    p_lo0 = _lower_p(0.0, up, lo, ii, z_t, r, inn)
     p = min(1.0, 2.0 * min(p_up0, p_lo0)) if sides == 2 else p_up0
 
     def root(fun, target: float) -> float:
@@ -160,13 +176,13 @@ def stagewise(
     a_tail = alpha / 2 if sides == 2 else alpha
 
     def up_fun(th: float) -> float:
-        return _upper_p(th, up, lo, ii, z_t, r)
+        return _upper_p(th, up, lo, ii, z_t, r, inn)
 
     ci_lo = root(up_fun, a_tail)
     if sides == 2:
         # the lower-tail p-value decreases in theta; its upper limit solves
         # P_theta(at least as extreme downward) = alpha / 2
-        ci_hi = root(lambda th: -_lower_p(th, up, lo, ii, z_t, r), -a_tail)
+        ci_hi = root(lambda th: -_lower_p(th, up, lo, ii, z_t, r, inn), -a_tail)
     else:
         ci_hi = math.inf
     mue = root(up_fun, 0.5)

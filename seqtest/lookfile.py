@@ -73,6 +73,10 @@ def looks_from_frame(frame: Any, kind: str | None = None) -> list[dict]:
         parsed = _parse_column(col)
         if parsed is None:
             unknown.append(str(col))
+        elif parsed in mapping.values():
+            other = next(c for c, v in mapping.items() if v == parsed)
+            raise LookDataError(f"columns {other} and {col} both give the {parsed[1]} total; "
+                                "keep one of them", arm=parsed[0], field=parsed[1])
         else:
             mapping[col] = parsed
     if unknown:
@@ -85,11 +89,13 @@ def looks_from_frame(frame: Any, kind: str | None = None) -> list[dict]:
         want = set(METRIC_FIELDS[kind])
         if kind == "continuous" and set(_CONTINUOUS_ALT) <= fields:
             want = set(_CONTINUOUS_ALT)
-        missing = [f"{arm}_{f}" for arm in ("control", "treatment") for f in sorted(want)
+        missing = [(arm, f) for arm in ("control", "treatment") for f in sorted(want)
                    if (arm, f) not in mapping.values()]
         if missing:
-            raise LookDataError(f"missing column(s) {', '.join(missing)}; expected "
-                                f"{', '.join(expected_columns(kind))}", field=missing[0])
+            names = ", ".join(f"{a}_{f}" for a, f in missing)
+            raise LookDataError(f"missing column(s) {names}; expected "
+                                f"{', '.join(expected_columns(kind))}", arm=missing[0][0],
+                                field=missing[0][1])
     lookcol = [c for c in frame.columns if str(c).strip().lower() == "look"]
     if lookcol:
         vals = list(frame[lookcol[0]])

@@ -161,6 +161,10 @@ def decide(z: np.ndarray, efficacy_z: np.ndarray, futility_z: np.ndarray | None,
         fut &= ~eff
     else:
         fut = np.zeros(z.shape, bool)
+    if final_last:
+        # at the final look the boundaries meet: not crossing efficacy there is
+        # completion without significance, as in analyze()
+        fut[..., -1] = False
     stop = eff | fut
     if final_last:
         stop[..., -1] = True
@@ -311,9 +315,9 @@ def _clean(x: Any) -> Any:
 
 # -- the analysis ------------------------------------------------------------------------
 
-def _looks_from_frame(frame: Any) -> list[dict]:
+def _looks_from_frame(frame: Any, kind: str | None) -> list[dict]:
     from seqtest.lookfile import looks_from_frame
-    return looks_from_frame(frame)
+    return looks_from_frame(frame, kind)
 
 
 def analyze(
@@ -371,7 +375,8 @@ def analyze(
     if isinstance(plan, Mapping):
         plan = plan_from_dict(dict(plan))
     if not isinstance(looks, (list, tuple)):
-        looks = _looks_from_frame(looks)
+        kind_hint = metric or (getattr(plan, "metric", None) or {}).get("kind")
+        looks = _looks_from_frame(looks, kind_hint)
     if getattr(plan, "kind", None) == "mixture" or type(plan).__name__ == "MixturePlan":
         from seqtest.mixture_monitor import analyze_mixture
         return analyze_mixture(plan, list(looks), metric=metric, allocation=allocation,
@@ -430,8 +435,14 @@ def analyze(
         if not pm or "mde" not in pm:
             raise ValueError("fraction: 'information' needs a plan with a metric (for the "
                              "maximum information)")
-        from seqtest.sizing import sample_size
-        i_max = sample_size(plan, **pm).max_information
+        from seqtest.sizing import delta_and_unit
+        bad = np.flatnonzero(~(info > 0))
+        if bad.size:
+            raise metrics.LookDataError(
+                "the variance estimate is zero, so the look has no statistical "
+                "information; measure fractions by sample size (fraction='sample') or "
+                "wait for variation in the data", look=int(bad[0]) + 1)
+        i_max = plan.max_information(delta_and_unit(pm)[0])
         t = info / i_max
         total_max = _max_total(plan, max_n) if (pm or max_n) else None
     for j in range(1, k):
@@ -506,7 +517,8 @@ def analyze(
     if stopped is not None:
         w_info = 1.0 / np.square(w_se[:stopped])
         fin = _final_inference(plan, w_z[:stopped], w_info, t[:stopped],
-                               a_all[:stopped], w_est[stopped - 1], w_se[stopped - 1])
+                               a_all[:stopped], w_est[stopped - 1], w_se[stopped - 1],
+                               None if b_all is None else b_all[:stopped])
         if relative:
             fin = FinalInference(
                 p_value=fin.p_value, ci_lower=float(np.expm1(fin.ci_lower)),
@@ -552,13 +564,24 @@ def _max_total(plan: Plan, max_n: float | None) -> float:
 
 
 def _final_inference(plan: Plan, z: np.ndarray, info: np.ndarray, t: np.ndarray,
-                     a: np.ndarray, est: float, se: float) -> FinalInference:
+                     a: np.ndarray, est: float, se: float,
+                     b: np.ndarray | None = None) -> FinalInference:
     # Information for inference: proportional to the fractions used for the
     # boundaries, anchored at the last look's observed information, so the
     # correlation structure matches the one the boundaries were computed on.
     ii = t * (info[-1] / t[-1])
     lo = -a if plan.sides == 2 else np.full(a.size, -np.inf)
-    sw = inference.stagewise(z, ii, a, lo, alpha=plan.alpha, sides=plan.sides, r=plan.r)
+    inner = None
+    if plan.binding and b is not None:
+        # a binding futility boundary is part of the sample space: paths that stop
+        # for futility never reach later looks (non-binding boundaries are ignored,
+        # which keeps the p-value valid whether or not they were obeyed)
+        if plan.sides == 1:
+            lo = np.minimum(b, a)
+        else:
+            inner = np.clip(b, 0.0, a)
+    sw = inference.stagewise(z, ii, a, lo, alpha=plan.alpha, sides=plan.sides, r=plan.r,
+                             inner=inner)
     n_lo, n_hi = inference.naive_ci(est, se, plan.alpha, plan.sides)
     zt = float(z[-1])
     naive_p = float(2 * special.ndtr(-abs(zt))) if plan.sides == 2 else float(special.ndtr(-zt))

@@ -137,7 +137,8 @@ def test_missing_column_is_refused_naming_it(tmp_path):
 
 
 def test_missing_column_through_analyze_names_look_arm_and_field(tmp_path):
-    # analyze() reads the frame without a kind; the totals check then names the field
+    # analyze() reads the frame with the plan's metric kind, so the missing column is
+    # named as a column of the file (it concerns every look, so no look number)
     plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=3,
                           metric={"kind": "binary", "baseline": 0.1, "mde": 0.02})
     frame = pd.read_csv(_write(tmp_path, "control_n,control_successes,treatment_n",
@@ -145,8 +146,8 @@ def test_missing_column_through_analyze_names_look_arm_and_field(tmp_path):
     with pytest.raises(LookDataError) as exc:
         seqtest.analyze(plan, frame)
     e = exc.value
-    assert (e.look, e.arm, e.field) == (1, "treatment", "successes")
-    assert "look 1" in str(e) and "treatment" in str(e) and "successes" in str(e)
+    assert (e.look, e.arm, e.field) == (None, "treatment", "successes")
+    assert "missing column" in str(e) and "treatment_successes" in str(e)
 
 
 @pytest.mark.parametrize("kind", ["binary", None])
@@ -216,3 +217,13 @@ def test_missing_or_empty_file_is_refused(tmp_path):
 def test_looks_from_frame_accepts_a_frame_directly():
     frame = pd.DataFrame(BINARY_ROWS, columns=["c_n", "c_successes", "t_n", "t_successes"])
     assert looks_from_frame(frame, "binary") == BINARY_LOOKS
+
+
+def test_two_columns_for_one_total_are_refused(tmp_path):
+    # The same total given twice (n and its alternative name users) is ambiguous.
+    frame = pd.read_csv(_write(tmp_path, "control_n,control_users,control_successes,"
+                               "treatment_n,treatment_successes", [(100, 100, 10, 100, 12)]))
+    with pytest.raises(LookDataError) as exc:
+        looks_from_frame(frame, "binary")
+    assert exc.value.arm == "control" and exc.value.field == "n"
+    assert "control_n" in str(exc.value) and "control_users" in str(exc.value)

@@ -493,17 +493,10 @@ def test_looks_after_the_maximum_are_not_analysed():
     assert any("reached the maximum information" in w for w in an.warnings)
 
 
-_DECIDE_BUG = pytest.mark.xfail(strict=True, reason=(
-    "known bug: monitor.decide labels a path that reaches the final look without "
-    "crossing as stop_futility (outcome 2) when the plan has a futility boundary, "
-    "because the final futility boundary equals the efficacy one; analyze() says "
-    "complete_not_significant"))
-
-
 @pytest.mark.parametrize("zs", [
-    pytest.param([1.5, 1.5, 1.5], marks=_DECIDE_BUG),
+    [1.5, 1.5, 1.5],
     [1.5, 1.5, 3.0],
-    pytest.param([0.5, 1.2, 1.5], marks=_DECIDE_BUG),
+    [0.5, 1.2, 1.5],
     [-3.0, 0.0, 0.0],
     [1.0, 2.6, 0.0],
     [0.5, 0.9, 0.0],
@@ -543,10 +536,6 @@ def test_decide_vectorised_shapes_and_sides():
 # Stage-wise inference after a binding futility boundary
 # ---------------------------------------------------------------------------
 
-@pytest.mark.xfail(strict=True, reason=(
-    "known bug: monitor._final_inference ignores a binding futility boundary (passes "
-    "lower=-inf for one-sided plans), so the stage-wise p-value and estimates are "
-    "computed for a stopping rule the plan does not have"))
 def test_final_inference_with_binding_futility_follows_the_stagewise_definition():
     # Source: Tsiatis, Rosner and Mehta (1984): the stage-wise p-value is the null
     # probability of an outcome at least as extreme under the plan's actual stopping
@@ -787,10 +776,6 @@ def test_analyze_reads_a_plan_document():
     assert seqtest.analyze(doc, looks).to_dict() == seqtest.analyze(plan, looks).to_dict()
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "known bug: with fraction='information' a look with zero variance has information "
-    "0, so fraction 0; analyze then fails inside bounds_at/the projection with "
-    "'fractions: got [0.0, ...]', a message that names no look"))
 def test_information_fraction_with_a_zero_variance_look_names_the_look():
     plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=3,
                           metric={"kind": "continuous", "sd": 1.0, "mde": 0.1})
