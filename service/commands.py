@@ -55,6 +55,8 @@ def add_subcommands(subparsers: Any) -> None:
     _database_option(serve)
     serve.add_argument("--log-level", default="info",
                        choices=["critical", "error", "warning", "info", "debug"])
+    serve.add_argument("--no-access-log", action="store_true",
+                       help="do not log one line per request")
     serve.set_defaults(func=run_serve)
 
     keys = subparsers.add_parser(
@@ -115,7 +117,8 @@ def run_serve(args: argparse.Namespace) -> int:
         except (SQLAlchemyError, ValueError, RuntimeError) as exc:
             print(f"cannot start: {str(exc).splitlines()[0]}", file=sys.stderr)
             return 1
-        uvicorn.run(app, host=host, port=port, log_level=args.log_level)
+        uvicorn.run(app, host=host, port=port, log_level=args.log_level,
+                    access_log=not args.no_access_log)
     else:
         uvicorn.run(
             "service.app:create_app",
@@ -124,6 +127,7 @@ def run_serve(args: argparse.Namespace) -> int:
             port=port,
             workers=workers,
             log_level=args.log_level,
+            access_log=not args.no_access_log,
         )
     return 0
 

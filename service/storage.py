@@ -25,7 +25,7 @@ import os
 import secrets
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
@@ -50,6 +50,8 @@ from service.errors import Conflict, IdempotencyConflict, NotFound, Unavailable
 
 DEFAULT_DATABASE_URL = "sqlite:///./seqtest.db"
 ENV_DATABASE_URL = "SEQTEST_DATABASE_URL"
+ENV_SQLITE_SYNCHRONOUS = "SEQTEST_SQLITE_SYNCHRONOUS"
+SQLITE_SYNCHRONOUS = ("FULL", "NORMAL", "EXTRA")
 SQLITE_BUSY_TIMEOUT_S = 30.0
 
 STATES = ("planned", "running", "stopped", "completed")
@@ -127,6 +129,12 @@ def make_engine(url: str | None = None) -> Engine:
     """Create the engine for ``url`` with the per-database settings the service needs."""
     url = resolve_database_url(url)
     if url.startswith("sqlite"):
+        synchronous = (os.environ.get(ENV_SQLITE_SYNCHRONOUS) or "FULL").strip().upper()
+        if synchronous not in SQLITE_SYNCHRONOUS:
+            raise ValueError(
+                f"{ENV_SQLITE_SYNCHRONOUS}={synchronous!r}: allowed are "
+                f"{', '.join(SQLITE_SYNCHRONOUS)}"
+            )
         engine = create_engine(
             url,
             connect_args={"check_same_thread": False, "timeout": SQLITE_BUSY_TIMEOUT_S},
@@ -141,10 +149,11 @@ def make_engine(url: str | None = None) -> Engine:
             dbapi_conn.isolation_level = None
             cur = dbapi_conn.cursor()
             cur.execute("PRAGMA journal_mode=WAL")
-            # FULL: a commit is on disk (fsync of the WAL) before the client hears
-            # about it, so an acknowledged look survives a crash of the machine,
-            # not only of the process.
-            cur.execute("PRAGMA synchronous=FULL")
+            # FULL (default): a commit is on disk (fsync of the WAL) before the
+            # client hears about it, so an acknowledged look survives a crash of
+            # the machine. NORMAL: survives a crash of the process (kill -9), but
+            # the last commits may be lost if the machine loses power.
+            cur.execute(f"PRAGMA synchronous={synchronous}")
             cur.execute("PRAGMA foreign_keys=ON")
             cur.execute(f"PRAGMA busy_timeout={int(SQLITE_BUSY_TIMEOUT_S * 1000)}")
             cur.close()
@@ -689,8 +698,13 @@ class Storage:
         :class:`service.errors.ServiceError`, which stores nothing.
         """
 
+        locked: dict[str, Experiment] = {}
+
+        def lock(conn: Connection) -> None:
+            locked["exp"] = self._lock_experiment(conn, principal.team_id, exp_id)
+
         def work(conn: Connection) -> tuple[int, dict[str, Any]]:
-            exp = self._lock_experiment(conn, principal.team_id, exp_id)
+            exp = locked["exp"]
             if exp.state in ("stopped", "completed"):
                 raise Conflict(
                     f"Experiment {exp_id!r} is {exp.state} (decision {exp.decision!r} at look "
@@ -724,7 +738,9 @@ class Storage:
                 .where(e.c.id == exp_id)
                 .values(look_count=number, state=new.state, decision=new.decision, updated_at=ts)
             )
-            exp_after = self._lock_experiment(conn, principal.team_id, exp_id)
+            exp_after = replace(
+                exp, look_count=number, state=new.state, decision=new.decision, updated_at=ts
+            )
             look = Look(
                 number=number,
                 plan_version=plan.version,
@@ -737,10 +753,7 @@ class Storage:
             )
             return 201, render(exp_after, look)
 
-        return self._idempotent_write(
-            principal.team_id, idem, work,
-            lock=lambda conn: self._lock_experiment(conn, principal.team_id, exp_id),
-        )
+        return self._idempotent_write(principal.team_id, idem, work, lock=lock)
 
     # -- amendments ---------------------------------------------------------------
 
@@ -760,8 +773,13 @@ class Storage:
         the amendment by raising.
         """
 
+        locked: dict[str, Experiment] = {}
+
+        def lock(conn: Connection) -> None:
+            locked["exp"] = self._lock_experiment(conn, principal.team_id, exp_id)
+
         def work(conn: Connection) -> tuple[int, dict[str, Any]]:
-            exp = self._lock_experiment(conn, principal.team_id, exp_id)
+            exp = locked["exp"]
             if exp.state in ("stopped", "completed"):
                 raise Conflict(
                     f"Experiment {exp_id!r} is {exp.state}; its plan can no longer be amended."
@@ -787,10 +805,7 @@ class Storage:
             conn.execute(
                 update(e).where(e.c.id == exp_id).values(plan_version=version, updated_at=ts)
             )
-            exp_after = self._lock_experiment(conn, principal.team_id, exp_id)
+            exp_after = replace(exp, plan_version=version, updated_at=ts)
             return 201, render(exp_after, self._plan(conn, exp_id, version))
 
-        return self._idempotent_write(
-            principal.team_id, idem, work,
-            lock=lambda conn: self._lock_experiment(conn, principal.team_id, exp_id),
-        )
+        return self._idempotent_write(principal.team_id, idem, work, lock=lock)

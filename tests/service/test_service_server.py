@@ -97,16 +97,16 @@ def test_team_isolation(server: Server, client: httpx.Client):
     assert client.get(f"/v1/experiments/{exp_id}", headers=a).status_code == 200
 
 
-def test_concurrent_posts_to_one_experiment_are_serialised(server: Server,
-                                                          client: httpx.Client):
-    """8 threads each record 4 looks on one experiment, taking ever larger totals
-    from a shared counter. Whoever loses a race posts totals below a look already
-    stored and is refused (422, totals going backwards) and tries again with newer
-    totals; so exactly 32 looks are acknowledged. They must be numbered 1..32 with
-    no gap or repeat, stored exactly as acknowledged, and each analysed over all
-    the looks before it."""
-    h = auth(new_key(server.database_url, "team-concurrency"))
-    exp_id = new_experiment(client, h)
+def race(base_url: str, database_url: str, team: str, threads: int = 8, each: int = 4) -> None:
+    """``threads`` clients each record ``each`` looks on one experiment, taking ever
+    larger totals from a shared counter. Whoever loses a race posts totals below a
+    look already stored and is refused (422, totals going backwards) and tries
+    again with newer totals; so exactly threads x each looks are acknowledged. They
+    must be numbered 1, 2, ... with no gap or repeat, stored exactly as
+    acknowledged, and each analysed over all the looks before it."""
+    h = auth(new_key(database_url, team))
+    with httpx.Client(base_url=base_url, timeout=60) as client:
+        exp_id = new_experiment(client, h)
     counter = iter(range(1000, 10**7, 1000))
     lock = threading.Lock()
     acked: list[dict] = []
@@ -114,9 +114,9 @@ def test_concurrent_posts_to_one_experiment_are_serialised(server: Server,
     errors: list[str] = []
 
     def worker() -> None:
-        with httpx.Client(base_url=server.base_url, timeout=60) as c:
+        with httpx.Client(base_url=base_url, timeout=60) as c:
             done = 0
-            while done < 4 and len(refused) < 500:
+            while done < each and len(refused) < 500:
                 with lock:
                     n = next(counter)
                 r = c.post(f"/v1/experiments/{exp_id}/looks", json=totals(n), headers=h)
@@ -131,22 +131,39 @@ def test_concurrent_posts_to_one_experiment_are_serialised(server: Server,
                     errors.append(f"{r.status_code} {r.text}")
                     return
 
-    threads = [threading.Thread(target=worker) for _ in range(8)]
-    for t in threads:
+    pool = [threading.Thread(target=worker) for _ in range(threads)]
+    for t in pool:
         t.start()
-    for t in threads:
+    for t in pool:
         t.join()
     assert not errors
-    assert sorted(a["look"] for a in acked) == list(range(1, 33))
-    got = client.get(f"/v1/experiments/{exp_id}", headers=h).json()
+    total = threads * each
+    assert sorted(a["look"] for a in acked) == list(range(1, total + 1))
+    with httpx.Client(base_url=base_url, timeout=60) as client:
+        got = client.get(f"/v1/experiments/{exp_id}", headers=h).json()
     stored = got["looks_recorded"]
-    assert [lk["look"] for lk in stored] == list(range(1, 33))
+    assert [lk["look"] for lk in stored] == list(range(1, total + 1))
     by_number = {a["look"]: a for a in acked}
     for lk in stored:
         assert lk["totals"] == by_number[lk["look"]]["totals"]
         assert len(by_number[lk["look"]]["analysis"]["looks"]) == lk["look"]
     ns = [lk["totals"]["classic"]["n"] for lk in stored]
     assert ns == sorted(ns) and len(set(ns)) == len(ns)
+
+
+def test_concurrent_posts_to_one_experiment_are_serialised(server: Server):
+    race(server.base_url, server.database_url, "team-concurrency")
+
+
+def test_concurrent_posts_across_two_worker_processes(sqlite_url: str, tmp_path: Path):
+    """The same race against two uvicorn worker processes sharing one SQLite file,
+    where only the file lock (BEGIN IMMEDIATE) stands between them. (On PostgreSQL
+    every request already has its own connection, as in the race above.)"""
+    srv = Server(sqlite_url, tmp_path / "server.log", workers=2).start(timeout=60)
+    try:
+        race(srv.base_url, sqlite_url, "team-two-workers", threads=6, each=3)
+    finally:
+        srv.stop()
 
 
 def test_concurrent_retries_with_one_key_store_one_look(server: Server, client: httpx.Client):

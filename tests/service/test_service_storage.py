@@ -254,3 +254,19 @@ def test_default_database_url_comes_from_env(monkeypatch, tmp_path):
     assert resolve_database_url(None) == f"sqlite:///{tmp_path}/e.db"
     monkeypatch.delenv("SEQTEST_DATABASE_URL")
     assert resolve_database_url(None) == "sqlite:///./seqtest.db"
+
+
+@pytest.mark.parametrize("setting", ["FULL", "NORMAL"])
+def test_sqlite_synchronous_setting(monkeypatch, sqlite_url: str, setting: str):
+    monkeypatch.setenv("SEQTEST_SQLITE_SYNCHRONOUS", setting.lower())
+    s = Storage(sqlite_url)
+    try:
+        with s.engine.connect() as conn:
+            # PRAGMA synchronous reads 2 for FULL, 1 for NORMAL (SQLite docs, from memory)
+            assert conn.execute(text("PRAGMA synchronous")).scalar() == {"FULL": 2,
+                                                                        "NORMAL": 1}[setting]
+    finally:
+        s.close()
+    monkeypatch.setenv("SEQTEST_SQLITE_SYNCHRONOUS", "OFF")
+    with pytest.raises(ValueError, match="SEQTEST_SQLITE_SYNCHRONOUS"):
+        Storage(sqlite_url)
