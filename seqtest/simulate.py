@@ -1,0 +1,1154 @@
+"""Monte Carlo check of a stopping plan, on the same decision code as monitoring.
+
+:func:`simulate` runs many synthetic experiments of a :class:`~seqtest.scenarios.Scenario`
+through the plan and reports the rejection rate (the type I error under the null,
+the power otherwise) with its Clopper-Pearson interval, the expected sample size
+and the distribution of the stopping look, next to a naive baseline that tests at
+nominal alpha at every look.
+
+Nothing here re-implements the rules. At each look the per-arm cumulative totals go
+through :func:`seqtest.metrics.effect` (vectorised over replicates and looks) for
+the z statistic; the information fraction is ``(n_control + n_treatment) / n_max``
+exactly as :func:`seqtest.monitor.analyze` measures it; the boundaries come from
+:func:`seqtest.monitor.bounds_at` on those observed fractions, computed exactly once
+per distinct pattern of fractions (one call for fixed traffic; one per replicate,
+less the repeats, for random traffic); the stop is :func:`seqtest.monitor.decide`.
+Mixture (continuous-monitoring) plans go through :func:`seqtest.mixture.always_valid`.
+
+Data are drawn as per-arm totals at each look, increment by increment:
+
+- binary: successes ``Binomial(m, p)`` for ``m`` new users;
+- normal: the new users' mean ``N(mu, sd**2 / m)`` and, independent of it, their
+  centred sum of squares ``sd**2 * chi2(m - 1)`` (drawn as twice a gamma variate),
+  which is the exact joint law of the sufficient statistics ``(sum, sum_sq)``
+  (Cochran's theorem);
+- log-normal (revenue): the number of paying users is ``Binomial(m, 1 - zero_share)``
+  and their amounts are drawn one by one (the sums of log-normal values have no
+  closed form, and a normal approximation of ``sum_sq`` would be far off for
+  heavy tails), in blocks of at most 4 million values so memory stays bounded;
+- counts: events ``Poisson(lambda m)``, or, with a dispersion ``k``, the sum of
+  ``m`` negative binomial counts, which is negative binomial with shape ``m k``
+  (exact).
+
+Traffic: ``fixed`` and ``uneven`` give every replicate the same per-arm counts
+``ceil(n_arm_max * tau)`` at look time ``tau``; ``random`` draws the users arriving
+between looks from a gamma-mixed Poisson process (negative binomial counts with
+shape ``(tau_j - tau_{j-1}) days / cv**2``), splits them between the arms
+binomially, cuts the look that passes the maximum to exactly the maximum
+(hypergeometric split of the users that fit) and, with ``final = "at_max"``, tops
+the last look up to the maximum.
+
+A look is analysed when it has new users and both arms have enough units for the
+metric (binary and rate: 1, continuous: 2), as an analyst would; a look whose
+fraction reaches 1 is the final one; the last analysed look is declared final
+(it spends all the alpha left).
+
+Reproducibility: replicates are simulated in chunks of a fixed size; chunk ``i``
+draws from ``numpy.random.default_rng(SeedSequence(seed, spawn_key=(i,)))``, so a
+run is reproducible bit for bit from ``(plan, scenario, reps, seed, chunk_size)``
+whatever the number of workers, and totals are summed in chunk order in integers.
+
+Monte Carlo accuracy: the rejection count is binomial, so its exact (Clopper-Pearson)
+interval is reported (``scipy.stats.binomtest(k, n).proportion_ci(method="exact")``);
+the expected sample size carries its standard error ``sd / sqrt(reps)``.
+
+References
+----------
+.. [1] Clopper, C. J. and Pearson, E. S. (1934). The use of confidence or fiducial
+       limits illustrated in the case of the binomial. Biometrika 26, 404-413.
+.. [2] Jennison, C. and Turnbull, B. W. (2000). Group Sequential Methods with
+       Applications to Clinical Trials, chapters 1, 7 and 19.
+.. [3] Cochran, W. G. (1934). The distribution of quadratic forms in a normal
+       system. Proc. Cambridge Philos. Soc. 30, 178-191.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Callable
+from concurrent.futures import Executor, ProcessPoolExecutor
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+from scipy import special, stats
+
+from seqtest import metrics
+from seqtest.design import Plan
+from seqtest.monitor import bounds_at, decide
+from seqtest.scenarios import Scenario
+
+__all__ = [
+    "OUTCOMES",
+    "NaiveSummary",
+    "SimulationResult",
+    "clopper_pearson",
+    "plot_result",
+    "simulate",
+]
+
+#: Columns of :attr:`SimulationResult.stops`: how a replicate ended at a look.
+OUTCOMES: tuple[str, ...] = ("efficacy_up", "efficacy_down", "futility", "complete")
+
+DEFAULT_CHUNK = 25_000
+_MAX_CELLS = 1_000_000          # replicates x looks per chunk (memory bound)
+_LOGNORMAL_BLOCK = 4_000_000    # log-normal values drawn at once
+_MIN_UNITS = {"binary": 1, "continuous": 2, "rate": 1}
+
+
+# ---------------------------------------------------------------------------
+# Monte Carlo intervals
+# ---------------------------------------------------------------------------
+
+
+def clopper_pearson(k: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
+    """Exact (Clopper-Pearson) confidence interval for a binomial proportion.
+
+    Parameters
+    ----------
+    k, n : int
+        Successes and trials, ``0 <= k <= n``, ``n >= 1``.
+    confidence : float
+        Two-sided confidence level in (0, 1).
+
+    Returns
+    -------
+    (lower, upper) : tuple of float
+        ``lower`` is the ``(1 - confidence) / 2`` quantile of ``Beta(k, n - k + 1)``
+        (0 when ``k = 0``), ``upper`` the ``(1 + confidence) / 2`` quantile of
+        ``Beta(k + 1, n - k)`` (1 when ``k = n``); the interval covers the true
+        proportion with probability at least `confidence`. Computed by
+        ``scipy.stats.binomtest(k, n).proportion_ci(confidence, method="exact")``.
+
+    References
+    ----------
+    .. [1] Clopper and Pearson (1934), Biometrika 26, 404-413.
+    """
+    if isinstance(n, bool) or int(n) != n or n < 1:
+        raise ValueError(f"n: got {n!r}; allowed is a whole number >= 1")
+    if isinstance(k, bool) or int(k) != k or not 0 <= k <= n:
+        raise ValueError(f"k: got {k!r}; allowed is a whole number in [0, n = {n}]")
+    c = float(confidence)
+    if not 0 < c < 1:
+        raise ValueError(f"confidence: got {confidence!r}; allowed is a level in (0, 1)")
+    ci = stats.binomtest(int(k), int(n)).proportion_ci(confidence_level=c, method="exact")
+    return float(ci.low), float(ci.high)
+
+
+# ---------------------------------------------------------------------------
+# Results
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class NaiveSummary:
+    """The naive baseline: a fixed-sample test at nominal alpha at every look.
+
+    Attributes
+    ----------
+    z : float
+        The nominal critical value ``z_{1 - alpha / sides}``.
+    rejections, rate, ci_lower, ci_upper : int, float, float, float
+        Replicates that rejected at some look, their share, its interval.
+    expected_total : float
+        Mean total sample at the stop of the naive rule.
+    stops : ndarray, shape (looks, 4)
+        Stops per look and outcome (columns as :data:`OUTCOMES`).
+    """
+
+    z: float
+    rejections: int
+    rate: float
+    ci_lower: float
+    ci_upper: float
+    expected_total: float
+    stops: np.ndarray
+
+
+@dataclass(frozen=True)
+class SimulationResult:
+    """What :func:`simulate` found for one plan and one scenario.
+
+    Attributes
+    ----------
+    scenario, description : str
+    plan_kind : {"group_sequential", "mixture"}
+    plan_label : str
+    alpha : float
+    sides : int
+    data_kind, analysis_kind, scale, traffic : str
+    futility : {"obey", "ignore"}
+    reps, seed, chunk_size : int
+    null : bool
+        No true effect: `rate` is the type I error.
+    true_effect : float
+        The true effect on the plan's analysis scale.
+    confidence : float
+        Level of the Clopper-Pearson intervals.
+    rejections, rejections_upper, rejections_lower : int
+        Replicates stopped for efficacy (in total, treatment better, control better).
+    rate, ci_lower, ci_upper : float
+        ``rejections / reps`` and its exact interval.
+    design_rate : float or None
+        What the plan promises: alpha under the null; under an effect given as a
+        multiple of the design effect, the plan's power at it (normal theory,
+        planned looks, futility obeyed); otherwise None.
+    verdict : str
+        ``"holds alpha"`` or ``"leaks alpha"`` (the interval's lower end above
+        alpha) under the null; under an effect, how the power compares with
+        `design_rate`.
+    look_times : ndarray
+        Scheduled look times as fractions of the maximum sample.
+    mean_fraction : ndarray
+        Mean observed information fraction at each look among the replicates that
+        analysed it (nan if none did).
+    stops : ndarray, shape (looks, 4)
+        Replicates stopping at each look, by outcome (columns :data:`OUTCOMES`).
+    expected_total, expected_total_se : float
+        Mean total sample (both arms; exposure for counts) at the stop, and its
+        Monte Carlo standard error.
+    max_total : float
+        The maximum total sample (denominator of the information fraction).
+    naive : NaiveSummary or None
+    boundary_calls : int
+        Calls of :func:`seqtest.monitor.bounds_at` (distinct fraction patterns).
+    paths : dict or None
+        Per-replicate arrays when ``keep_paths=True`` (not in :meth:`to_dict`).
+    """
+
+    scenario: str
+    description: str
+    plan_kind: str
+    plan_label: str
+    alpha: float
+    sides: int
+    data_kind: str
+    analysis_kind: str
+    scale: str
+    traffic: str
+    futility: str
+    reps: int
+    seed: int
+    chunk_size: int
+    null: bool
+    true_effect: float
+    confidence: float
+    rejections: int
+    rejections_upper: int
+    rejections_lower: int
+    rate: float
+    ci_lower: float
+    ci_upper: float
+    design_rate: float | None
+    verdict: str
+    look_times: np.ndarray
+    mean_fraction: np.ndarray
+    stops: np.ndarray
+    expected_total: float
+    expected_total_se: float
+    max_total: float
+    naive: NaiveSummary | None
+    boundary_calls: int
+    paths: dict | None = field(default=None, repr=False, compare=False)
+
+    @property
+    def looks(self) -> int:
+        return int(self.look_times.size)
+
+    @property
+    def stop_share(self) -> np.ndarray:
+        """Share of replicates stopping at each look (any outcome)."""
+        return self.stops.sum(axis=1) / self.reps
+
+    @property
+    def leaks(self) -> bool:
+        """Under the null: the interval's lower end is above alpha."""
+        return self.null and self.ci_lower > self.alpha
+
+    def to_dict(self) -> dict:
+        """Plain JSON types (non-finite numbers become None)."""
+        def num(x: float | None) -> float | None:
+            return None if x is None or not math.isfinite(x) else float(x)
+
+        looks = []
+        for j in range(self.looks):
+            row = {"look": j + 1, "time": num(self.look_times[j]),
+                   "mean_fraction": num(self.mean_fraction[j])}
+            row.update({o: int(self.stops[j, i]) for i, o in enumerate(OUTCOMES)})
+            looks.append(row)
+        out: dict[str, Any] = {
+            "scenario": self.scenario,
+            "description": self.description,
+            "plan": {"kind": self.plan_kind, "label": self.plan_label,
+                     "alpha": self.alpha, "sides": self.sides},
+            "data_kind": self.data_kind,
+            "analysis_kind": self.analysis_kind,
+            "scale": self.scale,
+            "traffic": self.traffic,
+            "futility": self.futility,
+            "reps": self.reps,
+            "seed": self.seed,
+            "chunk_size": self.chunk_size,
+            "null": self.null,
+            "true_effect": num(self.true_effect),
+            "measure": "type_i_error" if self.null else "power",
+            "rejections": self.rejections,
+            "rejections_upper": self.rejections_upper,
+            "rejections_lower": self.rejections_lower,
+            "rate": self.rate,
+            "confidence": self.confidence,
+            "ci_lower": self.ci_lower,
+            "ci_upper": self.ci_upper,
+            "design_rate": num(self.design_rate),
+            "verdict": self.verdict,
+            "expected_total": num(self.expected_total),
+            "expected_total_se": num(self.expected_total_se),
+            "max_total": num(self.max_total),
+            "expected_fraction": num(self.expected_total / self.max_total),
+            "boundary_calls": self.boundary_calls,
+            "looks": looks,
+            "naive": None,
+        }
+        if self.naive is not None:
+            nv = self.naive
+            out["naive"] = {"z": nv.z, "rejections": nv.rejections, "rate": nv.rate,
+                            "ci_lower": nv.ci_lower, "ci_upper": nv.ci_upper,
+                            "expected_total": num(nv.expected_total),
+                            "rejections_by_look": [int(x) for x in nv.stops[:, :2].sum(1)]}
+        return out
+
+    def table(self) -> str:
+        """A plain-text report: headline numbers, then one row per look."""
+        what = "Type I error" if self.null else "Power (rejection rate)"
+        pct = f"{self.confidence:.0%}"
+        lines = [
+            f"Scenario {self.scenario!r}: {self.reps:,} simulated experiments (seed "
+            f"{self.seed})",
+            f"  plan: {self.plan_label}",
+            f"  data: {self.data_kind} analysed as {self.analysis_kind} ({self.scale}); "
+            f"true effect {self.true_effect:g}; traffic {self.traffic}; futility "
+            f"{self.futility}",
+            f"{what}: {self.rate:.4f}  ({pct} Clopper-Pearson {self.ci_lower:.4f} to "
+            f"{self.ci_upper:.4f})" + (f"; plan: {self.design_rate:.4f}"
+                                         if self.design_rate is not None else ""),
+            f"Verdict: {self.verdict}",
+        ]
+        if self.naive is not None:
+            nv = self.naive
+            lines.append(f"Naive baseline (|z| >= {nv.z:.3f} at every look): {nv.rate:.4f}  "
+                         f"({pct} CI {nv.ci_lower:.4f} to {nv.ci_upper:.4f})")
+        lines.append(f"Expected total sample: {self.expected_total:,.1f} +- "
+                     f"{self.expected_total_se:,.1f} (MC s.e.), "
+                     f"{self.expected_total / self.max_total:.1%} of the maximum "
+                     f"{self.max_total:,.0f}")
+        lines.append("")
+        head = ["look", "time", "fraction", *OUTCOMES, "stopped", "cum_reject"]
+        rows = []
+        cum = np.cumsum(self.stops[:, :2].sum(axis=1)) / self.reps
+        share = self.stop_share
+        for j in range(self.looks):
+            rows.append([str(j + 1), f"{self.look_times[j]:.3f}",
+                         "-" if not math.isfinite(self.mean_fraction[j])
+                         else f"{self.mean_fraction[j]:.3f}",
+                         *[f"{int(x):,}" for x in self.stops[j]],
+                         f"{share[j]:.2%}", f"{cum[j]:.4f}"])
+        widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(head)]
+        lines.append("  ".join(h.rjust(w) for h, w in zip(head, widths, strict=True)))
+        lines.append("  ".join("-" * w for w in widths))
+        for r in rows:
+            lines.append("  ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)))
+        return "\n".join(lines)
+
+
+# ---------------------------------------------------------------------------
+# Setting up a run
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Job:
+    """Everything a worker needs to simulate a chunk (picklable)."""
+
+    plan: Any
+    mixture: bool
+    kind: str            # analysis kind for metrics.effect
+    scale: str
+    sides: int
+    alpha: float
+    data_kind: str
+    control: dict
+    treatment: dict
+    times: np.ndarray    # scheduled look times, fractions of the maximum
+    n_max: int
+    arm_max: tuple[float, float]
+    share: float         # treatment share of the users
+    mode: str
+    fixed_counts: tuple[np.ndarray, np.ndarray] | None
+    days: float
+    cv: float
+    cap: bool
+    at_max: bool
+    obey: bool
+    naive_z: float
+    seed: int
+    chunk: int
+    keep_paths: bool
+
+
+def _plan_metric(plan: Any) -> dict | None:
+    return getattr(plan, "metric", None) or None
+
+
+def _design_means(plan: Any) -> tuple[float, float, bool]:
+    """(control mean, treatment mean, relative?) the plan is powered for."""
+    m = _plan_metric(plan)
+    if isinstance(plan, Plan):
+        if m is None:
+            raise ValueError("effect.mde_multiple: the plan has no metric, so it has no "
+                             "design effect; give effect.difference or effect.relative")
+        base = m.get("baseline", 0.0) or 0.0
+        rel = bool(m.get("relative")) or m.get("scale") == "relative"
+        m_t = base * (1.0 + m["mde"]) if m.get("relative") else base + m["mde"]
+        return base, m_t, rel
+    if getattr(plan, "mde", None) is None:
+        raise ValueError("effect.mde_multiple: the mixture plan has no mde; give "
+                         "effect.difference or effect.relative")
+    rel = plan.scale == "relative"
+    return (1.0, 1.0 + plan.mde, True) if rel else (0.0, plan.mde, False)
+
+
+def _arms(plan: Any, sc: Scenario) -> tuple[dict, dict, float, float]:
+    """Per-arm data parameters, the true effect on the analysis scale, and m_c."""
+    m_c = sc.control_mean()
+    if sc.effect_type == "difference":
+        m_t = m_c + sc.effect
+    elif sc.effect_type == "relative":
+        m_t = m_c * (1.0 + sc.effect)
+    else:
+        b_c, b_t, rel = _design_means(plan)
+        if rel:
+            if b_c == 0:
+                raise ValueError("effect.mde_multiple: the plan's baseline is 0, so a "
+                                 "relative design effect is undefined")
+            m_t = m_c * (1.0 + sc.effect * (b_t / b_c - 1.0))
+        else:
+            m_t = m_c + sc.effect * (b_t - b_c)
+    d = sc.data
+    k = sc.data_kind
+    if k == "binary":
+        if not 0 < m_t < 1:
+            raise ValueError(f"effect: gives a treatment rate of {m_t:g}; allowed effects "
+                             "keep it inside (0, 1)")
+        ctrl, trt = {"p": d["rate"]}, {"p": m_t}
+    elif k == "normal":
+        ctrl = {"mean": d["mean"], "sd": d["sd"]}
+        trt = {"mean": m_t, "sd": d.get("sd_treatment", d["sd"])}
+    elif k == "lognormal":
+        if not m_t > 0:
+            raise ValueError(f"effect: gives a treatment mean of {m_t:g}; allowed effects "
+                             "keep it > 0")
+        z = d.get("zero_share", 0.0)
+        s2 = math.log1p((d["sd"] / d["mean"]) ** 2)
+        mu = math.log(d["mean"]) - 0.5 * s2
+        ctrl = {"mu": mu, "sigma": math.sqrt(s2), "zero_share": z}
+        trt = {"mu": mu + math.log(m_t / m_c), "sigma": math.sqrt(s2), "zero_share": z}
+    else:
+        if not m_t > 0:
+            raise ValueError(f"effect: gives a treatment rate of {m_t:g}; allowed effects "
+                             "keep it > 0")
+        ctrl = {"rate": d["rate"], "dispersion": d.get("dispersion")}
+        trt = {"rate": m_t, "dispersion": d.get("dispersion")}
+    return ctrl, trt, m_t, m_c
+
+
+def _check_kind(plan: Any, sc: Scenario) -> tuple[str, str]:
+    """(analysis kind, scale) after checking the plan's metric against the data."""
+    m = _plan_metric(plan)
+    kind = sc.analysis_kind
+    if m is not None and m.get("kind") != kind:
+        raise ValueError(f"data.kind: the scenario's {sc.data_kind} data are analysed as "
+                         f"a {kind} metric but the plan is for a {m.get('kind')} metric")
+    if isinstance(plan, Plan):
+        scale = (m or {}).get("scale", "difference")
+    else:
+        scale = plan.scale
+    if scale == "relative" and sc.data_kind == "normal" and sc.data["mean"] == 0:
+        raise ValueError("data.mean: got 0; a plan on the relative scale needs a non-zero "
+                         "control mean")
+    return kind, scale
+
+
+def _sizes(plan: Any, sc: Scenario, share: float) -> tuple[int, tuple[float, float]]:
+    """Maximum total sample and per-arm maxima."""
+    t = sc.traffic
+    if t.max_total is not None:
+        n = int(t.max_total)
+        return n, (n * (1.0 - share), n * share)
+    if isinstance(plan, Plan):
+        if plan.metric is None:
+            raise ValueError("traffic.max_total: the plan has no metric (so no sample "
+                             "size); give the maximum total over both arms")
+        ss = plan.sample_size()
+        plan_alloc = float(plan.metric.get("allocation", 1.0))
+        if math.isclose(plan_alloc, share / (1.0 - share), rel_tol=1e-12):
+            return int(ss.n_control + ss.n_treatment), (float(ss.n_control),
+                                                        float(ss.n_treatment))
+        n = int(ss.n_control + ss.n_treatment)
+        return n, (n * (1.0 - share), n * share)
+    cap = plan.max_n_per_arm
+    if cap is None:
+        raise ValueError("traffic.max_total: the mixture plan has no max_n_per_arm; give "
+                         "the maximum total over both arms")
+    a = share / (1.0 - share)
+    n_c, n_t = (cap / a, float(cap)) if a >= 1 else (float(cap), cap * a)
+    n_c, n_t = math.ceil(n_c - 1e-9), math.ceil(n_t - 1e-9)
+    return int(n_c + n_t), (float(n_c), float(n_t))
+
+
+def _schedule(plan: Any, sc: Scenario) -> np.ndarray:
+    t = sc.traffic
+    mixture = not isinstance(plan, Plan)
+    if t.mode == "uneven":
+        base = np.asarray(t.fractions, float)
+        if t.looks is not None:
+            raise ValueError("traffic.looks: uneven traffic takes its looks from "
+                             "traffic.fractions")
+    elif mixture:
+        n = 100 if t.looks is None else t.looks
+        base = np.arange(1, n + 1) / n
+    else:
+        if t.looks is not None:
+            raise ValueError("traffic.looks: a group-sequential plan fixes its own looks; "
+                             "use traffic.extra_looks for unplanned ones or uneven traffic")
+        base = np.asarray(plan.info_fractions, float)
+    extra = [x for x in t.extra_looks if not np.any(np.isclose(base, x, rtol=0, atol=1e-12))]
+    times = np.sort(np.concatenate([base, np.asarray(extra, float)]))
+    if np.any(times[:-1] >= 1.0):
+        k = int(np.argmax(times >= 1.0)) + 1
+        raise ValueError(f"traffic.fractions: look {k} is at fraction {times[k - 1]:g}, "
+                         "already the maximum, so later looks would never be analysed")
+    return times
+
+
+def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool) -> _Job:
+    if isinstance(plan, dict):
+        from seqtest.plans import plan_from_dict
+        plan = plan_from_dict(plan)
+    mixture = not isinstance(plan, Plan)
+    if mixture and getattr(plan, "kind", None) != "mixture":
+        raise ValueError(f"plan: got {type(plan).__name__}; allowed is a Plan, a "
+                         "MixturePlan or a plan document")
+    if not isinstance(sc, Scenario):
+        raise ValueError(f"scenario: got {type(sc).__name__}; allowed is a Scenario (see "
+                         "seqtest.scenarios.load_scenario)")
+    kind, scale = _check_kind(plan, sc)
+    alloc = sc.allocation
+    if alloc is None:
+        alloc = float((_plan_metric(plan) or {}).get("allocation", 1.0))
+    share = alloc / (1.0 + alloc)
+    ctrl, trt, _, _ = _arms(plan, sc)
+    times = _schedule(plan, sc)
+    n_max, arm_max = _sizes(plan, sc, share)
+    fixed = None
+    if sc.traffic.mode != "random":
+        eps = 1.0 - 1e-12
+        n_c = np.ceil(arm_max[0] * times * eps).astype(np.int64)
+        n_t = np.ceil(arm_max[1] * times * eps).astype(np.int64)
+        tot = n_c + n_t
+        if np.any(np.diff(tot) <= 0):
+            j = int(np.argmax(np.diff(tot) <= 0)) + 2
+            raise ValueError(f"traffic: look {j} would have no new users (maximum total "
+                             f"{n_max}); the maximum is too small for so many looks")
+        fixed = (n_c, n_t)
+    fut_obey = sc.futility == "obey"
+    if not mixture and plan.binding and not fut_obey:
+        raise ValueError("analysis.futility: the plan's futility boundary is binding, so "
+                         "its efficacy boundaries are valid only when futility stops are "
+                         "obeyed; use futility = \"obey\"")
+    sides = int(plan.sides)
+    return _Job(
+        plan=plan, mixture=mixture, kind=kind, scale=scale, sides=sides,
+        alpha=float(plan.alpha), data_kind=sc.data_kind, control=ctrl, treatment=trt,
+        times=times, n_max=int(n_max), arm_max=arm_max, share=share,
+        mode=sc.traffic.mode, fixed_counts=fixed, days=sc.traffic.days, cv=sc.traffic.cv,
+        cap=sc.traffic.cap, at_max=sc.traffic.final == "at_max", obey=fut_obey,
+        naive_z=float(-special.ndtri(plan.alpha / sides)), seed=int(seed), chunk=chunk,
+        keep_paths=keep_paths)
+
+
+# ---------------------------------------------------------------------------
+# Drawing the data of one chunk
+# ---------------------------------------------------------------------------
+
+
+def _rng(job: _Job, index: int) -> np.random.Generator:
+    return np.random.default_rng(np.random.SeedSequence(job.seed, spawn_key=(index,)))
+
+
+def _draw_counts(job: _Job, rng: np.random.Generator, n: int
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Cumulative users per arm, shape (n, K), and the number of looks that happen."""
+    k = job.times.size
+    if job.fixed_counts is not None:
+        c, t = job.fixed_counts
+        return (np.broadcast_to(c, (n, k)), np.broadcast_to(t, (n, k)),
+                np.full(n, k, dtype=np.int64))
+    dt = np.diff(np.concatenate(([0.0], job.times)))
+    mean = dt * job.n_max
+    if job.cv > 0:
+        shape = dt * job.days / (job.cv * job.cv)
+        users = rng.negative_binomial(np.broadcast_to(shape, (n, k)),
+                                      np.broadcast_to(shape / (shape + mean), (n, k)))
+    else:
+        users = rng.poisson(np.broadcast_to(mean, (n, k)))
+    users = users.astype(np.int64)
+    treat = rng.binomial(users, job.share).astype(np.int64)
+    cu = np.cumsum(users, axis=1)
+    ct = np.cumsum(treat, axis=1)
+    end = np.full(n, k, dtype=np.int64)
+    cap = job.n_max
+    if job.cap:
+        over = cu >= cap
+        hit = over.any(axis=1)
+        j = np.where(hit, np.argmax(over, axis=1), k - 1)
+        rows = np.arange(n)
+        prev_u = np.where(j > 0, cu[rows, np.maximum(j - 1, 0)], 0)
+        prev_t = np.where(j > 0, ct[rows, np.maximum(j - 1, 0)], 0)
+        inc_t = treat[rows, j]
+        inc_c = users[rows, j] - inc_t
+        need = np.where(hit, cap - prev_u, 0)
+        cut_t = rng.hypergeometric(inc_t, inc_c, need)
+        new_u = np.where(hit, cap, cu[rows, j])
+        new_t = np.where(hit, prev_t + cut_t, ct[rows, j])
+        cu[rows, j] = new_u
+        ct[rows, j] = new_t
+        later = np.arange(k)[None, :] > j[:, None]
+        cu = np.where(later, new_u[:, None], cu)
+        ct = np.where(later, new_t[:, None], ct)
+        end = np.where(hit, j + 1, k)
+    if job.at_max:
+        short = np.maximum(cap - cu[:, -1], 0)
+        extra_t = rng.binomial(short, job.share)
+        top = end == k
+        cu[:, -1] += np.where(top, short, 0)
+        ct[:, -1] += np.where(top, extra_t, 0)
+    return cu - ct, ct, end
+
+
+def _increments(cum: np.ndarray) -> np.ndarray:
+    return np.diff(cum, axis=1, prepend=0)
+
+
+def _lognormal_sums(rng: np.random.Generator, m: np.ndarray, p: dict
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """Sums of values and of squares of ``m`` zero-inflated log-normal values each."""
+    z = p["zero_share"]
+    b = m if z == 0 else rng.binomial(m, 1.0 - z)
+    b = np.ascontiguousarray(b, dtype=np.int64).ravel()
+    s1 = np.zeros(b.size)
+    s2 = np.zeros(b.size)
+    ends = np.cumsum(b)
+    i = 0
+    while i < b.size:
+        base = ends[i - 1] if i else 0
+        stop = max(i + 1, int(np.searchsorted(ends, base + _LOGNORMAL_BLOCK, side="right")))
+        seg = b[i:stop]
+        total = int(ends[stop - 1] - base)
+        if total:
+            x = rng.standard_normal(total)
+            x *= p["sigma"]
+            x += p["mu"]
+            np.exp(x, out=x)
+            nz = seg > 0
+            offs = (np.cumsum(seg) - seg)[nz]
+            s1[i:stop][nz] = np.add.reduceat(x, offs)
+            np.multiply(x, x, out=x)
+            s2[i:stop][nz] = np.add.reduceat(x, offs)
+        i = stop
+    return s1.reshape(m.shape), s2.reshape(m.shape)
+
+
+def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict) -> dict:
+    m = np.ascontiguousarray(np.broadcast_to(_increments(cum), cum.shape))
+    kind = job.data_kind
+    if kind == "binary":
+        return {"n": cum, "successes": np.cumsum(rng.binomial(m, p["p"]), axis=1)}
+    if kind == "counts":
+        lam = p["rate"] * m
+        if p["dispersion"] is None:
+            events = rng.poisson(lam)
+        else:
+            shape = np.where(m > 0, m * p["dispersion"], 1.0)
+            events = rng.negative_binomial(shape, p["dispersion"] / (p["dispersion"] +
+                                                                     p["rate"]))
+            events = np.where(m > 0, events, 0)
+        return {"exposure": cum, "events": np.cumsum(events, axis=1)}
+    if kind == "normal":
+        mu, sd = p["mean"], p["sd"]
+        mean = mu + sd * rng.standard_normal(m.shape) / np.sqrt(np.maximum(m, 1))
+        ss = (sd * sd) * 2.0 * rng.standard_gamma(0.5 * np.maximum(m - 1, 0))
+        s1 = m * mean
+        s2 = ss + m * mean * mean
+    else:
+        s1, s2 = _lognormal_sums(rng, m, p)
+    return {"n": cum, "sum": np.cumsum(s1, axis=1), "sum_sq": np.cumsum(s2, axis=1)}
+
+
+def _draw_chunk(job: _Job, index: int, n: int) -> tuple:
+    """The random part of a chunk: per-arm counts, totals and the looks that happen."""
+    rng = _rng(job, index)
+    n_c, n_t, end = _draw_counts(job, rng, n)
+    ctrl = _arm_totals(job, rng, n_c, job.control)
+    trt = _arm_totals(job, rng, n_t, job.treatment)
+    return n_c, n_t, end, ctrl, trt
+
+
+# ---------------------------------------------------------------------------
+# Deciding one chunk
+# ---------------------------------------------------------------------------
+
+
+@dataclass
+class _Chunk:
+    stops: np.ndarray
+    naive_stops: np.ndarray
+    total: int
+    total_sq: int
+    naive_total: int
+    frac_sum: np.ndarray
+    frac_count: np.ndarray
+    calls: int
+    paths: dict | None = None
+
+
+def _valid_looks(job: _Job, n_c: np.ndarray, n_t: np.ndarray, end: np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Which looks are analysed, the fractions, and the number of looks per replicate."""
+    k = job.times.size
+    need = _MIN_UNITS[job.kind]
+    tot = n_c + n_t
+    grew = np.diff(tot, axis=1, prepend=0) > 0
+    valid = (n_c >= need) & (n_t >= need) & grew
+    frac = (n_c.astype(float) + n_t.astype(float)) / float(job.n_max)
+    look = np.arange(k)[None, :]
+    valid &= look < end[:, None]
+    if not job.mixture:
+        reached = valid & (frac >= 1.0)
+        first = np.where(reached.any(axis=1), np.argmax(reached, axis=1) + 1, k)
+        end = np.minimum(end, first)
+        valid &= look < end[:, None]
+    # the last analysed look closes the experiment
+    last = np.where(valid.any(axis=1), k - 1 - np.argmax(valid[:, ::-1], axis=1), end - 1)
+    end = np.minimum(end, last + 1)
+    return valid, frac, end
+
+
+def _safe_totals(job: _Job, totals: dict, valid: np.ndarray) -> dict:
+    """Replace totals of looks that are not analysed by harmless valid ones."""
+    if valid.all():
+        return totals
+    if job.kind == "binary":
+        dummy = {"n": 1.0, "successes": 0.0}
+    elif job.kind == "continuous":
+        dummy = {"n": 2.0, "sum": 0.0, "sum_sq": 1.0}
+    else:
+        dummy = {"exposure": 1.0, "events": 0.0}
+    return {f: np.where(valid, v, dummy[f]) for f, v in totals.items()}
+
+
+def _never(sides: int) -> float:
+    # a futility boundary that never stops: z < -inf (one-sided), |z| < 0 (two-sided)
+    return 0.0 if sides == 2 else -np.inf
+
+
+def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray
+                ) -> tuple[np.ndarray, np.ndarray | None, int]:
+    """Per-replicate boundaries from bounds_at, once per distinct fraction pattern."""
+    n, k = frac.shape
+    plan = job.plan
+    look = np.arange(k)[None, :]
+    key = np.where(valid, frac, -1.0)
+    key = np.where(look < end[:, None], key, -2.0)
+    if job.fixed_counts is not None:
+        uniq, inv = key[:1], np.zeros(n, dtype=np.intp)
+    else:
+        uniq, inv = np.unique(key, axis=0, return_inverse=True)
+        inv = inv.ravel()
+    has_fut = plan.futility_z is not None
+    a_u = np.full(uniq.shape, np.inf)
+    b_u = np.full(uniq.shape, _never(job.sides)) if has_fut else None
+    for i, row in enumerate(uniq):
+        v = row >= 0
+        if not v.any():
+            continue
+        a, b = bounds_at(plan, row[v], final=True)
+        a_u[i, v] = a
+        if has_fut and b is not None:
+            b_u[i, v] = b
+    return a_u[inv], (None if b_u is None else b_u[inv]), len(uniq)
+
+
+def _decide_groups(z: np.ndarray, a: np.ndarray, b: np.ndarray | None, end: np.ndarray,
+                   sides: int, obey: bool) -> tuple[np.ndarray, np.ndarray]:
+    """decide() on each group of replicates with the same number of looks."""
+    n = z.shape[0]
+    stop = np.empty(n, dtype=np.int64)
+    out = np.empty(n, dtype=np.int8)
+    for e in np.unique(end):
+        rows = np.flatnonzero(end == e)
+        e = int(e)
+        s, o = decide(z[rows, :e], a[rows, :e], None if b is None else b[rows, :e], sides,
+                      final_last=True, obey_futility=obey)
+        stop[rows] = s
+        out[rows] = o
+    return stop, out
+
+
+def _tally(k: int, stop: np.ndarray, code: np.ndarray, up: np.ndarray) -> np.ndarray:
+    """Stops per look and outcome; code from decide() (1 efficacy, 2 futility, 3 end)."""
+    col = np.where(code == 1, np.where(up, 0, 1), np.where(code == 2, 2, 3))
+    out = np.zeros((k, 4), dtype=np.int64)
+    np.add.at(out, (stop, col), 1)
+    return out
+
+
+def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
+    n_c, n_t, end, ctrl, trt = _draw_chunk(job, index, n)
+    k = job.times.size
+    valid, frac, end = _valid_looks(job, n_c, n_t, end)
+    eff = metrics.effect(job.kind, _safe_totals(job, ctrl, valid),
+                         _safe_totals(job, trt, valid), scale=job.scale)
+    z = np.where(valid, eff.z, 0.0)
+    rows = np.arange(n)
+    last = end - 1
+    calls = 0
+    if job.mixture:
+        from seqtest.mixture import always_valid
+        se = np.where(valid, eff.se, np.inf)
+        est = np.where(valid & np.isfinite(se), eff.estimate, 0.0)
+        size = np.maximum(n_c, n_t)
+        res = always_valid(est, se, job.plan, n=size)
+        first = np.asarray(res.first_rejection)
+        sidx = np.asarray(res.stop_index)
+        stop = np.where((sidx >= 0) & (sidx < end), sidx, last)
+        code = np.where((first >= 0) & (first == stop), 1, 3).astype(np.int8)
+        up = np.asarray(res.direction_sign) > 0
+    else:
+        a, b, calls = _boundaries(job, valid, frac, end)
+        stop, code = _decide_groups(z, a, b, end, job.sides, job.obey)
+        # the final look's futility boundary equals the efficacy one: reaching it
+        # without crossing is completion, not a futility stop
+        code = np.where((code == 2) & (stop == last), 3, code).astype(np.int8)
+        up = z[rows, stop] > 0
+    stops = _tally(k, stop, code, up)
+    a_naive = np.where(valid, job.naive_z, np.inf)
+    n_stop, n_code = _decide_groups(z, a_naive, None, end, job.sides, False)
+    naive_stops = _tally(k, n_stop, n_code, z[rows, n_stop] > 0)
+    total = (n_c[rows, stop] + n_t[rows, stop]).astype(np.int64)
+    naive_total = (n_c[rows, n_stop] + n_t[rows, n_stop]).astype(np.int64)
+    seen = valid & (np.arange(k)[None, :] < end[:, None])
+    paths = None
+    if job.keep_paths:
+        paths = {"n_control": np.array(n_c), "n_treatment": np.array(n_t),
+                 "control": {f: np.array(v) for f, v in ctrl.items()},
+                 "treatment": {f: np.array(v) for f, v in trt.items()},
+                 "z": z, "valid": valid, "fraction": frac, "looks": end,
+                 "stop": stop, "outcome": code, "naive_stop": n_stop, "naive_outcome": n_code}
+    return _Chunk(stops=stops, naive_stops=naive_stops, total=int(total.sum()),
+                  total_sq=int((total * total).sum()), naive_total=int(naive_total.sum()),
+                  frac_sum=np.where(seen, frac, 0.0).sum(axis=0),
+                  frac_count=seen.sum(axis=0), calls=calls, paths=paths)
+
+
+# ---------------------------------------------------------------------------
+# The public entry point
+# ---------------------------------------------------------------------------
+
+
+def _chunk_size(job_k: int, chunk_size: int) -> int:
+    return int(min(chunk_size, max(500, _MAX_CELLS // max(job_k, 1))))
+
+
+def _label(plan: Any) -> str:
+    side = "two-sided" if plan.sides == 2 else "one-sided"
+    if not isinstance(plan, Plan):
+        return f"mixture SPRT, {side} alpha {plan.alpha:g}, tau2 {plan.tau2:.4g}"
+    text = f"{plan.looks} looks, {side} alpha {plan.alpha:g}, {plan.efficacy.label}"
+    if plan.futility is not None:
+        text += (f", futility {plan.futility.label} "
+                 f"({'binding' if plan.binding else 'non-binding'})")
+    return text
+
+
+def _design_rate(plan: Any, sc: Scenario, job: _Job) -> float | None:
+    if sc.is_null:
+        return float(plan.alpha)
+    if sc.effect_type != "mde_multiple" or job.mixture:
+        return None
+    if sc.traffic.mode != "fixed" or sc.traffic.extra_looks or not job.obey and \
+            plan.futility_z is not None:
+        return None
+    return float(plan.characteristics(sc.effect).reject_any)
+
+
+def _verdict(null: bool, lo: float, hi: float, alpha: float, design: float | None) -> str:
+    if null:
+        return "leaks alpha" if lo > alpha else "holds alpha"
+    if design is None:
+        return "power (no prediction from the plan to compare)"
+    if hi < design:
+        return "below the plan's power"
+    if lo > design:
+        return "above the plan's power"
+    return "consistent with the plan's power"
+
+
+def simulate(
+    plan: Any,
+    scenario: Scenario,
+    reps: int,
+    *,
+    seed: int = 0,
+    workers: int | None = 1,
+    chunk_size: int = DEFAULT_CHUNK,
+    confidence: float = 0.95,
+    progress: Callable[[int, int], None] | None = None,
+    executor: Executor | None = None,
+    keep_paths: bool = False,
+) -> SimulationResult:
+    """Simulate ``reps`` experiments of a scenario under a plan.
+
+    Parameters
+    ----------
+    plan : Plan, MixturePlan or dict
+        A group-sequential plan (:func:`seqtest.design`), a mixture plan
+        (:func:`seqtest.mixture.mixture_plan`) or a plan document.
+    scenario : Scenario
+        From :func:`seqtest.scenarios.load_scenario` or
+        :func:`seqtest.scenarios.scenario_from_dict`.
+    reps : int
+        Number of simulated experiments, >= 1.
+    seed : int
+        Seed (>= 0) of the whole run.
+    workers : int or None
+        Processes to use; ``None`` or 0: all cores. Results do not depend on it.
+    chunk_size : int
+        Replicates per chunk (capped so a chunk holds at most 1e6 replicate-looks);
+        part of what makes a run reproducible.
+    confidence : float
+        Level of the Clopper-Pearson intervals.
+    progress : callable, optional
+        Called as ``progress(done, total)`` (replicates) after each chunk.
+    executor : concurrent.futures.Executor, optional
+        Run the chunks on this executor (overrides `workers`).
+    keep_paths : bool
+        Keep the per-replicate arrays in :attr:`SimulationResult.paths` (for
+        checks on small runs).
+
+    Returns
+    -------
+    SimulationResult
+
+    Raises
+    ------
+    ValueError
+        For bad arguments or a scenario that does not fit the plan (naming the
+        field).
+
+    Notes
+    -----
+    See the module docstring for how data and traffic are drawn and how the
+    decision code is called. The rejection rate has the exact binomial
+    (Clopper-Pearson) interval; the expected total its standard error
+    ``sqrt(var / reps)`` with the sample variance of the totals.
+    """
+    if isinstance(reps, bool) or not isinstance(reps, (int, np.integer)) or reps < 1:
+        raise ValueError(f"reps: got {reps!r}; allowed is a whole number >= 1")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise ValueError(f"seed: got {seed!r}; allowed is a whole number >= 0")
+    if isinstance(chunk_size, bool) or not isinstance(chunk_size, (int, np.integer)) \
+            or chunk_size < 1:
+        raise ValueError(f"chunk_size: got {chunk_size!r}; allowed is a whole number >= 1")
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
+                                or workers < 0):
+        raise ValueError(f"workers: got {workers!r}; allowed is a whole number >= 0 "
+                         "(0 or None: all cores)")
+    if not 0 < float(confidence) < 1:
+        raise ValueError(f"confidence: got {confidence!r}; allowed is a level in (0, 1)")
+    if isinstance(plan, dict):
+        from seqtest.plans import plan_from_dict
+        plan = plan_from_dict(plan)
+    job0 = _job(plan, scenario, int(seed), 0, keep_paths)
+    k = job0.times.size
+    chunk = _chunk_size(k, int(chunk_size))
+    job = replace(job0, chunk=chunk)
+    reps = int(reps)
+    sizes = [min(chunk, reps - s) for s in range(0, reps, chunk)]
+    results: list[_Chunk | None] = [None] * len(sizes)
+    done = 0
+    n_workers = workers if workers else (os.cpu_count() or 1)
+    own = None
+    if executor is None and n_workers > 1 and len(sizes) > 1:
+        own = executor = ProcessPoolExecutor(max_workers=min(n_workers, len(sizes)))
+    try:
+        if executor is None:
+            for i, n in enumerate(sizes):
+                results[i] = _run_chunk(job, i, n)
+                done += n
+                if progress is not None:
+                    progress(done, reps)
+        else:
+            from concurrent.futures import as_completed
+            futures = {executor.submit(_run_chunk, job, i, n): i for i, n in enumerate(sizes)}
+            for fut in as_completed(futures):
+                i = futures[fut]
+                results[i] = fut.result()
+                done += sizes[i]
+                if progress is not None:
+                    progress(done, reps)
+    finally:
+        if own is not None:
+            own.shutdown(cancel_futures=True)
+    return _combine(plan, scenario, job, reps, float(confidence), results)  # type: ignore[arg-type]
+
+
+def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
+             chunks: list[_Chunk]) -> SimulationResult:
+    k = job.times.size
+    stops = np.zeros((k, 4), dtype=np.int64)
+    naive = np.zeros((k, 4), dtype=np.int64)
+    frac_sum = np.zeros(k)
+    frac_count = np.zeros(k, dtype=np.int64)
+    total = total_sq = naive_total = calls = 0
+    for c in chunks:                      # in chunk order: bit-for-bit reproducible
+        stops += c.stops
+        naive += c.naive_stops
+        frac_sum += c.frac_sum
+        frac_count += c.frac_count
+        total += c.total
+        total_sq += c.total_sq
+        naive_total += c.naive_total
+        calls += c.calls
+    rej_up, rej_down = int(stops[:, 0].sum()), int(stops[:, 1].sum())
+    rej = rej_up + rej_down
+    lo, hi = clopper_pearson(rej, reps, confidence)
+    mean_total = total / reps
+    var = max(0.0, (total_sq - total * total / reps) / max(reps - 1, 1))
+    design = _design_rate(plan, sc, job)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_frac = np.where(frac_count > 0, frac_sum / np.maximum(frac_count, 1), np.nan)
+    ctrl, trt, m_t, m_c = _arms(plan, sc)
+    true = (m_t / m_c - 1.0) if job.scale == "relative" else (m_t - m_c)
+    nv = None
+    if sc.naive:
+        n_rej = int(naive[:, :2].sum())
+        nlo, nhi = clopper_pearson(n_rej, reps, confidence)
+        nv = NaiveSummary(z=job.naive_z, rejections=n_rej, rate=n_rej / reps, ci_lower=nlo,
+                          ci_upper=nhi, expected_total=naive_total / reps, stops=naive)
+    paths = None
+    if job.keep_paths:
+        paths = _join_paths([c.paths for c in chunks])
+    return SimulationResult(
+        scenario=sc.name, description=sc.description,
+        plan_kind="mixture" if job.mixture else "group_sequential", plan_label=_label(plan),
+        alpha=job.alpha, sides=job.sides, data_kind=sc.data_kind, analysis_kind=job.kind,
+        scale=job.scale, traffic=sc.traffic.mode, futility="obey" if job.obey else "ignore",
+        reps=reps, seed=job.seed, chunk_size=job.chunk, null=sc.is_null,
+        true_effect=float(true), confidence=confidence, rejections=rej,
+        rejections_upper=rej_up, rejections_lower=rej_down, rate=rej / reps, ci_lower=lo,
+        ci_upper=hi, design_rate=design,
+        verdict=_verdict(sc.is_null, lo, hi, job.alpha, design), look_times=job.times.copy(),
+        mean_fraction=mean_frac, stops=stops, expected_total=mean_total,
+        expected_total_se=math.sqrt(var / reps), max_total=float(job.n_max), naive=nv,
+        boundary_calls=calls, paths=paths)
+
+
+def _join_paths(parts: list[dict | None]) -> dict:
+    out: dict = {}
+    first = parts[0]
+    assert first is not None
+    for key, val in first.items():
+        if isinstance(val, dict):
+            out[key] = {f: np.concatenate([p[key][f] for p in parts]) for f in val}
+        else:
+            out[key] = np.concatenate([p[key] for p in parts])
+    return out
+
+
+# ---------------------------------------------------------------------------
+# Figure
+# ---------------------------------------------------------------------------
+
+
+def plot_result(result: SimulationResult, path: Any) -> Any:
+    """Draw a result on one PNG: the rejection rate against alpha, the stopping looks.
+
+    Left: the plan's rejection rate with its Clopper-Pearson interval next to the
+    naive baseline, with alpha (or the plan's power) as a line. Right: the share of
+    replicates stopping at each look, stacked by outcome. Uses matplotlib's
+    object-oriented API with the Agg canvas (no display, no global state).
+
+    Returns the path written.
+    """
+    from pathlib import Path
+
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(9.0, 3.8), dpi=100)
+    FigureCanvasAgg(fig)
+    ax1, ax2 = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1, 2.2]})
+    names = ["plan"]
+    rates = [result.rate]
+    lows = [result.ci_lower]
+    highs = [result.ci_upper]
+    if result.naive is not None:
+        names.append("naive")
+        rates.append(result.naive.rate)
+        lows.append(result.naive.ci_lower)
+        highs.append(result.naive.ci_upper)
+    x = np.arange(len(names))
+    colours = ["tab:red" if result.leaks else "tab:blue", "tab:grey"][: len(names)]
+    ax1.bar(x, rates, color=colours, width=0.6)
+    ax1.errorbar(x, rates, yerr=[np.subtract(rates, lows), np.subtract(highs, rates)],
+                 fmt="none", ecolor="black", capsize=4, lw=1)
+    ref = result.alpha if result.null else result.design_rate
+    if ref is not None:
+        ax1.axhline(ref, color="black", ls="--", lw=1,
+                    label=f"alpha {ref:g}" if result.null else f"plan's power {ref:.3f}")
+        ax1.legend(loc="upper left", fontsize=8, frameon=False)
+    for xi, r in zip(x, rates, strict=True):
+        ax1.annotate(f"{r:.4f}", (xi, r), textcoords="offset points", xytext=(0, 6),
+                     ha="center", fontsize=8)
+    ax1.set_xticks(x, names)
+    ax1.set_ylabel("type I error" if result.null else "rejection rate")
+    ax1.set_ylim(0, max(max(highs) * 1.25, (ref or 0) * 1.25, 1e-3))
+    ax1.set_title(result.verdict, fontsize=10,
+                  color="tab:red" if result.leaks else "black")
+    share = result.stops / result.reps
+    looks = np.arange(1, result.looks + 1)
+    bottom = np.zeros(result.looks)
+    colors = {"efficacy_up": "tab:green", "efficacy_down": "tab:olive",
+              "futility": "tab:red", "complete": "tab:grey"}
+    for i, o in enumerate(OUTCOMES):
+        if share[:, i].any():
+            ax2.bar(looks, share[:, i], bottom=bottom, color=colors[o],
+                    label=o.replace("_", " "), width=0.7)
+            bottom += share[:, i]
+    ax2.set_xlabel("look (mean information fraction)")
+    step = max(1, result.looks // 12)
+    ticks = looks[::step]
+    labels = [f"{j}\n({result.mean_fraction[j - 1]:.2f})"
+              if math.isfinite(result.mean_fraction[j - 1]) else str(j) for j in ticks]
+    ax2.set_xticks(ticks, labels, fontsize=7)
+    ax2.set_ylabel("share of experiments stopping")
+    ax2.set_title(f"expected total {result.expected_total:,.0f} of "
+                  f"{result.max_total:,.0f} ({result.expected_total / result.max_total:.0%})",
+                  fontsize=10)
+    ax2.legend(fontsize=8, frameon=False)
+    fig.suptitle(f"{result.scenario}: {result.reps:,} experiments", fontsize=11)
+    fig.tight_layout()
+    out = Path(path)
+    fig.savefig(out)
+    return out
