@@ -91,16 +91,26 @@ def parse_boundary(value: Any, argument: str) -> Boundary | None:
             "wang-tsiatis:<Delta>, haybittle-peto[:<z>] (classical)") from None
 
 
+def _is_whole(x: Any) -> bool:
+    if isinstance(x, bool) or not isinstance(x, (int, float, np.integer, np.floating)):
+        return False
+    return math.isfinite(float(x)) and float(x).is_integer()
+
+
 def _check_fractions(looks: int | None, info_fractions: Sequence[float] | None) -> np.ndarray:
     if info_fractions is None:
         if looks is None:
             raise ValueError("looks: give the number of looks or info_fractions")
-        if isinstance(looks, bool) or int(looks) != looks or not 1 <= looks <= MAX_LOOKS:
+        if not _is_whole(looks) or not 1 <= looks <= MAX_LOOKS:
             raise ValueError(f"looks: got {looks!r}; allowed is an integer from 1 to "
                              f"{MAX_LOOKS}")
         k = int(looks)
         return np.arange(1, k + 1) / k
-    t = np.asarray(info_fractions, dtype=float).ravel()
+    try:
+        t = np.asarray(info_fractions, dtype=float).ravel()
+    except (TypeError, ValueError):
+        raise ValueError(f"info_fractions: got {info_fractions!r}; allowed is a list of "
+                         "numbers") from None
     if t.size == 0 or t.size > MAX_LOOKS:
         raise ValueError(f"info_fractions: got {t.size} values; allowed is 1 to "
                          f"{MAX_LOOKS} looks")
@@ -110,7 +120,7 @@ def _check_fractions(looks: int | None, info_fractions: Sequence[float] | None) 
     if not math.isclose(t[-1], 1.0, abs_tol=1e-12):
         raise ValueError(f"info_fractions: got {t.tolist()}; the last look must be at "
                          "fraction 1 (the maximum information)")
-    if looks is not None and int(looks) != t.size:
+    if looks is not None and (not _is_whole(looks) or int(looks) != t.size):
         raise ValueError(f"looks: got {looks!r} but info_fractions has {t.size} values")
     t[-1] = 1.0
     return t
@@ -235,19 +245,6 @@ class Plan:
             raise ValueError(f"delta: got {delta!r}; allowed is a non-zero finite effect")
         return (self.drift / d) ** 2
 
-    def _bounds(self) -> dict:
-        up = self.efficacy_z
-        k = self.looks
-        lo = -up if self.sides == 2 else np.full(k, -np.inf)
-        il = iu = None
-        if self.futility_z is not None:
-            if self.sides == 1:
-                lo = np.minimum(self.futility_z, up)
-            else:
-                b = np.clip(self.futility_z, 0.0, up)
-                il, iu = -b, b
-        return {"upper": up, "lower": lo, "inner_lower": il, "inner_upper": iu}
-
     def characteristics(self, effect: float = 1.0) -> Characteristics:
         """Per-look stopping probabilities, power and expected information.
 
@@ -259,10 +256,8 @@ class Plan:
         e = float(effect)
         if not math.isfinite(e):
             raise ValueError(f"effect: got {effect!r}; allowed is a finite number")
-        b = self._bounds()
-        cr = crossing_probabilities(b["upper"], b["lower"], self.info_fractions,
-                                    e * self.drift, inner_lower=b["inner_lower"],
-                                    inner_upper=b["inner_upper"], r=self.r)
+        cr = _crossing_for(self.info_fractions, self.efficacy_z, self.futility_z,
+                           self.sides, e * self.drift, self.r)
         if self.sides == 2:
             eff_lo, fut = cr.lower, cr.inner
         else:
@@ -415,18 +410,24 @@ def _solve_futility(state: _State, info: float, target: float, a: float, sides: 
     return _solve_monotone(fun, target, floor, top, x0, decreasing=False)
 
 
-def _power(t: np.ndarray, a: np.ndarray, b: np.ndarray | None, sides: int, drift: float,
-           r: int) -> float:
+def _crossing_for(t: np.ndarray, a: np.ndarray, b: np.ndarray | None, sides: int,
+                  drift: float, r: int) -> Any:
+    """Exit probabilities of a plan's regions: efficacy ``a`` (and ``-a`` two-sided),
+    futility ``b`` as a lower boundary (one-sided) or an inner band (two-sided)."""
     lo = -a if sides == 2 else np.full(t.size, -np.inf)
     il = iu = None
     if b is not None:
         if sides == 1:
             lo = np.minimum(b, a)
         else:
-            bb = np.clip(b, 0.0, a)
-            il, iu = -bb, bb
-    cr = crossing_probabilities(a, lo, t, drift, inner_lower=il, inner_upper=iu, r=r)
-    return float(cr.upper.sum())
+            w = np.clip(b, 0.0, a)
+            il, iu = -w, w
+    return crossing_probabilities(a, lo, t, drift, inner_lower=il, inner_upper=iu, r=r)
+
+
+def _power(t: np.ndarray, a: np.ndarray, b: np.ndarray | None, sides: int, drift: float,
+           r: int) -> float:
+    return float(_crossing_for(t, a, b, sides, drift, r).upper.sum())
 
 
 def _solve_drift(power_at: Any, target: float, start: float) -> float:
@@ -654,16 +655,19 @@ def _binding_bounds(t: np.ndarray, alpha: float, sides: int, eff: Boundary,
     def level(c: float) -> tuple[float, np.ndarray, np.ndarray]:
         aa = np.where(fixed, shape, c * shape)
         bb = _futility_bounds(t, drift, aa, sides, beta, fut, r)
-        lo = np.minimum(bb, aa) if sides == 1 else -aa
-        il = iu = None
-        if sides == 2:
-            w = np.clip(bb, 0, aa)
-            il, iu = -w, w
-        cr = crossing_probabilities(aa, lo, t, 0.0, inner_lower=il, inner_upper=iu, r=r)
+        cr = _crossing_for(t, aa, bb, sides, 0.0, r)
         tot = cr.upper.sum() + (cr.lower.sum() if sides == 2 else 0.0)
         return float(tot), aa, bb
 
-    c = optimize.brentq(lambda c: level(c)[0] - alpha, 0.2, 20.0, xtol=1e-12)
+    # While the drift is still being searched, a futility boundary can stop nearly
+    # every path before the scaled looks; the constant then has to go low (even
+    # below zero for Haybittle-Peto's final look). If even that cannot reach alpha,
+    # the lowest constant is used and the drift search moves on.
+    lo_c, hi_c = -20.0, 20.0
+    if level(lo_c)[0] < alpha:
+        c = lo_c
+    else:
+        c = optimize.brentq(lambda c: level(c)[0] - alpha, lo_c, hi_c, xtol=1e-12)
     _, aa, bb = level(c)
     return aa, bb
 
@@ -677,14 +681,5 @@ def _continuation_iv(a: float, b: float, sides: int) -> list[tuple[float, float]
 
 def _cumulative_null(t: np.ndarray, a: np.ndarray, b: np.ndarray | None, sides: int,
                      r: int) -> np.ndarray:
-    lo = -a if sides == 2 else np.full(t.size, -np.inf)
-    il = iu = None
-    if b is not None:
-        if sides == 1:
-            lo = np.minimum(b, a)
-        else:
-            w = np.clip(b, 0, a)
-            il, iu = -w, w
-    cr = crossing_probabilities(a, lo, t, 0.0, inner_lower=il, inner_upper=iu, r=r)
-    tot = cr.upper + (cr.lower if sides == 2 else 0.0)
-    return np.cumsum(tot)
+    cr = _crossing_for(t, a, b, sides, 0.0, r)
+    return np.cumsum(cr.upper + (cr.lower if sides == 2 else 0.0))

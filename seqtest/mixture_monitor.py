@@ -20,7 +20,7 @@ from scipy import special
 from seqtest import metrics
 from seqtest.inference import naive_ci
 from seqtest.mixture import MixturePlan, always_valid_effect, half_width
-from seqtest.monitor import Analysis, FinalInference, LookResult
+from seqtest.monitor import Analysis, FinalInference, LookResult, srm_at_look
 
 __all__ = ["analyze_mixture"]
 
@@ -67,16 +67,7 @@ def analyze_mixture(plan: MixturePlan, looks: Sequence[Mapping], *, metric: str 
         hw = np.atleast_1d(np.asarray(half_width(se, plan.tau2, plan.alpha, plan.sides), float))
     records = []
     for j in range(last):
-        srm_p = None
-        if kind != "rate":
-            try:
-                srm = metrics.srm_check(int(round(n_c[j])), int(round(n_t[j])), alloc,
-                                        srm_threshold)
-                srm_p = srm.p_value
-                if srm.mismatch:
-                    warnings.append(f"look {j + 1}: {srm.message}")
-            except ValueError:
-                srm_p = None
+        srm_p = srm_at_look(kind, n_c[j], n_t[j], alloc, srm_threshold, j + 1, warnings)
         frac = (max(n_c[j], n_t[j]) / plan.max_n_per_arm) if plan.max_n_per_arm else math.nan
         bound = float(hw[j] / se[j]) if math.isfinite(se[j]) else math.inf
         unadj = (float(2 * special.ndtr(-abs(z[j]))) if plan.sides == 2

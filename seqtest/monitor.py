@@ -473,16 +473,7 @@ def analyze(
         a_j = float(a_all[j])
         b_j = None if b_all is None else float(b_all[j])
         dec = _decide_one(float(w_z[j]), a_j, b_j, plan.sides, is_final, degenerate[j])
-        srm_p = None
-        if kind != "rate":  # exposure is not a count of units: no chi-square check
-            try:
-                srm = metrics.srm_check(int(round(n_c[j])), int(round(n_t[j])), alloc,
-                                        srm_threshold)
-                srm_p = srm.p_value
-                if srm.mismatch:
-                    warnings.append(f"look {j + 1}: {srm.message}")
-            except ValueError:
-                srm_p = None
+        srm_p = srm_at_look(kind, n_c[j], n_t[j], alloc, srm_threshold, j + 1, warnings)
         rci_lo, rci_hi = inference.repeated_ci(w_est[j], w_se[j], a_j, plan.sides)
         if relative:
             rci_lo, rci_hi = np.expm1(rci_lo), np.expm1(rci_hi)
@@ -534,6 +525,22 @@ def analyze(
     return Analysis(decision=decision, direction=direction, stopped_at=stopped,
                     looks=records, final=fin, projection=proj, warnings=warnings,
                     metric=kind, scale=scale)
+
+
+def srm_at_look(kind: str, n_c: float, n_t: float, allocation: float, threshold: float,
+                look: int, warnings: list[str]) -> float | None:
+    """Sample-ratio check of one look's arm sizes; a mismatch adds a warning.
+
+    Rate metrics are skipped: exposure is not a count of units."""
+    if kind == "rate":
+        return None
+    try:
+        srm = metrics.srm_check(int(round(n_c)), int(round(n_t)), allocation, threshold)
+    except ValueError:
+        return None
+    if srm.mismatch:
+        warnings.append(f"look {look}: {srm.message}")
+    return srm.p_value
 
 
 def _decide_one(z: float, a: float, b: float | None, sides: int, is_final: bool,
