@@ -73,7 +73,9 @@ def main() -> int:
     ap.add_argument("--requests", type=int, default=300, help="per kind (max 5000)")
     ap.add_argument("--seconds", type=float, default=60.0, help="measuring time limit")
     ap.add_argument("--looks-per-experiment", type=int, default=10)
-    ap.add_argument("--database-url", default=None, help="default: a fresh SQLite file")
+    ap.add_argument("--database-url", default=None,
+                    help="default: a fresh SQLite file; a PostgreSQL URL must name an "
+                    "existing, empty schema (?options=-csearch_path%%3Dname)")
     args = ap.parse_args()
     requests = max(10, min(args.requests, 5000))
     per_exp = max(1, min(args.looks_per_experiment, 40))
@@ -121,13 +123,32 @@ def main() -> int:
         os.killpg(proc.pid, signal.SIGTERM)
         proc.wait(timeout=30)
 
+    # The library's share: the same analyses, in this process, without HTTP or
+    # storage (the service runs exactly this call for each look).
+    import seqtest
+    from seqtest import monitor
+
+    plan = seqtest.design(looks=5)
+    library: list[float] = []
+    for j in range(len(looks)):
+        history = []
+        for i in range(j // n_exp + 1):
+            n = 1000 * (i + 1)
+            kk = i * n_exp + j % n_exp
+            history.append({"control": {"n": n, "successes": n // 10},
+                            "treatment": {"n": n, "successes": n // 10 + kk % 7}})
+        t0 = time.perf_counter()
+        monitor.analyze(plan, history, metric="binary", allocation=1.0, max_n=10**9)
+        library.append(time.perf_counter() - t0)
+
     sync = os.environ.get("SEQTEST_SQLITE_SYNCHRONOUS", "FULL").upper()
     database = "PostgreSQL" if url.startswith("postgres") else f"SQLite (WAL, synchronous={sync})"
     print(f"seqtest service on {database}; {len(looks)} looks over {n_exp} experiments "
           f"(1..{per_exp} looks per analysis), one client, loopback")
     print(f"{'route':<22}{'p50 ms':>10}{'p99 ms':>10}{'req/s':>10}")
     rows = {}
-    for name, xs in (("GET /v1/health", health), ("POST .../looks", looks)):
+    for name, xs in (("GET /v1/health", health), ("POST .../looks", looks),
+                     ("(monitor.analyze)", library)):
         p50, p99 = pct(xs, 0.50) * 1e3, pct(xs, 0.99) * 1e3
         rate = len(xs) / sum(xs)
         rows[name] = (p50, p99, rate)
@@ -135,7 +156,11 @@ def main() -> int:
     h, lk = rows["GET /v1/health"], rows["POST .../looks"]
     print(f"ratio look/health: p50 {lk[0] / h[0]:.1f}x, p99 {lk[1] / h[1]:.1f}x, "
           f"throughput {h[2] / lk[2]:.1f}x fewer looks per second (goal: <= 3x)")
-    print(f"mean look latency {statistics.fmean(looks) * 1e3:.2f} ms")
+    print(f"mean look latency {statistics.fmean(looks) * 1e3:.2f} ms, of which the "
+          f"monitor's analysis alone takes {statistics.fmean(library) * 1e3:.2f} ms "
+          "(same analyses, in this process)")
+    print(f"look minus monitor, p50: {(pct(looks, 0.5) - pct(library, 0.5)) * 1e3:.2f} ms "
+          f"= {(pct(looks, 0.5) - pct(library, 0.5)) / pct(health, 0.5):.1f}x health")
     return 0
 
 

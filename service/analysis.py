@@ -15,7 +15,7 @@ import seqtest
 from seqtest.metrics import ARMS, LookDataError
 from seqtest.plans import plan_from_dict
 from service.errors import InvalidPlan, InvalidTotals, Unavailable, Unprocessable
-from service.storage import Experiment, Look, NewLook, NewPlan, PlanVersion
+from service.storage import Experiment, NewLook, NewPlan, PlanVersion
 
 log = logging.getLogger("seqtest.service")
 
@@ -196,7 +196,7 @@ def _monitor() -> Any:
 def analyze_look(
     exp: Experiment,
     plan: PlanVersion,
-    prior: list[Look],
+    prior: list[dict[str, Any]],
     totals: dict[str, dict[str, float]],
     final: bool,
     daily_traffic: float | None = None,
@@ -209,7 +209,7 @@ def analyze_look(
     crossing: the monitor advises stopping, and further looks stay valid).
     """
     roles = to_roles(exp, totals)
-    looks = [lk.totals for lk in prior] + [roles]
+    looks = [*prior, roles]
     plan_obj = read_plan(plan.document)
     monitor = _monitor()
     options: dict[str, Any] = {}

@@ -34,6 +34,7 @@ from sqlalchemy import (
     Connection,
     Engine,
     and_,
+    bindparam,
     create_engine,
     event,
     func,
@@ -336,6 +337,59 @@ def _look(row: Any) -> Look:
     )
 
 
+# ----------------------------------------------------------- statements on the hot path
+# Built once with bound parameters: a look is a handful of statements, and
+# building them anew each time costs more than running them on SQLite.
+
+_AUTH = (
+    select(
+        tables.api_keys.c.id, tables.api_keys.c.label, tables.api_keys.c.team_id,
+        tables.teams.c.name,
+    )
+    .join(tables.teams, tables.teams.c.id == tables.api_keys.c.team_id)
+    .where(
+        tables.api_keys.c.key_hash == bindparam("key_hash"),
+        tables.api_keys.c.revoked_at.is_(None),
+    )
+)
+_LOCK_EXPERIMENT = (
+    select(tables.experiments)
+    .where(
+        tables.experiments.c.id == bindparam("exp_id"),
+        tables.experiments.c.team_id == bindparam("team_id"),
+    )
+    .with_for_update()
+)
+_LOOK_TOTALS = (
+    select(tables.looks.c.totals)
+    .where(tables.looks.c.experiment_id == bindparam("exp_id"))
+    .order_by(tables.looks.c.number)
+)
+_PLAN = select(tables.plan_versions).where(
+    tables.plan_versions.c.experiment_id == bindparam("exp_id"),
+    tables.plan_versions.c.version == bindparam("version"),
+)
+_REPLAY = select(
+    tables.idempotency_keys.c.request_hash,
+    tables.idempotency_keys.c.status_code,
+    tables.idempotency_keys.c.response,
+).where(
+    tables.idempotency_keys.c.team_id == bindparam("team_id"),
+    tables.idempotency_keys.c.key == bindparam("key"),
+)
+_INSERT_LOOK = insert(tables.looks)
+_UPDATE_AFTER_LOOK = (
+    update(tables.experiments)
+    .where(tables.experiments.c.id == bindparam("exp_id"))
+    .values(
+        look_count=bindparam("look_count"),
+        state=bindparam("state"),
+        decision=bindparam("decision"),
+        updated_at=bindparam("updated_at"),
+    )
+)
+
+
 # --------------------------------------------------------------------------- storage
 
 
@@ -472,13 +526,8 @@ class Storage:
 
     def authenticate(self, token: str) -> Principal | None:
         """The principal for a live token, or ``None``."""
-        k, t = tables.api_keys, tables.teams
         with self.engine.connect() as conn:
-            row = conn.execute(
-                select(k.c.id, k.c.label, k.c.team_id, t.c.name)
-                .join(t, t.c.id == k.c.team_id)
-                .where(and_(k.c.key_hash == hash_token(token), k.c.revoked_at.is_(None)))
-            ).first()
+            row = conn.execute(_AUTH, {"key_hash": hash_token(token)}).first()
             conn.rollback()
         if row is None:
             return None
@@ -488,12 +537,7 @@ class Storage:
 
     @staticmethod
     def _replay(conn: Connection, team_id: str, idem: Idempotency) -> Stored | None:
-        i = tables.idempotency_keys
-        row = conn.execute(
-            select(i.c.request_hash, i.c.status_code, i.c.response).where(
-                and_(i.c.team_id == team_id, i.c.key == idem.key)
-            )
-        ).first()
+        row = conn.execute(_REPLAY, {"team_id": team_id, "key": idem.key}).first()
         if row is None:
             return None
         if row[0] != idem.request_hash:
@@ -614,10 +658,7 @@ class Storage:
 
     @staticmethod
     def _lock_experiment(conn: Connection, team_id: str, exp_id: str) -> Experiment:
-        e = tables.experiments
-        row = conn.execute(
-            select(e).where(and_(e.c.id == exp_id, e.c.team_id == team_id)).with_for_update()
-        ).first()
+        row = conn.execute(_LOCK_EXPERIMENT, {"exp_id": exp_id, "team_id": team_id}).first()
         if row is None:
             raise NotFound(
                 f"No experiment {exp_id!r} for your team; list yours with GET /v1/experiments."
@@ -626,10 +667,7 @@ class Storage:
 
     @staticmethod
     def _plan(conn: Connection, exp_id: str, version: int) -> PlanVersion:
-        p = tables.plan_versions
-        row = conn.execute(
-            select(p).where(and_(p.c.experiment_id == exp_id, p.c.version == version))
-        ).one()
+        row = conn.execute(_PLAN, {"exp_id": exp_id, "version": version}).one()
         return _plan_version(row)
 
     @staticmethod
@@ -639,6 +677,12 @@ class Storage:
             select(p).where(p.c.experiment_id == exp_id).order_by(p.c.version)
         ).all()
         return [_plan_version(r) for r in rows]
+
+    @staticmethod
+    def _look_totals(conn: Connection, exp_id: str) -> list[dict[str, Any]]:
+        """The totals of every stored look, in order (without their analyses)."""
+        rows = conn.execute(_LOOK_TOTALS, {"exp_id": exp_id}).scalars().all()
+        return [json.loads(r) for r in rows]
 
     @staticmethod
     def _looks(conn: Connection, exp_id: str) -> list[Look]:
@@ -687,14 +731,14 @@ class Storage:
         self,
         principal: Principal,
         exp_id: str,
-        compute: Callable[[Experiment, PlanVersion, list[Look]], NewLook],
+        compute: Callable[[Experiment, PlanVersion, list[dict[str, Any]]], NewLook],
         render: Callable[[Experiment, Look], dict[str, Any]],
         idem: Idempotency | None = None,
     ) -> Stored:
         """Append the next look of ``exp_id``.
 
-        ``compute`` gets the experiment, its current plan and every stored look
-        (under the lock) and returns what to store; it may raise a
+        ``compute`` gets the experiment, its current plan and the totals of every
+        stored look, in order (under the lock), and returns what to store; it may raise a
         :class:`service.errors.ServiceError`, which stores nothing.
         """
 
@@ -710,7 +754,7 @@ class Storage:
                     f"Experiment {exp_id!r} is {exp.state} (decision {exp.decision!r} at look "
                     f"{exp.look_count}); it accepts no further looks."
                 )
-            prior = self._looks(conn, exp_id)
+            prior = self._look_totals(conn, exp_id)
             if len(prior) != exp.look_count:  # pragma: no cover - guarded by the lock
                 raise RuntimeError("look count out of step with stored looks")
             plan = self._plan(conn, exp_id, exp.plan_version)
@@ -720,23 +764,28 @@ class Storage:
             ts = now()
             number = exp.look_count + 1
             conn.execute(
-                insert(tables.looks).values(
-                    experiment_id=exp_id,
-                    number=number,
-                    plan_version=plan.version,
-                    totals=dump_json(new.totals),
-                    final=new.final,
-                    decision=new.decision,
-                    analysis=dump_json(new.analysis),
-                    recorded_at=ts,
-                    recorded_by=principal.key_id,
-                )
+                _INSERT_LOOK,
+                {
+                    "experiment_id": exp_id,
+                    "number": number,
+                    "plan_version": plan.version,
+                    "totals": dump_json(new.totals),
+                    "final": new.final,
+                    "decision": new.decision,
+                    "analysis": dump_json(new.analysis),
+                    "recorded_at": ts,
+                    "recorded_by": principal.key_id,
+                },
             )
-            e = tables.experiments
             conn.execute(
-                update(e)
-                .where(e.c.id == exp_id)
-                .values(look_count=number, state=new.state, decision=new.decision, updated_at=ts)
+                _UPDATE_AFTER_LOOK,
+                {
+                    "exp_id": exp_id,
+                    "look_count": number,
+                    "state": new.state,
+                    "decision": new.decision,
+                    "updated_at": ts,
+                },
             )
             exp_after = replace(
                 exp, look_count=number, state=new.state, decision=new.decision, updated_at=ts

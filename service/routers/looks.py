@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Path, Request
 from fastapi.responses import JSONResponse
@@ -12,7 +12,7 @@ from service.auth import PrincipalDep, StorageDep
 from service.errors import NotFound
 from service.routers.experiments import _ERRORS
 from service.schemas import LookCreate, LookOut
-from service.storage import Experiment, Look, NewLook, PlanVersion
+from service.storage import Experiment, NewLook, PlanVersion
 
 router = APIRouter(prefix="/v1/experiments/{experiment_id}/looks", tags=["looks"])
 
@@ -41,7 +41,7 @@ def post_look(
     and stored with the analysis in one transaction. Totals that go backwards, unknown
     arms and fields that do not fit the metric are refused with 422 naming the field."""
 
-    def compute(exp: Experiment, plan: PlanVersion, prior: list[Look]) -> NewLook:
+    def compute(exp: Experiment, plan: PlanVersion, prior: list[dict[str, Any]]) -> NewLook:
         return analysis.analyze_look(
             exp, plan, prior, body.totals, body.final, body.daily_traffic
         )

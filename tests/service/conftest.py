@@ -16,11 +16,10 @@ from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
-from service_helpers import Server
+from service_helpers import Server, _libpq, reachable_postgres
 
 from service.storage import Storage
 
-REPO = Path(__file__).resolve().parents[2]
 IN_CI = os.environ.get("CI", "").strip().lower() == "true"
 PG_CANDIDATES = (
     [os.environ["SEQTEST_TEST_POSTGRES_URL"]]
@@ -32,27 +31,10 @@ PG_CANDIDATES = (
 )
 
 
-def _libpq(url: str) -> str:
-    return url.replace("postgresql+psycopg://", "postgresql://", 1)
-
-
 @pytest.fixture(scope="session")
 def postgres_base() -> str:
     """A reachable PostgreSQL URL (no schema chosen yet)."""
-    import psycopg
-
-    problems = []
-    for url in PG_CANDIDATES:
-        try:
-            with psycopg.connect(_libpq(url), connect_timeout=3) as conn:
-                conn.execute("SELECT 1")
-            return url
-        except psycopg.Error as exc:
-            problems.append(f"{url}: {str(exc).strip().splitlines()[0]}")
-    message = "PostgreSQL is not reachable: " + "; ".join(problems)
-    if IN_CI:
-        pytest.fail(message + " (CI=true: the PostgreSQL tests must run in CI)")
-    pytest.skip(message)
+    return reachable_postgres(PG_CANDIDATES, in_ci=IN_CI)
 
 
 @contextmanager

@@ -17,6 +17,29 @@ from service.storage import Storage
 REPO = Path(__file__).resolve().parents[2]
 
 
+def _libpq(url: str) -> str:
+    return url.replace("postgresql+psycopg://", "postgresql://", 1)
+
+
+def reachable_postgres(candidates: list[str], *, in_ci: bool) -> str:
+    """The first URL that answers; otherwise skip the test, or fail it in CI."""
+    import psycopg
+    import pytest
+
+    problems = []
+    for url in candidates:
+        try:
+            with psycopg.connect(_libpq(url), connect_timeout=3) as conn:
+                conn.execute("SELECT 1")
+            return url
+        except psycopg.Error as exc:
+            problems.append(f"{url}: {str(exc).strip().splitlines()[0]}")
+    message = "PostgreSQL is not reachable: " + "; ".join(problems)
+    if in_ci:
+        pytest.fail(message + " (CI=true: the PostgreSQL tests must run in CI)")
+    pytest.skip(message)
+
+
 # --------------------------------------------------------------------- a real server
 
 _RUNNING = re.compile(r"Uvicorn running on http://127\.0\.0\.1:(\d+)")
