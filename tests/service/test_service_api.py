@@ -416,3 +416,22 @@ def test_amendment_is_a_new_recorded_version(client: TestClient, key):
                              json={"reason": "x", "design": {"looks": 4, "metric": {
                                  "kind": "rate", "baseline": 1.0, "mde": 0.1}}}),
                  422, "metric")
+
+
+def test_mixture_plan_is_monitored_by_the_library(client: TestClient, key):
+    """A continuous-monitoring (mixture SPRT) plan designed from its inputs: no
+    boundary table, and each look's answer equals the library's own analysis."""
+    exp = create(client, key, design={"kind": "mixture", "alpha": 0.05,
+                                      "metric": BINARY_METRIC})
+    assert exp["plan"]["kind"] == "mixture" and exp["plan"]["boundaries"] is None
+    r = look(client, key, exp["id"], (1000, 100), (1000, 130))
+    assert r.status_code == 201, r.text
+    plan = seqtest.plans.plan_from_dict(exp["plan"]["document"])
+    history = [{"control": {"n": 1000, "successes": 100},
+                "treatment": {"n": 1000, "successes": 130}}]
+    expected = json_safe(monitor.analyze(plan, history, metric="binary",
+                                         allocation=1.0).to_dict())
+    assert r.json()["analysis"] == expected
+    assert_error(client.post("/v1/experiments", headers=key, json={
+        "name": "x", "design": {"kind": "mixture", "looks": 4, "metric": BINARY_METRIC}}),
+        422, "looks", "mixture")
