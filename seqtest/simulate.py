@@ -11,8 +11,9 @@ through :func:`seqtest.metrics.effect` (vectorised over replicates and looks) fo
 the z statistic; the information fraction is ``(n_control + n_treatment) / n_max``
 exactly as :func:`seqtest.monitor.analyze` measures it; the boundaries come from
 :func:`seqtest.monitor.bounds_at` on those observed fractions, computed exactly once
-per distinct pattern of fractions (one call for fixed traffic; one per replicate,
-less the repeats, for random traffic); the stop is :func:`seqtest.monitor.decide`.
+per distinct pattern of fractions in each chunk (one call per chunk for fixed
+traffic; one per replicate, less the repeats, for random traffic; fractions are
+never rounded to share boundaries); the stop is :func:`seqtest.monitor.decide`.
 Mixture (continuous-monitoring) plans go through :func:`seqtest.mixture.always_valid`.
 
 Data are drawn as per-arm totals at each look, increment by increment:
@@ -336,7 +337,8 @@ class SimulationResult:
         ]
         if self.naive is not None:
             nv = self.naive
-            lines.append(f"Naive baseline (|z| >= {nv.z:.3f} at every look): {nv.rate:.4f}  "
+            test = f"|z| >= {nv.z:.3f}" if self.sides == 2 else f"z >= {nv.z:.3f}"
+            lines.append(f"Naive baseline ({test} at every look): {nv.rate:.4f}  "
                          f"({pct} CI {nv.ci_lower:.4f} to {nv.ci_upper:.4f})")
         lines.append(f"Expected total sample: {self.expected_total:,.1f} +- "
                      f"{self.expected_total_se:,.1f} (MC s.e.), "
@@ -1136,6 +1138,7 @@ def plot_result(result: SimulationResult, path: Any) -> Any:
             ax2.bar(looks, share[:, i], bottom=bottom, color=colors[o],
                     label=o.replace("_", " "), width=0.7)
             bottom += share[:, i]
+    ax2.set_ylim(0, max(float(bottom.max()) * 1.15, 1e-3))
     ax2.set_xlabel("look (mean information fraction)")
     step = max(1, result.looks // 12)
     ticks = looks[::step]
