@@ -468,6 +468,10 @@ def mixture_plan(
             )
         scale = m["scale"]
         delta, unit_control = sizing.delta_and_unit(m)
+        if scale == "relative":
+            # sizing works on the log ratio, as the test does; the plan keeps the
+            # relative effect r with delta = log(1 + r)
+            delta = math.expm1(delta)
         if mde is not None and not math.isclose(_real("mde", mde), delta, rel_tol=1e-12):
             raise ValueError(
                 f"mde: got {mde!r} but the metric's effect on the {scale} scale is "
@@ -475,12 +479,9 @@ def mixture_plan(
             )
         mde = delta
         if unit_variance is None:
-            # sizing's unit is se**2 times n_control; the cap is on the larger arm;
-            # on the relative scale the test runs on the log ratio, whose variance
-            # is that of the ratio over (1 + delta)**2 (delta method).
+            # sizing's unit is se**2 times n_control (of the log ratio on the
+            # relative scale); the cap is on the larger arm
             unit_variance = unit_control * max(1.0, m["allocation"])
-            if scale == "relative":
-                unit_variance /= (1.0 + delta) ** 2
         metric = m
     scale = "difference" if scale is None else scale
     if tau2 is not None:

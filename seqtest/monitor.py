@@ -416,7 +416,9 @@ def analyze(
         with np.errstate(divide="ignore", invalid="ignore"):
             w_est = np.log1p(est)
             w_se = se / (1.0 + est)
-            w_z = np.where(np.isfinite(w_se) & (w_se > 0), w_est / w_se, 0.0)
+            ok = np.isfinite(w_se) & (w_se > 0)
+            w_z = np.where(ok, w_est / w_se, 0.0)
+            info = np.where(ok, 1.0 / np.square(np.where(ok, w_se, 1.0)), 0.0)
     else:
         w_est, w_se, w_z = est, se, z
     k = est.size

@@ -2,9 +2,10 @@
 
 For two arms with per-unit variances ``v_c``, ``v_t`` and allocation ratio
 ``q = n_t / n_c``, the difference of means has variance ``v_c / n_c + v_t / n_t``,
-so information ``I`` needs ``n_c = I (v_c + v_t / q)``. On the relative scale
-(``m_t / m_c - 1``) the delta method gives variance
-``v_t / (n_t m_c^2) + m_t^2 v_c / (n_c m_c^4)``.
+so information ``I`` needs ``n_c = I (v_c + v_t / q)``. A relative effect
+(``m_t / m_c - 1``) is tested on the log ratio ``log(m_t / m_c)``, whose variance by
+the delta method is ``v_c / (n_c m_c^2) + v_t / (n_t m_t^2)``; its design effect is
+``log(1 + r)``.
 
 Per-unit variances, evaluated at the design alternative (unpooled, matching the
 information ``1 / se^2`` that monitoring uses):
@@ -150,8 +151,10 @@ def delta_and_unit(m: dict) -> tuple[float, float]:
     v_c, v_t = _variances(m)
     q = m["allocation"]
     if m["scale"] == "relative":
-        delta = m_t / m_c - 1.0
-        unit = m_t * m_t * v_c / m_c ** 4 + v_t / (q * m_c * m_c)
+        # relative effects are tested on the log ratio (see seqtest.monitor), whose
+        # delta-method variance is v_c / (n_c m_c^2) + v_t / (n_t m_t^2)
+        delta = math.log(m_t / m_c)
+        unit = v_c / (m_c * m_c) + v_t / (q * m_t * m_t)
     else:
         delta = m_t - m_c if m["kind"] != "continuous" or m["relative"] else m["mde"]
         unit = v_c + v_t / q
@@ -173,7 +176,8 @@ class SampleSize:
     expected_null, expected_alternative : float
         Expected total (both arms) at stopping under the null and the design effect.
     delta : float
-        Design effect on the analysis scale.
+        Design effect on the scale the test runs on (``log(1 + r)`` for a relative
+        effect).
     max_information : float
         ``(drift / delta)^2``.
     """

@@ -162,11 +162,6 @@ def test_rates_by_hand():
     assert rel.n_control == ss.n_control  # 5% of 2.0 is 0.1
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "sizing.delta_and_unit sizes scale='relative' on the ratio m_t/m_c - 1 with the "
-    "ratio's variance, while monitoring tests log(1 + r): the planned n gives the wrong "
-    "power (z 2.50 instead of 2.80 at mde -20%). Fix: delta = log(m_t/m_c), "
-    "unit = v_c/m_c^2 + v_t/(q m_t^2)"))
 @pytest.mark.parametrize("mde", [0.2, -0.2, 0.5])
 def test_relative_scale_sizes_the_statistic_monitoring_uses(mde):
     # Monitoring (seqtest.monitor docstring) tests a relative effect on log(1 + r)
