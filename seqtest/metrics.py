@@ -61,6 +61,9 @@ ALTERNATIVE_FIELDS: dict[str, tuple[str, ...]] = {
 METRIC_KINDS: tuple[str, ...] = tuple(METRIC_FIELDS)
 SCALES: tuple[str, ...] = ("difference", "relative")
 
+# Largest absolute value accepted for any total (counts, sums, sums of squares).
+MAX_TOTAL = 1e30
+
 # Totals that are counts of units or events: whole numbers, never negative.
 _WHOLE_FIELDS = frozenset({"n", "successes", "events"})
 # Totals that can only grow from one look to the next.
@@ -146,6 +149,12 @@ def _number(value: object, look: int, arm: str, field: str) -> float:
     x = float(value)
     if not math.isfinite(x):
         raise LookDataError(f"{x} is not a finite number", look=look, arm=arm, field=field)
+    if abs(x) > MAX_TOTAL:
+        # Far above any real total (even sums of squared cents), far below where
+        # squares and products of totals overflow double floats.
+        raise LookDataError(f"{x:g} is larger than {MAX_TOTAL:g} in absolute value, beyond "
+                            "any plausible total; check the units", look=look, arm=arm,
+                            field=field)
     return x
 
 

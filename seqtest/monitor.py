@@ -62,6 +62,8 @@ CAUTION = ("seqtest supports, and does not replace, a qualified statistician and
            "rules that govern the study (for a medical trial: its protocol and its data "
            "monitoring committee).")
 _TERMINAL = ("stop_efficacy", "complete_not_significant")
+# |z| beyond which stage-wise inference is not attempted (the grid reaches |z| = 40)
+_Z_INFERENCE_MAX = 30.0
 
 
 # -- boundaries on observed fractions ------------------------------------------------
@@ -507,7 +509,15 @@ def analyze(
         decision = records[-1].decision
 
     fin = proj = None
-    if stopped is not None:
+    if stopped is not None and degenerate[stopped - 1]:
+        warnings.append(f"look {stopped}: no variation in either arm, so no adjusted "
+                        "p-value or interval can be computed")
+    elif stopped is not None and abs(w_z[stopped - 1]) > _Z_INFERENCE_MAX:
+        warnings.append(f"look {stopped}: |z| = {abs(w_z[stopped - 1]):.1f} is beyond "
+                        f"{_Z_INFERENCE_MAX:g}, where the unadjusted p-value is below 1e-190 "
+                        "and the numerical integration for the adjusted interval does not "
+                        "reach; check the totals, and use the unadjusted figures with care")
+    elif stopped is not None:
         w_info = 1.0 / np.square(w_se[:stopped])
         fin = _final_inference(plan, w_z[:stopped], w_info, t[:stopped],
                                a_all[:stopped], w_est[stopped - 1], w_se[stopped - 1],
@@ -538,7 +548,7 @@ def srm_at_look(kind: str, n_c: float, n_t: float, allocation: float, threshold:
         return None
     try:
         srm = metrics.srm_check(int(round(n_c)), int(round(n_t)), allocation, threshold)
-    except ValueError:
+    except (ValueError, ArithmeticError):
         return None
     if srm.mismatch:
         warnings.append(f"look {look}: {srm.message}")

@@ -787,3 +787,34 @@ def test_information_fraction_with_a_zero_variance_look_names_the_look():
         assert "look 1" in str(exc)
     else:                            # or going on, as fraction="sample" does, with a warning
         assert an.decision == "continue" and any("look 1" in w for w in an.warnings)
+
+
+# ---------------------------------------------------------------------------
+# Extreme but valid data (found by the service's fuzz test)
+# ---------------------------------------------------------------------------
+
+def test_huge_z_decides_and_explains_missing_adjusted_inference():
+    # |z| near 137 is far beyond the integration grid (|z| < 40): the decision is
+    # still given, the adjusted inference is withheld with a warning, not a crash.
+    plan = seqtest.design(looks=3, metric={"kind": "binary", "baseline": 0.1, "mde": 0.02})
+    an = seqtest.analyze(plan, [{"control": {"n": 1964, "successes": 23},
+                                 "treatment": {"n": 1964, "successes": 1805}}])
+    assert an.decision == "stop_efficacy" and an.direction == "treatment_better"
+    assert an.final is None and any("beyond" in w for w in an.warnings)
+    json.dumps(an.to_dict(), allow_nan=False)
+
+
+def test_zero_variance_final_look_has_no_adjusted_inference():
+    plan = seqtest.design(looks=3, metric={"kind": "continuous", "sd": 1.0, "mde": 0.2})
+    zero = {"n": 1000, "sum": 0.0, "sum_sq": 0.0}
+    an = seqtest.analyze(plan, [{"control": zero, "treatment": zero}], final=True)
+    assert an.decision == "complete_not_significant" and an.final is None
+    assert any("no variation" in w for w in an.warnings)
+
+
+def test_absurd_totals_are_refused_naming_the_field():
+    plan = seqtest.design(looks=3, metric={"kind": "continuous", "sd": 1.0, "mde": 0.2})
+    arm = {"n": 1e300, "sum": 0.0, "sum_sq": 1e300}
+    with pytest.raises(LookDataError) as exc:
+        seqtest.analyze(plan, [{"control": arm, "treatment": arm}])
+    assert (exc.value.look, exc.value.arm, exc.value.field) == (1, "control", "n")
