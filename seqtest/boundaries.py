@@ -30,6 +30,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -50,20 +51,31 @@ _BIG = 40.0  # |z| beyond this has probability below 1e-300: treated as infinity
 _SQRT2PI = math.sqrt(2.0 * math.pi)
 
 
-def _grid(mu: float, lo: float, hi: float, r: int) -> tuple[np.ndarray, np.ndarray]:
-    """Simpson nodes and weights on ``[lo, hi]`` for a density centred at ``mu``."""
+@functools.lru_cache(maxsize=64)
+def _grid_offsets(r: int) -> np.ndarray:
+    """The ``6 r - 1`` grid points of Jennison and Turnbull around a mean of 0."""
     i = np.arange(1, 6 * r, dtype=float)
     x = np.where(
         i < r,
-        mu - 3.0 - 4.0 * np.log(r / i),
-        np.where(i <= 5 * r, mu - 3.0 + 3.0 * (i - r) / (2.0 * r),
-                 mu + 3.0 + 4.0 * np.log(r / np.maximum(6 * r - i, 1e-300))),
+        -3.0 - 4.0 * np.log(r / i),
+        np.where(i <= 5 * r, -3.0 + 3.0 * (i - r) / (2.0 * r),
+                 3.0 + 4.0 * np.log(r / np.maximum(6 * r - i, 1e-300))),
     )
-    lo_eff = max(lo, x[0])
-    hi_eff = min(hi, x[-1])
+    x.setflags(write=False)
+    return x
+
+
+def _grid(mu: float, lo: float, hi: float, r: int) -> tuple[np.ndarray, np.ndarray]:
+    """Simpson nodes and weights on ``[lo, hi]`` for a density centred at ``mu``."""
+    off = _grid_offsets(r)
+    lo_eff = max(lo, mu + off[0])
+    hi_eff = min(hi, mu + off[-1])
     if not lo_eff < hi_eff:
         return np.empty(0), np.empty(0)
-    inner = x[(x > lo_eff) & (x < hi_eff)]
+    a = int(np.searchsorted(off, lo_eff - mu, side="right"))
+    b = int(np.searchsorted(off, hi_eff - mu, side="left"))
+    inner = mu + off[a:b]
+    inner = inner[(inner > lo_eff) & (inner < hi_eff)]
     pts = np.concatenate(([lo_eff], inner, [hi_eff]))
     # odd points are the grid, even points the midpoints
     m = 2 * pts.size - 1
@@ -94,11 +106,17 @@ class _State:
         return cls(np.zeros(1), np.ones(1), 0.0, theta)
 
     def _moments(self, info_next: float) -> tuple[np.ndarray, float]:
+        # root finders query one state many times at the same next look
+        cached = self.__dict__.get("_cache")
+        if cached is not None and cached[0] == info_next:
+            return cached[1], cached[2]
         delta = info_next - self.info
         if delta <= 0:
             raise ValueError("info: information must be strictly increasing between looks")
         mean_s = self.z * math.sqrt(self.info) + self.theta * delta
-        return mean_s, math.sqrt(delta)
+        sd = math.sqrt(delta)
+        self.__dict__["_cache"] = (info_next, mean_s, sd)
+        return mean_s, sd
 
     def prob_above(self, u: float, info_next: float) -> float:
         if u >= _BIG:
