@@ -172,6 +172,7 @@ def cmd_plan(args: argparse.Namespace) -> int:
             raise UsageError("--csv: a mixture plan has no table of looks; use --json")
         if args.json != "-":
             print(mixture_summary(plan))
+            print(f"\nNote: {CAUTION}")
         return 0
     if args.max_n_per_arm is not None or args.tau2 is not None:
         raise UsageError("--max-n-per-arm and --tau2 are for --kind mixture")
@@ -194,6 +195,8 @@ def cmd_plan(args: argparse.Namespace) -> int:
         print(plan_summary(plan))
         print()
         print(_table(headers, rows))
+        print()
+        print(f"Note: {CAUTION}")
     return 0
 
 
