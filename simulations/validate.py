@@ -412,8 +412,8 @@ def _forest(rows: list[dict], title: str, path: Path) -> None:
     ratio = np.array([r["rate"] / r["alpha"] for r in rows])
     lo = np.array([r["ci95"][0] / r["alpha"] for r in rows])
     hi = np.array([r["ci95"][1] / r["alpha"] for r in rows])
-    colour = ["tab:red" if r["leak"] else ("tab:orange" if r["watch"] else "tab:blue")
-              for r in rows]
+    colour = ["tab:red" if r["leak"] or (r["watch"] and not r["gate"])
+              else ("tab:orange" if r["watch"] else "tab:blue") for r in rows]
     ax.hlines(y, lo, hi, colors=colour, lw=1.5)
     ax.scatter(ratio, y, c=colour, s=12, zorder=3)
     ax.axvline(1.0, color="black", lw=1, ls="--")
