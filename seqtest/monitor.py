@@ -36,7 +36,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, fields, is_dataclass
 from typing import Any
 
 import numpy as np
@@ -292,12 +292,21 @@ class Analysis:
 
     def to_dict(self) -> dict:
         """Plain JSON types (``inf`` and ``nan`` become ``None``)."""
-        return _clean(asdict(self))
+        return _clean(_shallow(self))
 
     def table(self) -> Any:
         """The look-by-look table as a pandas DataFrame."""
         import pandas as pd
         return pd.DataFrame([asdict(x) for x in self.looks]).set_index("look")
+
+
+def _shallow(x: Any) -> Any:
+    """``dataclasses.asdict`` without its deep copies (the values here are plain)."""
+    if is_dataclass(x) and not isinstance(x, type):
+        return {f.name: _shallow(getattr(x, f.name)) for f in fields(x)}
+    if isinstance(x, list):
+        return [_shallow(v) for v in x]
+    return x
 
 
 def _clean(x: Any) -> Any:
