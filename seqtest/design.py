@@ -312,9 +312,8 @@ class Plan:
     @classmethod
     def from_dict(cls, d: dict) -> Plan:
         """Read a plan document written by :meth:`to_dict` (no recomputation)."""
-        if not isinstance(d, dict) or d.get("kind") != PLAN_KIND:
-            got = d.get("kind") if isinstance(d, dict) else type(d).__name__
-            raise ValueError(f"plan: expected a document with kind {PLAN_KIND!r}, got {got!r}")
+        from seqtest.plans import check_document
+        check_document(d, PLAN_KIND)
         try:
             inp, comp = d["inputs"], d["computed"]
             t = _check_fractions(None, inp["info_fractions"])

@@ -20,7 +20,7 @@ from scipy import special
 from seqtest import metrics
 from seqtest.inference import naive_ci
 from seqtest.mixture import MixturePlan, always_valid_effect, half_width
-from seqtest.monitor import Analysis, FinalInference, LookResult, srm_at_look
+from seqtest.monitor import Analysis, FinalInference, LookResult, plan_metric, srm_at_look
 
 __all__ = ["analyze_mixture"]
 
@@ -30,16 +30,9 @@ def analyze_mixture(plan: MixturePlan, looks: Sequence[Mapping], *, metric: str 
                     srm_threshold: float = 0.001) -> Analysis:
     """Analyse looks under a :class:`~seqtest.mixture.MixturePlan` (see
     :func:`seqtest.monitor.analyze` for the arguments)."""
-    pm = plan.metric or {}
-    kind = metric or pm.get("kind")
-    if kind is None:
-        raise ValueError("metric: the plan has no metric; give metric='binary', "
-                         "'continuous' or 'rate'")
-    if pm and metric and metric != pm.get("kind"):
-        raise ValueError(f"metric: got {metric!r} but the plan is for {pm.get('kind')!r}")
+    _pm, kind, alloc = plan_metric(plan, metric, allocation)
     if len(looks) == 0:
         raise ValueError("looks: no looks given; post at least one look of totals")
-    alloc = float(allocation if allocation is not None else pm.get("allocation", 1.0))
     arms = metrics.validate_looks(kind, list(looks))
     eff = metrics.effect(kind, arms["control"], arms["treatment"], scale=plan.scale)
     res = always_valid_effect(eff, plan)

@@ -395,14 +395,7 @@ def analyze(
     if not isinstance(plan, Plan):
         raise ValueError(f"plan: got {type(plan).__name__}; allowed is a Plan, a "
                          "MixturePlan or a plan document")
-    pm = plan.metric or {}
-    kind = metric or pm.get("kind")
-    if kind is None:
-        raise ValueError("metric: the plan has no metric; give metric='binary', "
-                         "'continuous' or 'rate'")
-    if pm and metric and metric != pm.get("kind"):
-        raise ValueError(f"metric: got {metric!r} but the plan is for {pm.get('kind')!r}")
-    alloc = float(allocation if allocation is not None else pm.get("allocation", 1.0))
+    pm, kind, alloc = plan_metric(plan, metric, allocation)
     scale = pm.get("scale", "difference")
     if fraction not in ("sample", "information"):
         raise ValueError(f"fraction: got {fraction!r}; allowed are 'sample' and "
@@ -546,6 +539,21 @@ def analyze(
     return Analysis(decision=decision, direction=direction, stopped_at=stopped,
                     looks=records, final=fin, projection=proj, warnings=warnings,
                     metric=kind, scale=scale)
+
+
+def plan_metric(plan: Any, metric: str | None, allocation: float | None
+                ) -> tuple[dict, str, float]:
+    """The plan's metric description, the metric kind to analyse and the allocation,
+    reconciling the arguments with the plan."""
+    pm = getattr(plan, "metric", None) or {}
+    kind = metric or pm.get("kind")
+    if kind is None:
+        raise ValueError("metric: the plan has no metric; give metric='binary', "
+                         "'continuous' or 'rate'")
+    if pm and metric and metric != pm.get("kind"):
+        raise ValueError(f"metric: got {metric!r} but the plan is for {pm.get('kind')!r}")
+    alloc = float(allocation if allocation is not None else pm.get("allocation", 1.0))
+    return pm, kind, alloc
 
 
 def srm_at_look(kind: str, n_c: float, n_t: float, allocation: float, threshold: float,

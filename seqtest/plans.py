@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-__all__ = ["plan_from_dict", "PLAN_KINDS"]
+__all__ = ["plan_from_dict", "check_document", "PLAN_KINDS"]
 
 PLAN_KINDS = ("group_sequential", "mixture")
 
@@ -28,3 +28,10 @@ def plan_from_dict(d: dict) -> Any:
         from seqtest.mixture import MixturePlan
         return MixturePlan.from_dict(d)
     raise ValueError(f"plan.kind: got {kind!r}; allowed are {', '.join(PLAN_KINDS)}")
+
+
+def check_document(d: Any, kind: str) -> None:
+    """Refuse anything but a plan document of the given kind."""
+    if not isinstance(d, dict) or d.get("kind") != kind:
+        got = d.get("kind") if isinstance(d, dict) else type(d).__name__
+        raise ValueError(f"plan: expected a document with kind {kind!r}, got {got!r}")
