@@ -388,7 +388,8 @@ def analyze(
     if not isinstance(looks, (list, tuple)):
         kind_hint = metric or (getattr(plan, "metric", None) or {}).get("kind")
         looks = _looks_from_frame(looks, kind_hint)
-    if getattr(plan, "kind", None) == "mixture" or type(plan).__name__ == "MixturePlan":
+    from seqtest.mixture import MixturePlan
+    if isinstance(plan, MixturePlan):
         from seqtest.mixture_monitor import analyze_mixture
         return analyze_mixture(plan, list(looks), metric=metric, allocation=allocation,
                                final=final, srm_threshold=srm_threshold)

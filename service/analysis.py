@@ -51,6 +51,16 @@ def read_plan(document: dict[str, Any]) -> Any:
         raise InvalidPlan(f"The plan document is not usable: {_text(exc)}") from exc
 
 
+def build_plan_from(body: Any) -> NewPlan:
+    """The plan of a request body with ``plan`` (a document) or ``design`` (inputs)."""
+    design = body.design
+    return build_plan(
+        body.plan,
+        design.arguments() if design is not None else None,
+        design.kind if design is not None else "group_sequential",
+    )
+
+
 def build_plan(
     document: dict[str, Any] | None,
     design: dict[str, Any] | None,

@@ -548,6 +548,22 @@ class Storage:
             )
         return Stored(int(row[1]), json.loads(row[2]), replayed=True)
 
+    def _experiment_write(
+        self,
+        principal: Principal,
+        exp_id: str,
+        idem: Idempotency | None,
+        work: Callable[[Connection, Experiment], tuple[int, dict[str, Any]]],
+    ) -> Stored:
+        """:meth:`_idempotent_write` of ``work`` on one experiment, locked first."""
+        locked: dict[str, Experiment] = {}
+
+        def lock(conn: Connection) -> None:
+            locked["exp"] = self._lock_experiment(conn, principal.team_id, exp_id)
+
+        return self._idempotent_write(principal.team_id, idem,
+                                      lambda conn: work(conn, locked["exp"]), lock=lock)
+
     def _idempotent_write(
         self,
         team_id: str,
@@ -742,13 +758,7 @@ class Storage:
         :class:`service.errors.ServiceError`, which stores nothing.
         """
 
-        locked: dict[str, Experiment] = {}
-
-        def lock(conn: Connection) -> None:
-            locked["exp"] = self._lock_experiment(conn, principal.team_id, exp_id)
-
-        def work(conn: Connection) -> tuple[int, dict[str, Any]]:
-            exp = locked["exp"]
+        def work(conn: Connection, exp: Experiment) -> tuple[int, dict[str, Any]]:
             if exp.state in ("stopped", "completed"):
                 raise Conflict(
                     f"Experiment {exp_id!r} is {exp.state} (decision {exp.decision!r} at look "
@@ -802,7 +812,7 @@ class Storage:
             )
             return 201, render(exp_after, look)
 
-        return self._idempotent_write(principal.team_id, idem, work, lock=lock)
+        return self._experiment_write(principal, exp_id, idem, work)
 
     # -- amendments ---------------------------------------------------------------
 
@@ -822,13 +832,7 @@ class Storage:
         the amendment by raising.
         """
 
-        locked: dict[str, Experiment] = {}
-
-        def lock(conn: Connection) -> None:
-            locked["exp"] = self._lock_experiment(conn, principal.team_id, exp_id)
-
-        def work(conn: Connection) -> tuple[int, dict[str, Any]]:
-            exp = locked["exp"]
+        def work(conn: Connection, exp: Experiment) -> tuple[int, dict[str, Any]]:
             if exp.state in ("stopped", "completed"):
                 raise Conflict(
                     f"Experiment {exp_id!r} is {exp.state}; its plan can no longer be amended."
@@ -857,4 +861,4 @@ class Storage:
             exp_after = replace(exp, plan_version=version, updated_at=ts)
             return 201, render(exp_after, self._plan(conn, exp_id, version))
 
-        return self._idempotent_write(principal.team_id, idem, work, lock=lock)
+        return self._experiment_write(principal, exp_id, idem, work)

@@ -35,11 +35,7 @@ def amend_plan(
     posted from now on are analysed under the new version. The amendment records who
     (the API key), when, why, and after how many looks. Refused (409) once the
     experiment has stopped or completed."""
-    plan = analysis.build_plan(
-        body.plan,
-        body.design.arguments() if body.design is not None else None,
-        body.design.kind if body.design is not None else "group_sequential",
-    )
+    plan = analysis.build_plan_from(body)
 
     def check(exp: Experiment) -> None:
         analysis.resolve_metric(exp.metric, plan)

@@ -56,11 +56,7 @@ def create_experiment(
     given either as a plan document or as the inputs to design it. The answer carries
     the experiment's id and the plan's boundary table. The plan is frozen from the first
     look on; changes are recorded amendments."""
-    plan = analysis.build_plan(
-        body.plan,
-        body.design.arguments() if body.design is not None else None,
-        body.design.kind if body.design is not None else "group_sequential",
-    )
+    plan = analysis.build_plan_from(body)
     analysis.check_sizing(plan, body.max_n)
     new = NewExperiment(
         name=body.name,
