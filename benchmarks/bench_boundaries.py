@@ -4,7 +4,7 @@ Run on demand (never in CI): ``python benchmarks/bench_boundaries.py``.
 
 Part 1 times ``seqtest.design`` (boundaries, drift solve for the power and the
 cumulative alpha: the whole plan) and the boundary search alone
-(``seqtest.boundaries.spending_bounds``) for K = 5, 10, 20, 50 equally spaced
+(``seqtest.core.boundaries.spending_bounds``) for K = 5, 10, 20, 50 equally spaced
 looks, two-sided alpha 0.05, power 0.9, O'Brien-Fleming-type spending.
 
 Part 2 computes the same K = 5 plan through scipy's multivariate normal CDF:
@@ -31,7 +31,7 @@ import numpy as np
 from scipy import optimize, stats
 
 import seqtest
-from seqtest.boundaries import spending_bounds
+from seqtest.core.boundaries import spending_bounds
 
 ALPHA = 0.05
 POWER = 0.9

@@ -1,6 +1,6 @@
 """Benchmark: one million simulated experiments of five looks on a binary metric.
 
-Times :func:`seqtest.simulate.simulate` (draws, z statistics, boundaries, stopping
+Times :func:`seqtest.simulation.engine.simulate` (draws, z statistics, boundaries, stopping
 rule, tallies) against drawing the same random numbers alone (the same chunks,
 seeds and calls to the data generator, with nothing computed on them), side by
 side in one run, on one process and on all cores. Run on demand:
@@ -18,8 +18,8 @@ import time
 from concurrent.futures import ProcessPoolExecutor
 
 import seqtest
-from seqtest.scenarios import scenario_from_dict
-from seqtest.simulate import DEFAULT_CHUNK, _draw_chunk, _job, simulate
+from seqtest.simulation.engine import DEFAULT_CHUNK, _draw_chunk, _job, simulate
+from seqtest.simulation.scenarios import scenario_from_dict
 
 
 def _draw_only(job, index: int, n: int) -> int:

@@ -1,14 +1,88 @@
 """seqtest: sequential testing for controlled experiments.
 
-Pure computation: group-sequential plans with error spending, monitoring of
-interim looks, always-valid inference by the mixture SPRT, and simulation.
+Group-sequential plans with error spending, monitoring of interim looks with adjusted
+inference, always-valid inference by the mixture SPRT, and simulation of a plan's error
+rates. This module is the public surface; the layout behind it is described in
+DEVELOPERS.md (``core`` computes, ``planning`` designs plans, ``monitoring`` analyses
+looks, ``simulation`` checks plans, ``cli`` is the command line). Names are loaded on
+first use, so that ``import seqtest`` (and the command line) starts fast.
+
+    >>> import seqtest
+    >>> plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=5)
+    >>> plan.efficacy_z.round(3).tolist()
+    [4.877, 3.357, 2.68, 2.29, 2.031]
 """
 
-__version__ = "0.1.0"
+from __future__ import annotations
 
-from seqtest import spending  # noqa: E402
-from seqtest.design import Plan, design  # noqa: E402
-from seqtest.monitor import analyze  # noqa: E402
-from seqtest.plans import plan_from_dict  # noqa: E402
+import importlib
+from typing import TYPE_CHECKING, Any
 
-__all__ = ["Plan", "analyze", "design", "plan_from_dict", "spending", "__version__"]
+from seqtest.core.version import __version__
+
+if TYPE_CHECKING:  # the names below, for type checkers and readers
+    from seqtest import mixture, spending
+    from seqtest.core.errors import InputError, LookDataError, PlanDocumentError, SeqtestError
+    from seqtest.core.vocabulary import CAUTION, DECISIONS, Decision
+    from seqtest.monitoring.analysis import Analysis, LookResult, analyze
+    from seqtest.planning.design import Plan, design
+    from seqtest.planning.documents import plan_from_dict
+    from seqtest.planning.mixture import MixturePlan, mixture_plan
+
+#: public name -> the module that defines it
+_WHERE = {
+    "CAUTION": "seqtest.core.vocabulary",
+    "DECISIONS": "seqtest.core.vocabulary",
+    "Decision": "seqtest.core.vocabulary",
+    "InputError": "seqtest.core.errors",
+    "LookDataError": "seqtest.core.errors",
+    "PlanDocumentError": "seqtest.core.errors",
+    "SeqtestError": "seqtest.core.errors",
+    "Analysis": "seqtest.monitoring.analysis",
+    "LookResult": "seqtest.monitoring.analysis",
+    "analyze": "seqtest.monitoring.analysis",
+    "Plan": "seqtest.planning.design",
+    "design": "seqtest.planning.design",
+    "plan_from_dict": "seqtest.planning.documents",
+    "MixturePlan": "seqtest.planning.mixture",
+    "mixture_plan": "seqtest.planning.mixture",
+}
+_MODULES = {"mixture", "spending"}
+
+__all__ = [
+    "CAUTION",
+    "DECISIONS",
+    "Analysis",
+    "Decision",
+    "InputError",
+    "LookDataError",
+    "LookResult",
+    "MixturePlan",
+    "Plan",
+    "PlanDocumentError",
+    "SeqtestError",
+    "__version__",
+    "analyze",
+    "design",
+    "mixture",
+    "mixture_plan",
+    "plan_from_dict",
+    "spending",
+]
+assert set(__all__) == {"__version__", *_WHERE, *_MODULES}
+
+
+def __getattr__(name: str) -> Any:
+    if name in _MODULES:
+        module = importlib.import_module(f"seqtest.{name}")
+        globals()[name] = module
+        return module
+    if name in _WHERE:
+        value = getattr(importlib.import_module(_WHERE[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'seqtest' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))

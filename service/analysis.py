@@ -12,8 +12,8 @@ import math
 from typing import Any
 
 import seqtest
-from seqtest.metrics import ARMS, LookDataError
-from seqtest.plans import plan_from_dict
+from seqtest import LookDataError, plan_from_dict
+from seqtest.core.vocabulary import ARMS
 from service.errors import InvalidPlan, InvalidTotals, Unavailable, Unprocessable
 from service.storage import Experiment, NewLook, NewPlan, PlanVersion
 
@@ -194,7 +194,7 @@ def to_names(exp: Experiment, totals: dict[str, Any]) -> dict[str, Any]:
 
 def _monitor() -> Any:
     try:
-        from seqtest import monitor
+        from seqtest.monitoring import analysis as monitor
     except ImportError as exc:  # the library's monitor is not installed
         raise Unavailable(
             "Looks cannot be analysed: this installation of seqtest has no monitor. "
@@ -254,7 +254,7 @@ def analyze_look(
         ) from exc
     analysis = json_safe(result.to_dict())
     decision = analysis.get("decision")
-    if decision not in monitor.DECISIONS:
+    if decision not in seqtest.DECISIONS:
         raise RuntimeError(f"the monitor returned an unknown decision {decision!r}")
     if final or decision == "complete_not_significant":
         state = "completed"

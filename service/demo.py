@@ -67,3 +67,9 @@ def post_demo_looks(
         server.should_exit = True
         thread.join(timeout=30)
         store.close()
+
+
+def demo(plan: dict[str, Any], looks: Sequence[Mapping[str, Any]], out_dir: Path) -> str:
+    """The service's part of ``seqtest demo`` (entry point ``seqtest.demos``): post the
+    looks through a real loopback server on ``out_dir/demo.db``; the last decision."""
+    return post_demo_looks(plan, looks, Path(out_dir) / "demo.db")

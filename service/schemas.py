@@ -23,7 +23,7 @@ from pydantic import (
     model_validator,
 )
 
-from seqtest.metrics import METRIC_KINDS
+from seqtest.core.vocabulary import METRIC_KINDS
 
 MetricKind = Literal[METRIC_KINDS]  # type: ignore[valid-type]
 

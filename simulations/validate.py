@@ -1,6 +1,6 @@
 """Validation grid: does every shipped design hold its type I error?
 
-Runs a grid of simulation cells through :func:`seqtest.simulate.simulate` (the same
+Runs a grid of simulation cells through :func:`seqtest.simulation.engine.simulate` (the same
 decision code as monitoring) and writes a markdown report with PNG figures:
 
     python simulations/validate.py --grid reduced --out /tmp/validation
@@ -68,8 +68,8 @@ import numpy as np
 import seqtest
 from seqtest import spending
 from seqtest.mixture import mixture_plan
-from seqtest.scenarios import scenario_from_dict
-from seqtest.simulate import SimulationResult, clopper_pearson, simulate
+from seqtest.simulation.engine import SimulationResult, clopper_pearson, simulate
+from seqtest.simulation.scenarios import scenario_from_dict
 
 #: Overall type I error of repeated two-sided tests at nominal 0.05 after K equally
 #: spaced looks: Armitage, McPherson and Rowe (1969), JRSS A 132, 235-244; Jennison

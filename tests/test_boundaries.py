@@ -22,13 +22,9 @@ import pytest
 from scipy import stats
 
 from seqtest import spending
-from seqtest.boundaries import (
-    DEFAULT_R,
-    constant_bounds,
-    crossing_probabilities,
-    spending_bounds,
-)
-from seqtest.design import design
+from seqtest.core.boundaries import constant_bounds, spending_bounds
+from seqtest.core.recursion import DEFAULT_R, crossing_probabilities
+from seqtest.planning.design import design
 
 Z975 = stats.norm.isf(0.025)
 

@@ -29,7 +29,7 @@ def test_plan_table_matches_library(capsys):
     plan = seqtest.design(looks=5)
     for z in plan.efficacy_z:
         assert f"{z:.4f}" in out
-    assert "nominal_p" in out and "cum_alpha" in out and "futility_z" in out
+    assert "p_threshold" in out and "cumulative_alpha" in out and "futility_z" in out
 
 
 def test_plan_json_round_trip(tmp_path, capsys):
@@ -85,7 +85,7 @@ def test_plan_bad_input_exit_2_one_line(args, word, capsys):
 
 
 def test_bad_input_in_a_real_process_has_no_traceback():
-    proc = subprocess.run([sys.executable, "-m", "seqtest.cli", "plan", "--alpha", "2"],
+    proc = subprocess.run([sys.executable, "-m", "seqtest", "plan", "--alpha", "2"],
                           capture_output=True, text=True)
     assert proc.returncode == 2
     assert "Traceback" not in proc.stderr and "alpha" in proc.stderr
@@ -93,7 +93,7 @@ def test_bad_input_in_a_real_process_has_no_traceback():
 
 @pytest.fixture
 def plan_file(tmp_path):
-    from seqtest.demo import DEMO_PLAN
+    from seqtest.cli.demo import DEMO_PLAN
     p = tmp_path / "plan.json"
     p.write_text(json.dumps(seqtest.design(**DEMO_PLAN).to_dict()))
     return p
@@ -114,7 +114,7 @@ def test_analyze_example(plan_file, tmp_path, capsys):
     assert "Decision at look" in out and "statistician" in out
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     # the CLI's decision is the library's
-    from seqtest.lookfile import read_looks_csv
+    from seqtest.monitoring.lookfile import read_looks_csv
     lib = seqtest.analyze(seqtest.plan_from_dict(json.loads(plan_file.read_text())),
                           read_looks_csv(EXAMPLE, "binary"))
     assert lib.decision == doc["decision"]

@@ -18,9 +18,10 @@ import pytest
 from scipy import stats
 
 import seqtest
-from seqtest import classical, spending
-from seqtest.boundaries import crossing_probabilities
-from seqtest.design import Plan, design
+from seqtest import spending
+from seqtest.core import classical
+from seqtest.core.recursion import crossing_probabilities
+from seqtest.planning.design import Plan, design
 
 Z975 = stats.norm.isf(0.025)
 
@@ -517,7 +518,7 @@ def test_document_round_trip(kw):
     doc = plan.to_dict()
     assert doc["kind"] == "group_sequential"
     text = json.dumps(doc, allow_nan=False)  # plain JSON: no NaN or Infinity
-    back = Plan.from_dict(json.loads(text))
+    back = seqtest.plan_from_dict(json.loads(text))
     for name in ("info_fractions", "efficacy_z", "cumulative_alpha"):
         np.testing.assert_array_equal(getattr(back, name), getattr(plan, name))
     if plan.futility_z is None:
@@ -535,13 +536,15 @@ def test_document_round_trip(kw):
 
 
 @pytest.mark.parametrize("doc, argument", [
-    ({"kind": "mixture"}, "plan"),
+    ({"kind": "mixture"}, "inputs"),
     ([], "plan"),
-    ({"kind": "group_sequential"}, "plan"),
+    ({"kind": "group_sequential"}, "inputs"),
+    ({"kind": "sequential"}, "kind"),
 ])
 def test_bad_documents(doc, argument):
+    # common practice: a refused document names the field at fault
     with pytest.raises(ValueError, match=f"^{argument}: "):
-        Plan.from_dict(doc)
+        seqtest.plan_from_dict(doc)
 
 
 # ---------------------------------------------------------------------------
@@ -594,7 +597,8 @@ BAD = [
 
 @pytest.mark.parametrize("kw, argument", BAD, ids=[f"{a}-{i}" for i, (_, a) in enumerate(BAD)])
 def test_bad_inputs_raise_valueerror_naming_the_argument(kw, argument):
-    with pytest.raises(ValueError, match=f"^{argument}: "):
+    # the message names the argument, and the element of a list when one is at fault
+    with pytest.raises(ValueError, match=rf"^{argument}(\[\d+\])?: "):
         design(**kw)
 
 

@@ -28,7 +28,21 @@ import pytest
 from scipy import stats
 
 import seqtest
-from seqtest import inference, monitor
+from seqtest.core.region import Region, first_stop
+from seqtest.monitoring import inference
+from seqtest.monitoring.rules import GroupSequentialRule
+
+
+def region(upper, lower, sides):
+    """The continuation region with these efficacy exits (no futility)."""
+    up = np.asarray(upper, float)
+    lo = np.full(up.shape, -np.inf) if lower is None else np.asarray(lower, float)
+    return Region(up, lo, None, sides == 2)
+
+
+def decide(z, a, b, sides):
+    reg = Region.of_plan(sides, np.broadcast_to(a, np.shape(z)), None)
+    return first_stop(reg.classify(z))
 
 # Requested absolute accuracy of the multivariate normal integration (Genz); the
 # engine's own accuracy is about 1e-7 on probabilities (seqtest.boundaries).
@@ -100,7 +114,7 @@ def test_stagewise_one_look_is_the_fixed_sample_z_test(z, sides):
     info = 250.0
     se = 1 / math.sqrt(info)
     est = z * se
-    r = inference.stagewise([z], [info], [1.96], [-1.96] if sides == 2 else None,
+    r = inference.stagewise([z], [info], region([1.96], [-1.96] if sides == 2 else None, sides),
                             alpha=0.05, sides=sides)
     p_ref = 2 * stats.norm.sf(abs(z)) if sides == 2 else stats.norm.sf(z)
     assert r.p_value == pytest.approx(p_ref, rel=1e-6, abs=1e-12)
@@ -141,11 +155,11 @@ def test_stagewise_matches_its_definition_by_multivariate_normal(case):
     plan = seqtest.design(alpha=alpha, sides=sides, power=0.9, looks=5)
     t = np.array(case["frac"])
     final = t[-1] >= 1
-    a, _ = monitor.bounds_at(plan, t, final=final)
+    a, _ = GroupSequentialRule(plan).boundaries(t, final=final)
     lower = -a if sides == 2 else np.full(t.size, -np.inf)
     info = t * case["imax"]
     z = np.array(case["z"])
-    r = inference.stagewise(z, info, a, lower, alpha=alpha, sides=sides)
+    r = inference.stagewise(z, info, region(a, lower, sides), alpha=alpha, sides=sides)
 
     p_up = mvn_stagewise_upper(0.0, z, info, a, lower)
     if sides == 2:
@@ -172,7 +186,7 @@ def test_stagewise_matches_its_definition_by_multivariate_normal(case):
 def test_stagewise_refuses_mismatched_lengths():
     # common practice: inputs validated at the public boundary
     with pytest.raises(ValueError, match="one value per look"):
-        inference.stagewise([1.0, 2.0], [10.0], [3.0, 2.0], None)
+        inference.stagewise([1.0, 2.0], [10.0], region([3.0, 2.0], None, 1))
 
 
 # ---------------------------------------------------------------------------
@@ -211,20 +225,20 @@ def test_median_unbiased_and_stagewise_coverage_by_simulation(case):
     plan = seqtest.design(alpha=alpha, sides=sides, power=0.9, looks=case["looks"],
                           efficacy=case["spending"])
     t = plan.info_fractions if case["frac"] is None else np.array(case["frac"])
-    a, _ = monitor.bounds_at(plan, t, final=True)
+    a, _ = GroupSequentialRule(plan).boundaries(t, final=True)
     lower = -a if sides == 2 else np.full(t.size, -np.inf)
     i_max = 250.0                      # information at fraction 1 (any value works)
     theta = case["effect"] * plan.drift / math.sqrt(i_max)   # effect in estimate units
     rng = np.random.default_rng(case["seed"])
     n = case["reps"]
     z = _brownian_z(rng, n, t, theta * math.sqrt(i_max))
-    stop, _ = monitor.decide(z, a, None, sides)
+    stop, _ = decide(z, a, None, sides)
     info = t * i_max
     below = covered = naive_below = 0
     for i in range(n):
         k = int(stop[i]) + 1
-        r = inference.stagewise(z[i, :k], info[:k], a[:k], lower[:k], alpha=alpha,
-                                sides=sides)
+        r = inference.stagewise(z[i, :k], info[:k], region(a[:k], lower[:k], sides),
+                                alpha=alpha, sides=sides)
         below += r.median_unbiased < theta
         covered += r.ci_lower <= theta <= r.ci_upper
         naive_below += z[i, k - 1] / math.sqrt(info[k - 1]) < theta
@@ -278,7 +292,7 @@ def test_repeated_ci_simultaneous_coverage_by_simulation(case, effect):
     plan = seqtest.design(alpha=alpha, sides=sides, power=0.9, looks=5,
                           efficacy=case["spending"])
     t = np.array(case["frac"])
-    a, _ = monitor.bounds_at(plan, t, final=True)
+    a, _ = GroupSequentialRule(plan).boundaries(t, final=True)
     i_max = 120.0
     theta = effect * plan.drift / math.sqrt(i_max)
     rng = np.random.default_rng(case["seed"])

@@ -1,6 +1,6 @@
-"""Tests for seqtest.lookfile: the CSV layout of looks.
+"""Tests for seqtest.monitoring.lookfile: the CSV layout of looks.
 
-The layout is the one documented in the module docstring of seqtest.lookfile (one
+The layout is the one documented in the module docstring of seqtest.monitoring.lookfile (one
 row per look, ``<arm>_<field>`` columns of cumulative totals, the alternative names
 listed there). Numerical checks of an analysed file name their outside source.
 """
@@ -14,8 +14,8 @@ import pytest
 from statsmodels.stats import proportion as sm_proportion
 
 import seqtest
-from seqtest.lookfile import expected_columns, looks_from_frame, read_looks_csv
-from seqtest.metrics import METRIC_FIELDS, LookDataError
+from seqtest.monitoring.lookfile import expected_columns, looks_from_frame, read_looks_csv
+from seqtest.monitoring.metrics import METRIC_FIELDS, LookDataError
 
 BINARY_ROWS = [(1000, 100, 1000, 112), (2000, 205, 2000, 236), (3000, 301, 3000, 352)]
 BINARY_LOOKS = [{"control": {"n": nc, "successes": sc}, "treatment": {"n": nt, "successes": st}}

@@ -1,4 +1,4 @@
-"""Tests for seqtest.metrics: effects from per-arm totals, validation of looks, SRM.
+"""Tests for seqtest.monitoring.metrics: effects from per-arm totals, validation of looks, SRM.
 
 Every numerical check names its outside source beside it.
 """
@@ -15,7 +15,7 @@ from statsmodels.stats import proportion as sm_proportion
 from statsmodels.stats import rates as sm_rates
 from statsmodels.stats.power import NormalIndPower
 
-from seqtest.metrics import (
+from seqtest.monitoring.metrics import (
     METRIC_FIELDS,
     Effect,
     LookDataError,
@@ -336,9 +336,10 @@ def test_continuous_large_mean_cancellation():
 @pytest.mark.parametrize(
     "kwargs, message",
     [
-        (dict(kind="proportion", control={}, treatment={}), "kind must be one of"),
+        (dict(kind="proportion", control={}, treatment={}), "kind: got .*; allowed is one of"),
         (dict(kind="binary", control={"n": 10, "successes": 1},
-              treatment={"n": 10, "successes": 1}, scale="log"), "scale must be one of"),
+              treatment={"n": 10, "successes": 1}, scale="log"),
+         "scale: got .*; allowed is one of"),
         (dict(kind="binary", control={"n": 10}, treatment={"n": 10, "successes": 1}),
          "control is missing successes"),
         (dict(kind="binary", control={"n": 0, "successes": 0},
@@ -497,7 +498,8 @@ def test_validate_looks_unknown_and_missing_arms():
 
 
 def test_validate_looks_bad_containers_and_kind():
-    with pytest.raises(ValueError, match="kind must be one of 'binary', 'continuous', 'rate'"):
+    with pytest.raises(ValueError,
+                       match="kind: got .*; allowed is one of binary, continuous, rate"):
         validate_looks("ratio", _binary_looks())
     with pytest.raises(LookDataError, match="looks is empty"):
         validate_looks("binary", [])
@@ -599,7 +601,7 @@ def test_arm_unit_variances_relative_match_effect_se(kind, control, treatment):
         ("continuous", {"sd": -1.0}, "sd must be a finite number >= 0; got -1.0"),
         ("rate", {"rate": float("inf")}, "rate must be a finite number >= 0"),
         ("rate", {}, "got none"),
-        ("count", {"rate": 1.0}, "kind must be one of"),
+        ("count", {"rate": 1.0}, "kind: got .*; allowed is one of"),
     ],
 )
 def test_unit_variance_rejects(kind, params, message):

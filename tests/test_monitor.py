@@ -25,8 +25,21 @@ from scipy import stats
 from statsmodels.stats import proportion as sm_proportion
 
 import seqtest
-from seqtest import metrics, monitor, spending
-from seqtest.metrics import LookDataError
+from seqtest import spending
+from seqtest.core.region import Region, first_stop
+from seqtest.core.vocabulary import DECISIONS
+from seqtest.monitoring import metrics
+from seqtest.monitoring.metrics import LookDataError
+from seqtest.monitoring.rules import GroupSequentialRule
+
+
+def decide(z, efficacy_z, futility_z, sides, *, final_last=True, obey_futility=True):
+    """The stopping rule over many paths, as the simulator runs it."""
+    region = Region.of_plan(sides, np.broadcast_to(efficacy_z, np.shape(z)),
+                            None if futility_z is None
+                            else np.broadcast_to(futility_z, np.shape(z)))
+    return first_stop(region.classify(z), final_last=final_last,
+                      obey_futility=obey_futility)
 
 MVN_ABSEPS = 1e-7            # requested absolute error of scipy's MVN integration
 PROB_TOL = 5 * MVN_ABSEPS    # plus the engine's ~1e-7 (seqtest.boundaries docstring)
@@ -272,7 +285,7 @@ def test_bounds_at_spends_the_spending_function_increments(label, frac, final, s
     f = SPENDERS[spender]
     plan = seqtest.design(alpha=alpha, sides=sides, power=0.9, looks=5, efficacy=f)
     t = np.array(frac)
-    a, fut = monitor.bounds_at(plan, t, final=final)
+    a, fut = GroupSequentialRule(plan).boundaries(t, final=final)
     assert fut is None
     a_tail = alpha / sides
     cum = np.asarray(f(np.minimum(t, 1.0), a_tail), float)
@@ -294,13 +307,13 @@ def test_bounds_at_final_look_spends_more_than_an_interim_at_the_same_fraction()
     # boundary is lower than that of an interim look at the same fraction.
     plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=5)
     t = [0.2, 0.4, 0.6, 0.75]
-    a_int, _ = monitor.bounds_at(plan, t)
-    a_fin, _ = monitor.bounds_at(plan, t, final=True)
+    a_int, _ = GroupSequentialRule(plan).boundaries(t)
+    a_fin, _ = GroupSequentialRule(plan).boundaries(t, final=True)
     np.testing.assert_allclose(a_int[:-1], a_fin[:-1], rtol=1e-12)
     assert a_fin[-1] < a_int[-1] - 0.3
     # fraction >= 1 is final whatever the flag says
-    a1, _ = monitor.bounds_at(plan, [0.2, 0.4, 1.0])
-    a2, _ = monitor.bounds_at(plan, [0.2, 0.4, 1.0], final=True)
+    a1, _ = GroupSequentialRule(plan).boundaries([0.2, 0.4, 1.0])
+    a2, _ = GroupSequentialRule(plan).boundaries([0.2, 0.4, 1.0], final=True)
     assert a1[-1] == pytest.approx(a2[-1], rel=1e-12)
 
 
@@ -314,7 +327,7 @@ def test_bounds_at_binding_futility_spends_alpha_and_beta(frac):
     plan = seqtest.design(alpha=0.025, sides=1, power=0.9, looks=4, futility="hsd:-2",
                           binding=True)
     t = np.array(frac)
-    a, b = monitor.bounds_at(plan, t)
+    a, b = GroupSequentialRule(plan).boundaries(t)
     final = t[-1] >= 1
     cum_a = np.asarray(plan.efficacy(np.minimum(t, 1), 0.025), float)
     cum_b = np.asarray(plan.futility(np.minimum(t, 1), 0.1), float)
@@ -338,8 +351,8 @@ def test_bounds_at_non_binding_futility_leaves_efficacy_unchanged():
     with_f = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=4, futility="pocock-type")
     without = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=4)
     t = [0.3, 0.5, 0.8]
-    a_f, b_f = monitor.bounds_at(with_f, t)
-    a_0, _ = monitor.bounds_at(without, t)
+    a_f, b_f = GroupSequentialRule(with_f).boundaries(t)
+    a_0, _ = GroupSequentialRule(without).boundaries(t)
     np.testing.assert_allclose(a_f, a_0, rtol=1e-10)
     assert b_f is not None and np.all(b_f < a_f)
 
@@ -352,7 +365,7 @@ def test_bounds_at_classical_plans_reproduce_published_constants():
     for name, expected in [("pocock", np.full(5, 2.413)),
                            ("obrien-fleming", 2.040 * np.sqrt(5 / k))]:
         plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=5, efficacy=name)
-        a, _ = monitor.bounds_at(plan, plan.info_fractions)
+        a, _ = GroupSequentialRule(plan).boundaries(plan.info_fractions)
         # rounding of the tabulated constant, scaled for O'Brien-Fleming, plus 1e-4
         tol = (0.0005 * np.sqrt(5 / k) if name == "obrien-fleming" else 0.0005) + 1e-4
         assert np.all(np.abs(a - expected) <= tol), (name, a, expected)
@@ -363,7 +376,7 @@ def test_bounds_at_refuses_bad_fractions():
     plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=3)
     for bad in ([], [0.0, 0.5], [0.5, 0.4], [0.3, np.nan], [0.5, 1.0, 1.2]):
         with pytest.raises(ValueError, match="fractions"):
-            monitor.bounds_at(plan, bad)
+            GroupSequentialRule(plan).boundaries(bad)
 
 
 # ---------------------------------------------------------------------------
@@ -476,7 +489,7 @@ def test_final_look_spends_all_that_is_left(how):
     assert first_crossing_upper(t, a, -a).sum() == pytest.approx(0.025, abs=3 * PROB_TOL)
     # a z between this final boundary and the interim boundary at the same fraction
     # stops for efficacy only because the look is final
-    a_interim, _ = monitor.bounds_at(plan, t[:2].tolist() + [min(t[2], 0.99)])
+    a_interim, _ = GroupSequentialRule(plan).boundaries(t[:2].tolist() + [min(t[2], 0.99)])
     z3 = 0.5 * (a[-1] + a_interim[-1])
     ns = [1000, 2000, 3500] if how == "declared" else [1000, 2000, 6000]
     an = seqtest.analyze(plan, continuous_looks([0.5, 1.0, z3], ns), metric="continuous",
@@ -510,26 +523,26 @@ def test_vectorised_decide_agrees_with_analyze(zs):
                           futility="obrien-fleming-type", binding=True)
     an = seqtest.analyze(plan, continuous_looks(zs, [1000, 2000, 3000]), metric="continuous",
                          max_n=6000)
-    a, b = monitor.bounds_at(plan, plan.info_fractions)
-    stop, outcome = monitor.decide(np.array([zs]), a, b, 1)
+    a, b = GroupSequentialRule(plan).boundaries(plan.info_fractions)
+    stop, outcome = decide(np.array([zs]), a, b, 1)
     assert int(stop[0]) + 1 == an.stopped_at
-    assert monitor.DECISIONS[int(outcome[0])] == an.decision
+    assert DECISIONS[int(outcome[0])] == an.decision
 
 
 def test_decide_vectorised_shapes_and_sides():
     # Two-sided: |z| >= a stops for efficacy; the sign tells the direction.
     a = np.array([3.0, 2.5, 2.0])
     z = np.array([[3.1, 0, 0], [-3.2, 0, 0], [1.0, 2.6, 0], [1.0, 1.0, 1.0], [1.0, 1.0, -2.1]])
-    stop, out = monitor.decide(z, a, None, 2)
+    stop, out = decide(z, a, None, 2)
     assert stop.tolist() == [0, 0, 1, 2, 2]
-    assert [monitor.DECISIONS[o] for o in out] == [
+    assert [DECISIONS[o] for o in out] == [
         "stop_efficacy", "stop_efficacy", "stop_efficacy", "complete_not_significant",
         "stop_efficacy"]
-    stop, out = monitor.decide(z, a, None, 1)
-    assert [monitor.DECISIONS[o] for o in out][1] == "complete_not_significant"
-    stop, out = monitor.decide(z[:, :2], a[:2], None, 2, final_last=False)
+    stop, out = decide(z, a, None, 1)
+    assert [DECISIONS[o] for o in out][1] == "complete_not_significant"
+    stop, out = decide(z[:, :2], a[:2], None, 2, final_last=False)
     assert stop.tolist() == [0, 0, 1, -1, -1]
-    assert [monitor.DECISIONS[o] for o in out][3] == "continue"
+    assert [DECISIONS[o] for o in out][3] == "continue"
 
 
 # ---------------------------------------------------------------------------
@@ -591,7 +604,7 @@ def test_projection_users_days_and_conditional_power():
 
     t_seen = [x.information_fraction for x in an.looks]
     tf = np.array([0.6, 0.8, 1.0])
-    a_all, _ = monitor.bounds_at(plan, t_seen + tf.tolist(), final=True)
+    a_all, _ = GroupSequentialRule(plan).boundaries(t_seen + tf.tolist(), final=True)
     af = a_all[2:]
     z_now = an.looks[-1].z
 
@@ -723,7 +736,7 @@ def test_to_dict_is_strict_json(case):
     d = an.to_dict()
     text = json.dumps(d, allow_nan=False)
     back = json.loads(text)
-    assert back["decision"] == an.decision in monitor.DECISIONS
+    assert back["decision"] == an.decision in DECISIONS
     assert len(back["looks"]) == len(an.looks)
     for row, look in zip(back["looks"], an.looks, strict=True):
         for key in ("z", "efficacy_z", "futility_z", "information_fraction"):

@@ -17,10 +17,9 @@ import pytest
 from scipy import special, stats
 
 import seqtest
-from seqtest import cli_simulate
-from seqtest.monitor import analyze
-from seqtest.scenarios import load_scenario, scenario_from_dict
-from seqtest.simulate import (
+from seqtest.cli import main as cli_main
+from seqtest.monitoring.analysis import analyze
+from seqtest.simulation.engine import (
     OUTCOMES,
     _draw_chunk,
     _job,
@@ -28,6 +27,7 @@ from seqtest.simulate import (
     plot_result,
     simulate,
 )
+from seqtest.simulation.scenarios import load_scenario, scenario_from_dict
 
 ROOT = Path(__file__).resolve().parents[1]
 SIMS = ROOT / "simulations"
@@ -459,7 +459,7 @@ def test_every_shipped_scenario_has_a_plan_and_loads():
 @pytest.mark.parametrize("scenario", sorted(EXAMPLES))
 def test_cli_runs_every_shipped_example(scenario, capsys):
     plan = SIMS / "plans" / f"{EXAMPLES[scenario]}.json"
-    code = cli_simulate.main(["simulate", "--plan", str(plan), "--scenario",
+    code = cli_main(["simulate", "--plan", str(plan), "--scenario",
                               str(SIMS / "scenarios" / f"{scenario}.toml"), "--reps", "300",
                               "--json", "--no-progress"])
     out = capsys.readouterr().out
@@ -472,13 +472,13 @@ def test_cli_table_plot_and_check(tmp_path, capsys):
     args = ["simulate", "--plan", str(SIMS / "plans" / "counts_obf5.json"), "--scenario",
             str(SIMS / "scenarios" / "counts_overdispersed.toml"), "--reps", "20000",
             "--seed", "2", "--plot", str(tmp_path / "r.png"), "--check"]
-    assert cli_simulate.main(args) == 1          # the overdispersed counts leak
+    assert cli_main(args) == 1          # the overdispersed counts leak
     out = capsys.readouterr().out
     assert "Verdict: leaks alpha" in out and "Naive baseline" in out
     png = (tmp_path / "r.png").read_bytes()
     assert png[:8] == b"\x89PNG\r\n\x1a\n"
     args[4] = str(SIMS / "scenarios" / "counts_null_fixed.toml")
-    assert cli_simulate.main(args) == 0
+    assert cli_main(args) == 0
 
 
 @pytest.mark.parametrize("change, words", [
@@ -493,7 +493,7 @@ def test_cli_bad_input_is_one_line_and_status_2(change, words, capsys, monkeypat
             "--scenario": "simulations/scenarios/binary_null_fixed.toml", "--reps": "10"}
     opts.update(change)
     argv = ["simulate", *[x for kv in opts.items() for x in kv], "--no-progress"]
-    assert cli_simulate.main(argv) == 2
+    assert cli_main(argv) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and words in err
 
@@ -503,7 +503,7 @@ def test_cli_bad_toml_is_refused(tmp_path, capsys):
     bad.write_text("[data\nkind = 'binary'\n")
     argv = ["simulate", "--plan", str(SIMS / "plans" / "binary_obf5.json"),
             "--scenario", str(bad), "--reps", "10"]
-    assert cli_simulate.main(argv) == 2
+    assert cli_main(argv) == 2
     assert "not valid TOML" in capsys.readouterr().err
 
 

@@ -17,7 +17,7 @@ from statsmodels.stats import proportion as sm_proportion
 from statsmodels.stats.power import NormalIndPower, normal_power_het
 
 import seqtest
-from seqtest.sizing import sample_size
+from seqtest.planning.sizing import sample_size
 
 FIXED_80 = seqtest.design(alpha=0.05, sides=2, power=0.8, looks=1)
 
@@ -219,7 +219,7 @@ def test_plan_metric_and_method():
     metric = {"kind": "continuous", "sd": 1.0, "mde": 0.5}
     plan = seqtest.design(alpha=0.05, sides=2, power=0.8, looks=1, metric=metric)
     assert plan.sample_size().n_control == 63
-    back = seqtest.Plan.from_dict(plan.to_dict())
+    back = seqtest.plan_from_dict(plan.to_dict())
     a, b = back.sample_size(), plan.sample_size()
     assert (a.n_control, a.n_treatment, a.max_information) == \
         (b.n_control, b.n_treatment, b.max_information)

@@ -16,7 +16,7 @@ import pytest
 from scipy import interpolate, stats
 
 from seqtest import spending
-from seqtest.design import design
+from seqtest.planning.design import design
 
 T_GRID = np.linspace(0.0, 1.0, 201)
 ALPHAS = [0.001, 0.025, 0.05, 0.1, 0.5]

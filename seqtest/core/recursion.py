@@ -32,22 +32,23 @@ from __future__ import annotations
 
 import functools
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
 __all__ = [
+    "BIG",
     "Crossing",
-    "crossing_probabilities",
-    "spending_bounds",
-    "constant_bounds",
     "DEFAULT_R",
+    "check_r",
+    "continuation_intervals",
+    "crossing_probabilities",
 ]
 
 DEFAULT_R = 24
-_BIG = 40.0  # |z| beyond this has probability below 1e-300: treated as infinity
+BIG = 40.0  # |z| beyond this has probability below 1e-300: treated as infinity
 _SQRT2PI = math.sqrt(2.0 * math.pi)
 
 
@@ -119,13 +120,13 @@ class _State:
         return mean_s, sd
 
     def prob_above(self, u: float, info_next: float) -> float:
-        if u >= _BIG:
+        if u >= BIG:
             return 0.0
         mean_s, sd = self._moments(info_next)
         return float(self.g @ special.ndtr((mean_s - u * math.sqrt(info_next)) / sd))
 
     def prob_below(self, lo: float, info_next: float) -> float:
-        if lo <= -_BIG:
+        if lo <= -BIG:
             return 0.0
         mean_s, sd = self._moments(info_next)
         return float(self.g @ special.ndtr((lo * math.sqrt(info_next) - mean_s) / sd))
@@ -170,7 +171,7 @@ class _State:
             r = int(min(200, max(r, math.ceil(need))))
         zs, ws = [], []
         for lo, hi in intervals:
-            z, w = _grid(mu, max(lo, -_BIG), min(hi, _BIG), r)
+            z, w = _grid(mu, max(lo, -BIG), min(hi, BIG), r)
             zs.append(z)
             ws.append(w)
         z = np.concatenate(zs) if zs else np.empty(0)
@@ -185,8 +186,10 @@ class _State:
         return _State(z, w * dens, info_next, self.theta, self.s0, self.i0)
 
 
-def _intervals(lower: float, upper: float, in_lo: float, in_hi: float
-               ) -> list[tuple[float, float]]:
+def continuation_intervals(lower: float, upper: float, in_lo: float, in_hi: float
+                           ) -> list[tuple[float, float]]:
+    """The z values in ``(lower, upper)`` outside the inner band ``(in_lo, in_hi)``, as
+    intervals (the only place the set difference is written)."""
     if in_lo < in_hi:
         out = []
         if lower < min(in_lo, upper):
@@ -290,7 +293,7 @@ def crossing_probabilities(
     theta = float(drift)
     if not math.isfinite(theta):
         raise ValueError(f"drift: got {drift!r}; allowed is a finite number")
-    r = _check_r(r)
+    r = check_r(r)
     p_up, p_lo, p_in = np.zeros(k), np.zeros(k), np.zeros(k)
     state = _State.origin(theta)
     for j in range(k):
@@ -300,231 +303,12 @@ def crossing_probabilities(
         if il[j] < iu[j]:
             p_in[j] = state.prob_between(max(il[j], lo[j]), min(iu[j], up[j]), inf[j])
         if j + 1 < k:
-            state = state.advance(_intervals(lo[j], up[j], il[j], iu[j]), inf[j], r,
+            state = state.advance(continuation_intervals(lo[j], up[j], il[j], iu[j]), inf[j], r,
                                   inf[j + 1])
     return Crossing(p_up, p_lo, p_in)
 
 
-def _check_r(r: int) -> int:
+def check_r(r: int) -> int:
     if int(r) != r or not 4 <= r <= 200:
         raise ValueError(f"r: got {r!r}; allowed is an integer in [4, 200]")
     return int(r)
-
-
-def _solve_monotone(fun: Callable[[float], tuple[float, float]], target: float,
-                    lo: float, hi: float, x0: float, decreasing: bool) -> float:
-    """Root of ``F(x) = target`` for a monotone probability ``F`` on ``[lo, hi]``.
-
-    ``fun(x)`` returns ``(F(x), F'(x))``. Newton's method on ``log F - log target``
-    (nearly linear for normal tail probabilities, so two to four steps), kept inside
-    a bracket that shrinks at every step, with bisection whenever a step leaves it;
-    converges to 1e-12 on ``x``.
-    """
-    log_t = math.log(target)
-    x = min(max(x0, lo), hi)
-    for _ in range(100):
-        f, df = fun(x)
-        if f <= 0.0:
-            h, slope = -math.inf, 0.0
-        else:
-            h = math.log(f) - log_t
-            slope = df / f
-        if decreasing:
-            if h > 0:
-                lo = x
-            else:
-                hi = x
-        else:
-            if h > 0:
-                hi = x
-            else:
-                lo = x
-        if abs(h) < 1e-13:
-            return x
-        x_new = x - h / slope if slope != 0 and math.isfinite(h) else math.nan
-        if not (lo < x_new < hi):
-            x_new = 0.5 * (lo + hi)
-        if abs(x_new - x) < 1e-12 or hi - lo < 1e-12:
-            return x_new
-        x = x_new
-    return x
-
-
-def _solve_upper(state: _State, info_next: float, target: float, sides: int,
-                 floor: float) -> float:
-    """Bound ``u`` with exit probability ``target`` above ``u`` (and below ``-u`` when
-    two-sided) from ``state``; ``floor`` is the smallest bound allowed."""
-    if target <= 0.0:
-        return math.inf
-
-    def fun(u: float) -> tuple[float, float]:
-        p = state.prob_above(u, info_next)
-        d = -state.density(u, info_next)
-        if sides == 2:
-            p += state.prob_below(-u, info_next)
-            d -= state.density(-u, info_next)
-        return p, d
-
-    if fun(floor)[0] <= target:
-        # spending more than what is left to spend: everything stops here
-        return floor
-    mass = state.mass()
-    share = min(target / (sides * mass), 0.5) if mass > 0 else 0.5
-    x0 = float(-special.ndtri(share))
-    return _solve_monotone(fun, target, floor, _BIG, x0, decreasing=True)
-
-
-def spending_bounds(
-    info: Sequence[float],
-    cumulative_alpha: Sequence[float],
-    *,
-    sides: int = 1,
-    futility: Sequence[float] | None = None,
-    r: int = DEFAULT_R,
-) -> np.ndarray:
-    """Efficacy boundaries that spend a given cumulative error at each look.
-
-    Parameters
-    ----------
-    info : array_like
-        Information (or information fractions) at each look, strictly increasing.
-    cumulative_alpha : array_like
-        Cumulative type I error to have spent by each look, per tail
-        (non-decreasing). A two-sided symmetric test spends it on each tail, so the
-        total is twice this.
-    sides : {1, 2}
-        One-sided upper test, or symmetric two-sided test (``+-u_k``).
-    futility : array_like, optional
-        Binding futility boundaries under the null: for ``sides=1`` a lower
-        boundary ``b_k`` (stop when ``Z_k <= b_k``); for ``sides=2`` an inner
-        half-width ``b_k`` (stop when ``|Z_k| < b_k``). ``None``: non-binding (the
-        efficacy boundaries ignore futility).
-    r : int
-        Grid size parameter.
-
-    Returns
-    -------
-    ndarray
-        Upper z boundary per look (``inf`` where nothing is spent).
-
-    Notes
-    -----
-    Each boundary is found by Brent's bracketing root finder (tolerance 1e-12 on
-    z) on the exit probability from the recursion described in the module
-    docstring; the overall accuracy is that of the integration, about 1e-6 on z.
-
-    References
-    ----------
-    .. [1] Lan and DeMets (1983), Biometrika 70, 659-663.
-    .. [2] Jennison and Turnbull (2000), chapter 19.
-    """
-    inf = _as_info(info)
-    k = inf.size
-    cum = np.asarray(cumulative_alpha, dtype=float).ravel()
-    bad = np.any(~np.isfinite(cum)) or np.any(cum < 0) or np.any(np.diff(cum) < -1e-15)
-    if cum.size != k or bad:
-        raise ValueError(f"cumulative_alpha: got {cum.tolist()}; allowed is {k} "
-                         "non-decreasing numbers >= 0")
-    if sides not in (1, 2):
-        raise ValueError(f"sides: got {sides!r}; allowed are 1 and 2")
-    fut = None if futility is None else _as_bounds("futility", futility, k, -math.inf)
-    r = _check_r(r)
-    inc = np.diff(np.concatenate(([0.0], cum))) * sides
-    out = np.empty(k)
-    state = _State.origin(0.0)
-    for j in range(k):
-        floor = 0.0 if sides == 2 else -_BIG
-        if fut is not None:
-            floor = max(floor, fut[j]) if sides == 1 else max(floor, fut[j])
-        out[j] = _solve_upper(state, inf[j], inc[j], sides, floor)
-        if j + 1 < k:
-            state = state.advance(_continuation(out[j], sides, None if fut is None else fut[j]),
-                                  inf[j], r, inf[j + 1])
-    return out
-
-
-def _continuation(u: float, sides: int, fut: float | None) -> list[tuple[float, float]]:
-    if sides == 1:
-        lo = -math.inf if fut is None else fut
-        return _intervals(lo, u, 0.0, 0.0)
-    b = 0.0 if fut is None else max(fut, 0.0)
-    return _intervals(-u, u, -b, b)
-
-
-def constant_bounds(
-    info: Sequence[float],
-    alpha: float,
-    shape: Sequence[float],
-    *,
-    sides: int = 1,
-    fixed: Sequence[bool] | None = None,
-    futility: Sequence[float] | None = None,
-    r: int = DEFAULT_R,
-) -> np.ndarray:
-    """Boundaries ``c * shape_k`` with the constant ``c`` solved for level ``alpha``.
-
-    Parameters
-    ----------
-    info : array_like
-        Information (or fractions) at each look.
-    alpha : float
-        Total type I error: one-sided, or both tails together when ``sides=2``.
-    shape : array_like
-        Boundary shape per look, e.g. ``t_k ** (Delta - 0.5)`` for the Wang-Tsiatis
-        family (Delta = 0.5 Pocock, Delta = 0 O'Brien-Fleming).
-    fixed : array_like of bool, optional
-        Looks whose boundary is ``shape_k`` itself, not scaled (Haybittle-Peto's
-        interim boundary of 3); the constant then scales only the other looks.
-    sides : {1, 2}
-        One-sided upper, or symmetric two-sided.
-    futility : array_like, optional
-        Binding futility boundaries (as in :func:`spending_bounds`).
-    r : int
-        Grid size parameter.
-
-    Returns
-    -------
-    ndarray
-        The boundary per look.
-
-    Notes
-    -----
-    ``c`` is found by Brent's method (tolerance 1e-12) on the total exit
-    probability under the null from the recursion in the module docstring.
-
-    References
-    ----------
-    .. [1] Pocock (1977), Biometrika 64, 191-199.
-    .. [2] O'Brien and Fleming (1979), Biometrics 35, 549-556.
-    .. [3] Wang and Tsiatis (1987), Biometrics 43, 193-199.
-    """
-    inf = _as_info(info)
-    k = inf.size
-    s = np.asarray(shape, dtype=float).ravel()
-    if s.size != k or np.any(~np.isfinite(s)) or np.any(s <= 0):
-        raise ValueError(f"shape: got {s.tolist()}; allowed is {k} positive numbers")
-    fx = np.zeros(k, bool) if fixed is None else np.asarray(fixed, bool).ravel()
-    fut = None if futility is None else _as_bounds("futility", futility, k, -math.inf)
-
-    def bounds(c: float) -> np.ndarray:
-        return np.where(fx, s, c * s)
-
-    def level(c: float) -> float:
-        b = bounds(c)
-        if sides == 1:
-            cr = crossing_probabilities(b, fut, inf, 0.0, r=r)
-            return float(cr.upper.sum())
-        lo = -b
-        il = iu = None
-        if fut is not None:
-            il, iu = -np.maximum(fut, 0), np.maximum(fut, 0)
-        cr = crossing_probabilities(b, lo, inf, 0.0, inner_lower=il, inner_upper=iu, r=r)
-        return float(cr.upper.sum() + cr.lower.sum())
-
-    lo_c, hi_c = 1e-3, 1.0
-    while level(hi_c) > alpha:
-        hi_c *= 2.0
-        if hi_c > 1e3:
-            raise ValueError(f"alpha: got {alpha!r}; no boundary constant reaches it")
-    c = optimize.brentq(lambda c: level(c) - alpha, lo_c, hi_c, xtol=1e-12, rtol=1e-12)
-    return bounds(c)

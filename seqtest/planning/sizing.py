@@ -33,7 +33,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 if TYPE_CHECKING:
-    from seqtest.design import Plan
+    from seqtest.planning.design import Plan
 
 __all__ = ["SampleSize", "sample_size", "max_sizes", "check_metric", "delta_and_unit",
            "METRIC_KINDS"]
@@ -151,7 +151,7 @@ def delta_and_unit(m: dict) -> tuple[float, float]:
     v_c, v_t = _variances(m)
     q = m["allocation"]
     if m["scale"] == "relative":
-        # relative effects are tested on the log ratio (see seqtest.monitor), whose
+        # relative effects are tested on the log ratio (see seqtest.core.scales), whose
         # delta-method variance is v_c / (n_c m_c^2) + v_t / (n_t m_t^2)
         delta = math.log(m_t / m_c)
         unit = v_c / (m_c * m_c) + v_t / (q * m_t * m_t)
@@ -218,7 +218,7 @@ def sample_size(plan: Plan, **metric: Any) -> SampleSize:
     Examples
     --------
     >>> import seqtest
-    >>> from seqtest.sizing import sample_size
+    >>> from seqtest.planning.sizing import sample_size
     >>> p = seqtest.design(alpha=0.05, sides=2, power=0.8, looks=1)
     >>> sample_size(p, kind="continuous", sd=1.0, mde=0.5).n_control
     63

@@ -1,6 +1,6 @@
 """Adjusted inference for a group-sequential test.
 
-Everything here is on the canonical scale of :mod:`seqtest.boundaries`: at look
+Everything here is on the canonical scale of :mod:`seqtest.core.recursion`: at look
 ``k`` the statistic is ``Z_k`` with mean ``theta * sqrt(I_k)``, where ``theta`` is
 the effect in the units of the estimate and ``I_k = 1 / se_k^2`` its information.
 
@@ -19,10 +19,9 @@ the effect in the units of the estimate and ``I_k = 1 / se_k^2`` its information
   efficacy boundary at a later look, by the same recursion started from a point
   mass.
 
-Roots are found by secant steps on the probit of the probability (nearly linear
-in ``theta``), with Brent's method as the fallback, to 1e-10 on the probit scale
-(about 1e-10 standard errors), so the accuracy is that of the integration (about
-1e-7 on probabilities).
+Roots are found by :func:`seqtest.core.roots.solve` on the probit of the probability
+(nearly linear in ``theta``), to 1e-10 on the probit scale (about 1e-10 standard
+errors), so the accuracy is that of the integration (about 1e-7 on probabilities).
 
 References
 ----------
@@ -39,43 +38,28 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
-from seqtest.boundaries import DEFAULT_R, _State, crossing_probabilities
+from seqtest.core.recursion import DEFAULT_R, _State
+from seqtest.core.region import Region
+from seqtest.core.roots import solve
 
 __all__ = ["StagewiseResult", "stagewise", "repeated_ci", "conditional_power"]
 
 
-def _inner(inner: np.ndarray | None) -> dict:
-    if inner is None:
-        return {}
-    w = inner.copy()
-    w[-1] = 0.0  # the stopping look's own outcome is ordered by z alone
-    return {"inner_lower": -w, "inner_upper": w}
-
-
-def _upper_p(theta: float, upper: np.ndarray, lower: np.ndarray, info: np.ndarray,
-             z_stop: float, r: int, inner: np.ndarray | None = None) -> float:
+def _upper_p(theta: float, region: Region, info: np.ndarray, z_stop: float, r: int) -> float:
     """P_theta(outcome at least as extreme upward as (T, z_stop))."""
-    up = upper.copy()
-    lo = lower.copy()
-    up[-1] = z_stop
-    lo[-1] = -np.inf
-    cr = crossing_probabilities(up, lo, info, theta, r=r, **_inner(inner))
-    return float(cr.upper.sum())
+    last = region.with_last(upper=z_stop, lower=-np.inf, inner=0.0)
+    return float(last.crossing(info, theta, r).upper.sum())
 
 
-def _lower_p(theta: float, upper: np.ndarray, lower: np.ndarray, info: np.ndarray,
-             z_stop: float, r: int, inner: np.ndarray | None = None) -> float:
+def _lower_p(theta: float, region: Region, info: np.ndarray, z_stop: float, r: int) -> float:
     """P_theta(outcome at least as extreme downward as (T, z_stop))."""
-    up = upper.copy()
-    lo = lower.copy()
-    up[-1] = np.inf
-    lo[-1] = z_stop
-    cr = crossing_probabilities(up, lo, info, theta, r=r, **_inner(inner))
-    return float(cr.lower.sum())
+    last = region.with_last(upper=np.inf, lower=z_stop, inner=0.0)
+    return float(last.crossing(info, theta, r).lower.sum())
 
 
 @dataclass(frozen=True)
@@ -101,13 +85,11 @@ class StagewiseResult:
 def stagewise(
     z: Sequence[float],
     info: Sequence[float],
-    upper: Sequence[float],
-    lower: Sequence[float] | None = None,
+    region: Region,
     *,
     alpha: float = 0.05,
     sides: int = 2,
     r: int = DEFAULT_R,
-    inner: Sequence[float] | None = None,
 ) -> StagewiseResult:
     """Stage-wise ordering p-value, confidence interval and median-unbiased estimate.
 
@@ -117,19 +99,16 @@ def stagewise(
         z statistics of the looks up to and including the stopping look ``T``.
     info : array_like
         Information (``1 / se^2``) at those looks, strictly increasing.
-    upper, lower : array_like
-        The efficacy boundaries used at looks ``1..T`` (``lower`` is ``-upper`` for a
-        two-sided test, ``-inf`` or ``None`` for a one-sided one). The values at
-        look ``T`` are not used: the test stopped there.
+    region : Region
+        The continuation region of looks ``1..T`` (:class:`seqtest.core.region.Region`):
+        the efficacy boundaries used, and a binding futility boundary when there is
+        one (paths that stopped for futility are part of the sample space). Its exits
+        at look ``T`` are not used: the test stopped there.
     alpha : float
         The interval has level ``1 - alpha`` (two-sided; for ``sides=1`` it is the
         one-sided lower limit at ``1 - alpha`` and the upper limit is ``inf``).
     sides : {1, 2}
         Two-sided p-value ``2 min(p_up, p_down)`` or one-sided upper.
-    inner : array_like, optional
-        Half-widths ``b_k`` of a binding two-sided futility region (paths with
-        ``|Z_k| < b_k`` stopped at look ``k``); for a one-sided binding futility
-        boundary pass it as ``lower``.
 
     Returns
     -------
@@ -139,79 +118,45 @@ def stagewise(
     Notes
     -----
     See the module docstring (Tsiatis, Rosner and Mehta 1984). With a single look
-    this is the fixed-sample z test and interval.
+    this is the fixed-sample z test and interval. Each limit is the root of the
+    probit of a crossing probability, nearly linear in ``theta`` (slope ``1 / se_T``,
+    exactly so with one look), found by :func:`seqtest.core.roots.solve` to 1e-10 on
+    the probit scale.
     """
     zz = np.asarray(z, float).ravel()
     ii = np.asarray(info, float).ravel()
     t = zz.size
-    up = np.asarray(upper, float).ravel()[:t].copy()
-    lo = (np.full(t, -np.inf) if lower is None else np.asarray(lower, float).ravel()[:t]).copy()
-    if up.size != t or lo.size != t or ii.size != t:
-        raise ValueError("z, info, upper, lower: need one value per look up to the stop")
-    inn = None if inner is None else np.asarray(inner, float).ravel()[:t].copy()
-    if inn is not None and inn.size != t:
-        raise ValueError("inner: need one value per look up to the stop")
+    if ii.size != t or region.looks < t:
+        raise ValueError("z, info, region: need one value per look up to the stop")
+    reg = region.head(t)
     z_t = float(zz[-1])
     se_t = 1.0 / math.sqrt(ii[-1])
     est = z_t * se_t
 
-    p_up0 = _upper_p(0.0, up, lo, ii, z_t, r, inn)
-    p_lo0 = _lower_p(0.0, up, lo, ii, z_t, r, inn)
+    p_up0 = _upper_p(0.0, reg, ii, z_t, r)
+    p_lo0 = _lower_p(0.0, reg, ii, z_t, r)
     p = min(1.0, 2.0 * min(p_up0, p_lo0)) if sides == 2 else p_up0
 
-    def bracketed(fun, target: float) -> float:
-        # fun is increasing in theta; bracket around the naive estimate
-        lo_th, hi_th = est - 12 * se_t, est + 12 * se_t
-        f_lo, f_hi = fun(lo_th) - target, fun(hi_th) - target
-        k = 0
-        while f_lo > 0 and k < 20:
-            lo_th -= 12 * se_t
-            f_lo = fun(lo_th) - target
-            k += 1
-        while f_hi < 0 and k < 40:
-            hi_th += 12 * se_t
-            f_hi = fun(hi_th) - target
-            k += 1
-        return optimize.brentq(lambda th: fun(th) - target, lo_th, hi_th,
-                               xtol=1e-10 * se_t, rtol=1e-12)
-
-    def root(fun, target: float, sign: float = 1.0) -> float:
-        # Secant steps on the probit scale first: sign * (ndtri(fun) - ndtri(target))
-        # rises by about 1 / se_T per unit of theta (exactly so with one look), so
-        # from the naive estimate three or four steps reach 1e-10; Brent's method on
-        # a bracket is the fallback. ``sign`` is -1 for a decreasing ``fun``.
+    def root(fun: Any, target: float, increasing: bool = True) -> float:
         goal = float(special.ndtri(target))
 
         def g(th: float) -> float:
             q = min(max(fun(th), 1e-300), 1.0 - 1e-16)
-            return sign * (float(special.ndtri(q)) - goal)
+            return float(special.ndtri(q)) - goal
 
-        x0 = est
-        g0 = g(x0)
-        x1 = x0 - g0 * se_t
-        for _ in range(8):
-            if not (abs(x1 - est) < 40 * se_t and math.isfinite(x1)):
-                break
-            g1 = g(x1)
-            if abs(g1) < 1e-10:
-                return x1
-            if g1 == g0:
-                break
-            x0, g0, x1 = x1, g1, x1 - g1 * (x1 - x0) / (g1 - g0)
-        if sign > 0:
-            return bracketed(fun, target)
-        return bracketed(lambda th: -fun(th), -target)
+        return solve(g, est, step=se_t, increasing=increasing, gtol=1e-10,
+                     xtol=1e-12 * se_t, lo=est - 400 * se_t, hi=est + 400 * se_t)
 
     a_tail = alpha / 2 if sides == 2 else alpha
 
     def up_fun(th: float) -> float:
-        return _upper_p(th, up, lo, ii, z_t, r, inn)
+        return _upper_p(th, reg, ii, z_t, r)
 
     ci_lo = root(up_fun, a_tail)
     if sides == 2:
         # the lower-tail p-value decreases in theta; its upper limit solves
         # P_theta(at least as extreme downward) = alpha / 2
-        ci_hi = root(lambda th: _lower_p(th, up, lo, ii, z_t, r, inn), a_tail, -1.0)
+        ci_hi = root(lambda th: _lower_p(th, reg, ii, z_t, r), a_tail, increasing=False)
     else:
         ci_hi = math.inf
     mue = root(up_fun, 0.5)
@@ -256,7 +201,7 @@ def conditional_power(
 
     Notes
     -----
-    The recursion of :mod:`seqtest.boundaries` started from the point mass
+    The recursion of :mod:`seqtest.core.recursion` started from the point mass
     ``S = z_now sqrt(t_now)``; futility boundaries are not applied (the chance of
     reaching significance if the experiment continues to its end).
     """
@@ -267,14 +212,14 @@ def conditional_power(
     s_now = float(z_now) * math.sqrt(float(t_now))
     state = _State(np.array([float(z_now)]), np.ones(1), float(t_now), float(drift),
                    s_now, float(t_now))
+    region = Region.of_plan(sides, uf)
     total = 0.0
     for j in range(tf.size):
         total += state.prob_above(uf[j], tf[j])
         if sides == 2:
             total += state.prob_below(-uf[j], tf[j])
         if j + 1 < tf.size:
-            iv = [(-uf[j], uf[j])] if sides == 2 else [(-np.inf, uf[j])]
-            state = state.advance(iv, tf[j], r, tf[j + 1])
+            state = state.advance(region.intervals(j), tf[j], r, tf[j + 1])
     return float(min(1.0, total))
 
 

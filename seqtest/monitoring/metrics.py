@@ -29,6 +29,11 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
+from seqtest.core import checks
+from seqtest.core.errors import LookDataError
+from seqtest.core.scales import null_on_test_scale, to_test_scale
+from seqtest.core.vocabulary import ARMS, METRIC_KINDS, SCALES
+
 __all__ = [
     "ARMS",
     "METRIC_FIELDS",
@@ -44,8 +49,6 @@ __all__ = [
     "validate_looks",
 ]
 
-ARMS: tuple[str, str] = ("control", "treatment")
-
 #: Canonical cumulative totals for each metric kind.
 METRIC_FIELDS: dict[str, tuple[str, ...]] = {
     "binary": ("n", "successes"),
@@ -58,8 +61,7 @@ ALTERNATIVE_FIELDS: dict[str, tuple[str, ...]] = {
     "continuous": ("n", "mean", "sd"),
 }
 
-METRIC_KINDS: tuple[str, ...] = tuple(METRIC_FIELDS)
-SCALES: tuple[str, ...] = ("difference", "relative")
+assert tuple(METRIC_FIELDS) == METRIC_KINDS
 
 # Largest absolute value accepted for any total (counts, sums, sums of squares).
 MAX_TOTAL = 1e30
@@ -70,58 +72,12 @@ _WHOLE_FIELDS = frozenset({"n", "successes", "events"})
 _MONOTONE_FIELDS: tuple[str, ...] = ("n", "successes", "exposure", "events")
 
 
-class LookDataError(ValueError):
-    """Refused look data.
-
-    Attributes
-    ----------
-    look : int or None
-        1-based number of the look at fault (None when not about one look).
-    arm : str or None
-        Arm at fault, ``"control"`` or ``"treatment"`` (or the unknown name given).
-    field : str or None
-        Total at fault, e.g. ``"successes"``.
-    detail : str
-        What is wrong, without the location prefix.
-    """
-
-    def __init__(
-        self,
-        detail: str,
-        *,
-        look: int | None = None,
-        arm: str | None = None,
-        field: str | None = None,
-    ) -> None:
-        self.look = look
-        self.arm = arm
-        self.field = field
-        self.detail = detail
-        where = []
-        if look is not None:
-            where.append(f"look {look}")
-        if arm is not None:
-            where.append(f"arm {arm}")
-        if field is not None:
-            where.append(f"field {field}")
-        message = f"{', '.join(where)}: {detail}" if where else detail
-        super().__init__(message)
-
-
 def _check_kind(kind: object) -> str:
-    if kind not in METRIC_FIELDS:
-        raise ValueError(
-            f"kind must be one of {', '.join(repr(k) for k in METRIC_KINDS)}; got {kind!r}"
-        )
-    return kind  # type: ignore[return-value]
+    return str(checks.choice("kind", kind, METRIC_KINDS))
 
 
 def _check_scale(scale: object) -> str:
-    if scale not in SCALES:
-        raise ValueError(
-            f"scale must be one of {', '.join(repr(s) for s in SCALES)}; got {scale!r}"
-        )
-    return scale  # type: ignore[return-value]
+    return str(checks.choice("scale", scale, SCALES))
 
 
 def _fmt(x: float) -> str:
@@ -362,10 +318,14 @@ class Effect:
         (``scale="relative"``).
     se : ndarray or float
         Estimated standard error of `estimate`; ``inf`` where `degenerate`.
+    test_estimate, test_se : ndarray or float
+        The estimate and its standard error on the scale the test runs on (see
+        :mod:`seqtest.core.scales`): the same as `estimate` and `se` on the difference
+        scale, the log ratio and its standard error on the relative scale.
     z : ndarray or float
-        ``(estimate - null) / se``; 0 where `degenerate`.
+        ``(test_estimate - null) / test_se``, on the test scale; 0 where `degenerate`.
     information : ndarray or float
-        ``1 / se**2``; 0 where `degenerate`.
+        ``1 / test_se**2``; 0 where `degenerate`.
     n_control, n_treatment : ndarray or float
         Units per arm (the exposure for a rate metric).
     control_value, treatment_value : ndarray or float
@@ -381,6 +341,8 @@ class Effect:
 
     estimate: np.ndarray | float
     se: np.ndarray | float
+    test_estimate: np.ndarray | float
+    test_se: np.ndarray | float
     z: np.ndarray | float
     information: np.ndarray | float
     n_control: np.ndarray | float
@@ -542,11 +504,17 @@ def effect(
         degenerate = ~(var > 0) | ~np.isfinite(var) | ~np.isfinite(est)
         est = np.where(np.isfinite(est), est, np.nan)
         se = np.where(degenerate, np.inf, np.sqrt(var))
-        z = np.where(degenerate, 0.0, (est - null_value) / se)
-        information = np.where(degenerate, 0.0, 1.0 / var)
+        t_est, t_se = to_test_scale(est, se, scale)
+        t_null = null_on_test_scale(null_value, scale)
+        degenerate = degenerate | ~np.isfinite(t_se) | ~(t_se > 0)
+        t_se = np.where(degenerate, np.inf, t_se)
+        z = np.where(degenerate, 0.0, (t_est - t_null) / t_se)
+        information = np.where(degenerate, 0.0, 1.0 / np.square(t_se))
     return Effect(
         estimate=_scalar(est),
         se=_scalar(se),
+        test_estimate=_scalar(np.asarray(t_est, float)),
+        test_se=_scalar(np.asarray(t_se, float)),
         z=_scalar(z),
         information=_scalar(information),
         n_control=_scalar(np.array(n_c, dtype=float)),
@@ -787,3 +755,48 @@ def srm_check(
         mismatch=bool(mismatch),
         message=message,
     )
+
+
+# ---------------------------------------------------------------------------
+# Where the normal approximation is poor
+# ---------------------------------------------------------------------------
+
+#: Smallest count of successes and of failures (binary), of events (rate), and of
+#: units (continuous) per arm below which a look is flagged (common practice: the
+#: normal approximation of a proportion wants at least about 5 to 10 of each; a mean of
+#: skewed values wants a few dozen units).
+SMALL_COUNTS = {"binary": 5, "rate": 5, "continuous": 30}
+
+
+def small_sample(kind: str, arms: Mapping[str, Mapping[str, np.ndarray]]) -> np.ndarray:
+    """Per look, whether an arm is below :data:`SMALL_COUNTS` (see there).
+
+    ``arms`` is what :func:`validate_looks` returns.
+    """
+    kind = _check_kind(kind)
+    limit = SMALL_COUNTS[kind]
+    flags = None
+    for totals in arms.values():
+        if kind == "binary":
+            low = np.minimum(totals["successes"], totals["n"] - totals["successes"]) < limit
+        elif kind == "rate":
+            low = totals["events"] < limit
+        else:
+            low = totals["n"] < limit
+        flags = low if flags is None else flags | low
+    assert flags is not None
+    return np.asarray(flags, bool)
+
+
+def small_sample_message(kind: str, looks: Sequence[int]) -> str:
+    """The warning for looks flagged by :func:`small_sample` (1-based numbers)."""
+    what = {"binary": "fewer than 5 successes or 5 failures in an arm",
+            "rate": "fewer than 5 events in an arm",
+            "continuous": "fewer than 30 units in an arm"}[_check_kind(kind)]
+    which = ", ".join(str(k) for k in looks)
+    return (f"look{'s' if len(looks) > 1 else ''} {which}: {what}, where the normal "
+            "approximation behind the z statistic, the boundaries and the intervals is "
+            "poor (common practice asks for at least about 5 to 10 successes and failures, "
+            "or events, per arm, and a few dozen units for skewed values); the error rates "
+            "and intervals are approximate there. Check the plan at these sizes with "
+            "`seqtest simulate`.")

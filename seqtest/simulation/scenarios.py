@@ -51,7 +51,7 @@ __all__ = [
     "scenario_from_dict",
 ]
 
-#: Data models and the metric kind of :mod:`seqtest.metrics` each is analysed with.
+#: Data models and the metric kind of :mod:`seqtest.monitoring.metrics` each is analysed with.
 ANALYSIS_KIND: dict[str, str] = {
     "binary": "binary",
     "normal": "continuous",
@@ -213,7 +213,7 @@ class Scenario:
 
     @property
     def analysis_kind(self) -> str:
-        """The :mod:`seqtest.metrics` kind the data are analysed with."""
+        """The :mod:`seqtest.monitoring.metrics` kind the data are analysed with."""
         return ANALYSIS_KIND[self.data_kind]
 
     @property

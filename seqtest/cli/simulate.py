@@ -7,7 +7,7 @@ naive baseline, the expected sample size and the stopping looks. A progress bar
 goes to stderr on long runs. Bad input gives a one-line message and exit status 2;
 with ``--check`` a plan that leaks alpha gives exit status 1.
 
-:func:`add_subcommand` registers the subcommand on the ``seqtest`` parser.
+:func:`register` adds the subcommand to the ``seqtest`` parser.
 """
 
 from __future__ import annotations
@@ -18,27 +18,10 @@ import sys
 from pathlib import Path
 from typing import Any
 
-__all__ = ["add_subcommand", "handler", "main"]
+from seqtest.cli.common import read_plan
+from seqtest.simulation import DEFAULT_CHUNK
 
-
-def _read_plan(path: str) -> Any:
-    from seqtest.plans import plan_from_dict
-
-    p = Path(path)
-    if not p.is_file():
-        raise ValueError(f"--plan: {str(p)!r} does not exist; write one with "
-                         "'seqtest plan --json FILE'")
-    try:
-        doc = json.loads(p.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ValueError(f"--plan: cannot read {str(p)!r} ({exc})") from None
-    except json.JSONDecodeError as exc:
-        raise ValueError(f"--plan: {str(p)!r} is not valid JSON ({exc.msg} at line "
-                         f"{exc.lineno})") from None
-    try:
-        return plan_from_dict(doc)
-    except ValueError as exc:
-        raise ValueError(f"--plan: {exc}") from None
+__all__ = ["handler", "register"]
 
 
 def _whole(name: str, lo: int):
@@ -55,9 +38,8 @@ def _whole(name: str, lo: int):
     return parse
 
 
-def add_subcommand(subparsers: Any) -> argparse.ArgumentParser:
-    """Register ``simulate`` on an argparse subparsers object; sets ``func=handler``."""
-    from seqtest.simulate import DEFAULT_CHUNK
+def register(subparsers: Any) -> argparse.ArgumentParser:
+    """Add the ``simulate`` subcommand; sets ``func=handler``."""
 
     p = subparsers.add_parser(
         "simulate", help="check a plan's error rates on simulated experiments",
@@ -92,13 +74,13 @@ def add_subcommand(subparsers: Any) -> argparse.ArgumentParser:
 
 def handler(args: argparse.Namespace) -> int:
     """Run ``seqtest simulate``; raise ValueError with a one-line message on bad input."""
-    from seqtest.scenarios import load_scenario
-    from seqtest.simulate import plot_result, simulate
+    from seqtest.simulation.engine import plot_result, simulate
+    from seqtest.simulation.scenarios import load_scenario
 
     if not 0 < args.confidence < 1:
         raise ValueError(f"--confidence: got {args.confidence!r}; allowed is a level in "
                          "(0, 1)")
-    plan = _read_plan(args.plan)
+    plan = read_plan(args.plan)
     try:
         scenario = load_scenario(args.scenario)
     except ValueError as exc:
@@ -135,26 +117,3 @@ def handler(args: argparse.Namespace) -> int:
     if args.check and result.leaks:
         return 1
     return 0
-
-
-def main(argv: list[str] | None = None) -> int:
-    """``python -m seqtest.cli_simulate ...``: the subcommand on its own."""
-    parser = argparse.ArgumentParser(prog="seqtest")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    add_subcommand(sub)
-    args = parser.parse_args(argv)
-    if not getattr(args, "func", None):
-        parser.print_help()
-        return 2
-    try:
-        return int(args.func(args) or 0)
-    except ValueError as exc:
-        print(f"seqtest {args.command}: error: {exc}", file=sys.stderr)
-        return 2
-    except KeyboardInterrupt:
-        print("seqtest: interrupted", file=sys.stderr)
-        return 130
-
-
-if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())

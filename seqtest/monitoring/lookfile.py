@@ -28,7 +28,8 @@ from typing import Any
 
 import numpy as np
 
-from seqtest.metrics import METRIC_FIELDS, LookDataError
+from seqtest.core.errors import LookDataError
+from seqtest.monitoring.metrics import METRIC_FIELDS
 
 __all__ = ["read_looks_csv", "looks_from_frame", "expected_columns"]
 

@@ -1,7 +1,7 @@
 """Classical fixed-shape efficacy boundaries.
 
 A classical boundary has a shape fixed in advance and one constant solved so the
-overall type I error is exactly alpha (see :func:`seqtest.boundaries.constant_bounds`):
+overall type I error is exactly alpha (see :func:`seqtest.core.boundaries.constant_bounds`):
 
 - Pocock (1977): the same z boundary at every look.
 - O'Brien and Fleming (1979): ``C sqrt(K / k)``, i.e. ``C / sqrt(t_k)`` with

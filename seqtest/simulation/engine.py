@@ -1,20 +1,24 @@
 """Monte Carlo check of a stopping plan, on the same decision code as monitoring.
 
-:func:`simulate` runs many synthetic experiments of a :class:`~seqtest.scenarios.Scenario`
-through the plan and reports the rejection rate (the type I error under the null,
-the power otherwise) with its Clopper-Pearson interval, the expected sample size
-and the distribution of the stopping look, next to a naive baseline that tests at
-nominal alpha at every look.
+:func:`simulate` runs many synthetic experiments of a
+:class:`~seqtest.simulation.scenarios.Scenario` through the plan and reports the rejection
+rate (the type I error under the null, the power otherwise) with its Clopper-Pearson
+interval, the expected sample size and the distribution of the stopping look, next to a
+naive baseline that tests at nominal alpha at every look.
 
 Nothing here re-implements the rules. At each look the per-arm cumulative totals go
-through :func:`seqtest.metrics.effect` (vectorised over replicates and looks) for
-the z statistic; the information fraction is ``(n_control + n_treatment) / n_max``
-exactly as :func:`seqtest.monitor.analyze` measures it; the boundaries come from
-:func:`seqtest.monitor.bounds_at` on those observed fractions, computed exactly once
-per distinct pattern of fractions in each chunk (one call per chunk for fixed
-traffic; one per replicate, less the repeats, for random traffic; fractions are
-never rounded to share boundaries); the stop is :func:`seqtest.monitor.decide`.
-Mixture (continuous-monitoring) plans go through :func:`seqtest.mixture.always_valid`.
+through :func:`seqtest.monitoring.metrics.effect` (vectorised over replicates and looks)
+for the z statistic on the test scale; the information fraction is ``(n_control +
+n_treatment) / max_n`` exactly as :func:`seqtest.monitoring.analysis.analyze` measures
+it; the boundaries come from
+:meth:`seqtest.monitoring.rules.GroupSequentialRule.boundaries` on those observed
+fractions, computed exactly once per distinct pattern of fractions in each chunk (one
+call per chunk for fixed traffic; one per replicate, less the repeats, for random
+traffic; fractions are never rounded to share boundaries); the stop is
+:meth:`seqtest.core.region.Region.classify` and :func:`seqtest.core.region.first_stop`.
+Mixture (continuous-monitoring) plans go through
+:func:`seqtest.core.normal_mixture.always_valid`, with the looks that are not analysed
+masked.
 
 Data are drawn as per-arm totals at each look, increment by increment:
 
@@ -75,10 +79,15 @@ from typing import Any
 import numpy as np
 from scipy import special, stats
 
-from seqtest import metrics
-from seqtest.design import Plan
-from seqtest.monitor import bounds_at, decide
-from seqtest.scenarios import Scenario
+from seqtest.core.normal_mixture import always_valid
+from seqtest.core.region import Region, first_stop
+from seqtest.core.vocabulary import Decision
+from seqtest.monitoring import metrics
+from seqtest.monitoring.rules import GroupSequentialRule
+from seqtest.planning.design import Plan
+from seqtest.planning.documents import plan_from_dict
+from seqtest.simulation import DEFAULT_CHUNK
+from seqtest.simulation.scenarios import Scenario
 
 __all__ = [
     "OUTCOMES",
@@ -90,9 +99,9 @@ __all__ = [
 ]
 
 #: Columns of :attr:`SimulationResult.stops`: how a replicate ended at a look.
-OUTCOMES: tuple[str, ...] = ("efficacy_up", "efficacy_down", "futility", "complete")
+OUTCOMES: tuple[str, ...] = ("stop_efficacy_upper", "stop_efficacy_lower",
+                             Decision.STOP_FUTILITY.value, Decision.COMPLETE.value)
 
-DEFAULT_CHUNK = 25_000
 _MAX_CELLS = 1_000_000          # replicates x looks per chunk (memory bound)
 _LOGNORMAL_BLOCK = 4_000_000    # log-normal values drawn at once
 _MIN_UNITS = {"binary": 1, "continuous": 2, "rate": 1}
@@ -213,7 +222,8 @@ class SimulationResult:
         The maximum total sample (denominator of the information fraction).
     naive : NaiveSummary or None
     boundary_calls : int
-        Calls of :func:`seqtest.monitor.bounds_at` (distinct fraction patterns).
+        Boundary computations (distinct fraction patterns; see
+        :meth:`seqtest.monitoring.rules.GroupSequentialRule.boundaries`).
     paths : dict or None
         Per-replicate arrays when ``keep_paths=True`` (not in :meth:`to_dict`).
     """
@@ -535,7 +545,6 @@ def _schedule(plan: Any, sc: Scenario) -> np.ndarray:
 
 def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool) -> _Job:
     if isinstance(plan, dict):
-        from seqtest.plans import plan_from_dict
         plan = plan_from_dict(plan)
     mixture = not isinstance(plan, Plan)
     if mixture and getattr(plan, "kind", None) != "mixture":
@@ -543,7 +552,7 @@ def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool) -> _J
                          "MixturePlan or a plan document")
     if not isinstance(sc, Scenario):
         raise ValueError(f"scenario: got {type(sc).__name__}; allowed is a Scenario (see "
-                         "seqtest.scenarios.load_scenario)")
+                         "seqtest.simulation.scenarios.load_scenario)")
     kind, scale = _check_kind(plan, sc)
     alloc = sc.allocation
     if alloc is None:
@@ -769,6 +778,7 @@ def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray
     """Per-replicate boundaries from bounds_at, once per distinct fraction pattern."""
     n, k = frac.shape
     plan = job.plan
+    rule = GroupSequentialRule(plan)
     look = np.arange(k)[None, :]
     key = np.where(valid, frac, -1.0)
     key = np.where(look < end[:, None], key, -2.0)
@@ -784,7 +794,7 @@ def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray
         v = row >= 0
         if not v.any():
             continue
-        a, b = bounds_at(plan, row[v], final=True)
+        a, b = rule.boundaries(row[v], final=True)
         a_u[i, v] = a
         if has_fut and b is not None:
             b_u[i, v] = b
@@ -793,23 +803,26 @@ def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray
 
 def _decide_groups(z: np.ndarray, a: np.ndarray, b: np.ndarray | None, end: np.ndarray,
                    sides: int, obey: bool) -> tuple[np.ndarray, np.ndarray]:
-    """decide() on each group of replicates with the same number of looks."""
+    """The stopping rule (:class:`~seqtest.core.region.Region` and
+    :func:`~seqtest.core.region.first_stop`) on each group of replicates with the same
+    number of looks."""
     n = z.shape[0]
     stop = np.empty(n, dtype=np.int64)
     out = np.empty(n, dtype=np.int8)
     for e in np.unique(end):
         rows = np.flatnonzero(end == e)
         e = int(e)
-        s, o = decide(z[rows, :e], a[rows, :e], None if b is None else b[rows, :e], sides,
-                      final_last=True, obey_futility=obey)
+        region = Region.of_plan(sides, a[rows, :e], None if b is None else b[rows, :e])
+        s, o = first_stop(region.classify(z[rows, :e]), final_last=True, obey_futility=obey)
         stop[rows] = s
         out[rows] = o
     return stop, out
 
 
 def _tally(k: int, stop: np.ndarray, code: np.ndarray, up: np.ndarray) -> np.ndarray:
-    """Stops per look and outcome; code from decide() (1 efficacy, 2 futility, 3 end)."""
-    col = np.where(code == 1, np.where(up, 0, 1), np.where(code == 2, 2, 3))
+    """Stops per look and outcome (columns :data:`OUTCOMES`) from decision codes."""
+    col = np.where(code == Decision.STOP_EFFICACY.code, np.where(up, 0, 1),
+                   np.where(code == Decision.STOP_FUTILITY.code, 2, 3))
     out = np.zeros((k, 4), dtype=np.int64)
     np.add.at(out, (stop, col), 1)
     return out
@@ -826,7 +839,6 @@ def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
     last = end - 1
     calls = 0
     if job.mixture:
-        from seqtest.mixture import always_valid
         se = np.where(valid, eff.se, np.inf)
         est = np.where(valid & np.isfinite(se), eff.estimate, 0.0)
         size = np.maximum(n_c, n_t)
@@ -834,14 +846,12 @@ def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
         first = np.asarray(res.first_rejection)
         sidx = np.asarray(res.stop_index)
         stop = np.where((sidx >= 0) & (sidx < end), sidx, last)
-        code = np.where((first >= 0) & (first == stop), 1, 3).astype(np.int8)
+        code = np.where((first >= 0) & (first == stop), Decision.STOP_EFFICACY.code,
+                        Decision.COMPLETE.code).astype(np.int8)
         up = np.asarray(res.direction_sign) > 0
     else:
         a, b, calls = _boundaries(job, valid, frac, end)
         stop, code = _decide_groups(z, a, b, end, job.sides, job.obey)
-        # the final look's futility boundary equals the efficacy one: reaching it
-        # without crossing is completion, not a futility stop
-        code = np.where((code == 2) & (stop == last), 3, code).astype(np.int8)
         up = z[rows, stop] > 0
     stops = _tally(k, stop, code, up)
     a_naive = np.where(valid, job.naive_z, np.inf)
@@ -927,8 +937,8 @@ def simulate(
         A group-sequential plan (:func:`seqtest.design`), a mixture plan
         (:func:`seqtest.mixture.mixture_plan`) or a plan document.
     scenario : Scenario
-        From :func:`seqtest.scenarios.load_scenario` or
-        :func:`seqtest.scenarios.scenario_from_dict`.
+        From :func:`seqtest.simulation.scenarios.load_scenario` or
+        :func:`seqtest.simulation.scenarios.scenario_from_dict`.
     reps : int
         Number of simulated experiments, >= 1.
     seed : int
@@ -979,7 +989,6 @@ def simulate(
     if not 0 < float(confidence) < 1:
         raise ValueError(f"confidence: got {confidence!r}; allowed is a level in (0, 1)")
     if isinstance(plan, dict):
-        from seqtest.plans import plan_from_dict
         plan = plan_from_dict(plan)
     job0 = _job(plan, scenario, int(seed), 0, keep_paths)
     k = job0.times.size
@@ -1131,8 +1140,8 @@ def plot_result(result: SimulationResult, path: Any) -> Any:
     share = result.stops / result.reps
     looks = np.arange(1, result.looks + 1)
     bottom = np.zeros(result.looks)
-    colors = {"efficacy_up": "tab:green", "efficacy_down": "tab:olive",
-              "futility": "tab:red", "complete": "tab:grey"}
+    colors = dict(zip(OUTCOMES, ("tab:green", "tab:olive", "tab:red", "tab:grey"),
+                      strict=True))
     for i, o in enumerate(OUTCOMES):
         if share[:, i].any():
             ax2.bar(looks, share[:, i], bottom=bottom, color=colors[o],

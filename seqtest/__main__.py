@@ -1,0 +1,5 @@
+import sys
+
+from seqtest.cli import main
+
+sys.exit(main())

@@ -1,0 +1,110 @@
+"""``seqtest analyze``: the decision on the looks so far, with adjusted inference."""
+
+from __future__ import annotations
+
+import argparse
+import json
+from typing import Any
+
+from seqtest.cli.common import fmt, read_plan, table, write
+from seqtest.core.vocabulary import CAUTION
+
+__all__ = ["analysis_text", "register"]
+
+
+def register(sub: Any) -> None:
+    """Add the ``analyze`` subcommand."""
+    a = sub.add_parser("analyze", help="analyse the looks so far and give the decision")
+    a.add_argument("looks", help="CSV file, one row per look (see 'seqtest analyze --help')")
+    a.add_argument("--plan", required=True, help="plan document from 'seqtest plan --json'")
+    a.add_argument("--trust-plan", action="store_true", dest="trust_plan",
+                   help="skip checking the plan's computed numbers against its inputs")
+    a.add_argument("--metric", choices=("binary", "continuous", "rate"), default=None,
+                   help="metric kind when the plan has none")
+    a.add_argument("--final", action="store_true",
+                   help="declare the last look final (spend all remaining alpha)")
+    a.add_argument("--max-n", type=float, default=None, dest="max_n",
+                   help="maximum total over both arms, when the plan has no metric")
+    a.add_argument("--fraction-basis", "--fraction", choices=("sample", "information"),
+                   default="sample", dest="fraction_basis",
+                   help="measure information fractions by sample size (default) or by "
+                        "statistical information (--fraction: the first release's name)")
+    a.add_argument("--daily-traffic", type=float, default=None, dest="daily_traffic",
+                   help="users per day over both arms, to project days to the next look")
+    a.add_argument("--json", metavar="FILE", default=None,
+                   help="write the analysis (JSON) to FILE ('-' for stdout)")
+    a.add_argument("--plot", metavar="FILE.png", default=None,
+                   help="draw the z path against the boundaries")
+    a.set_defaults(func=cmd_analyze)
+
+
+def analysis_text(analysis: Any) -> str:
+    d = analysis.to_dict()
+    looks = d["looks"]
+    headers = ["look", "n_control", "n_treatment", "estimate", "test_estimate", "se", "z",
+               "information_fraction", "efficacy_z", "futility_z", "interval_lower",
+               "interval_upper", "decision"]
+    rows = [[x["look"], x["n_control"], x["n_treatment"], x["estimate"], x["test_estimate"],
+             x["se"], x["z"], x["information_fraction"], x["efficacy_z"], x.get("futility_z"),
+             x.get("interval_lower"), x.get("interval_upper"), x["decision"]] for x in looks]
+    out = [table(headers, rows), ""]
+    dec = d["decision"]
+    words = {
+        "continue": "CONTINUE: no boundary crossed; keep collecting data",
+        "stop_efficacy": "STOP for efficacy",
+        "stop_futility": "STOP for futility: the effect is unlikely to reach significance",
+        "complete_not_significant": "COMPLETE: final look reached without significance",
+    }
+    line = f"Decision at look {looks[-1]['look']}: {words.get(dec, dec)}"
+    if d.get("direction"):
+        line += f" ({d['direction'].replace('_', ' ')})"
+    out.append(line)
+    fin = d.get("final")
+    mixture = d.get("plan_kind") == "mixture"
+    if fin:
+        p_label = "always-valid p-value" if mixture else "adjusted p-value (stage-wise ordering)"
+        ci_label = "confidence sequence" if mixture else "adjusted interval"
+        out.append(f"  {p_label}: {fmt(fin['p_value'])}   "
+                   f"unadjusted: {fmt(fin['naive_p_value'])}")
+        out.append(f"  {ci_label}: [{fmt(fin['ci_lower'])}, {fmt(fin['ci_upper'])}]"
+                   f"   unadjusted: [{fmt(fin['naive_ci_lower'])}, "
+                   f"{fmt(fin['naive_ci_upper'])}]")
+        if not mixture:
+            out.append(f"  median-unbiased estimate: {fmt(fin['median_unbiased'])}   "
+                       f"naive estimate: {fmt(fin['naive_estimate'])}")
+    proj = d.get("projection")
+    if proj:
+        out.append(f"  conditional power: {fmt(proj['conditional_power_planned'], 3)} at the "
+                   f"planned effect, {fmt(proj['conditional_power_current'], 3)} at the "
+                   "current estimate")
+        if proj.get("more_units_to_next_look") is not None:
+            msg = (f"  next planned look at fraction {proj['next_look_fraction']:.2f}: "
+                   f"{proj['more_units_to_next_look']:,.0f} more units over both arms")
+            if proj.get("days_to_next_look") is not None:
+                msg += f" (about {proj['days_to_next_look']:.1f} days)"
+            out.append(msg)
+    for w in d.get("warnings", []):
+        out.append(f"warning: {w}")
+    out.append("")
+    out.append(f"Note: {CAUTION}")
+    return "\n".join(out)
+
+
+def cmd_analyze(args: argparse.Namespace) -> int:
+    from seqtest.monitoring.analysis import analyze
+    from seqtest.monitoring.lookfile import read_looks_csv
+    plan = read_plan(args.plan, trust=args.trust_plan)
+    kind = (getattr(plan, "metric", None) or {}).get("kind") or args.metric
+    looks = read_looks_csv(args.looks, kind)
+    analysis = analyze(plan, looks, metric=args.metric, final=args.final, max_n=args.max_n,
+                       daily_traffic=args.daily_traffic, fraction_basis=args.fraction_basis)
+    if args.json:
+        write(json.dumps(analysis.to_dict(), indent=2, allow_nan=False), args.json)
+    if args.json != "-":
+        print(analysis_text(analysis))
+    if args.plot:
+        from seqtest.plotting import plot_analysis
+        plot_analysis(analysis, plan, args.plot)
+        if args.json != "-":
+            print(f"plot written to {args.plot}")
+    return 0

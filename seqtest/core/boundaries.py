@@ -1,0 +1,369 @@
+"""Boundary solvers: efficacy boundaries by error spending or classical constants,
+futility boundaries by beta spending, and the two together when futility is binding.
+
+Each boundary is the root of a crossing probability from the recursion of
+:mod:`seqtest.core.recursion`, found by :func:`seqtest.core.roots.solve` (Newton steps on
+the log of the exit probability, which is nearly linear in the boundary, kept inside a
+bracket; to 1e-12 on z). The continuation region at each look comes from
+:class:`seqtest.core.region.Region`. The accuracy is that of the integration (see
+:mod:`seqtest.core.recursion`).
+
+References
+----------
+.. [1] Lan, K. K. G. and DeMets, D. L. (1983). Discrete sequential boundaries for
+       clinical trials. Biometrika 70, 659-663.
+.. [2] Jennison, C. and Turnbull, B. W. (2000). Group Sequential Methods with
+       Applications to Clinical Trials. Chapman & Hall/CRC, chapters 7 and 19.
+.. [3] Pampallona, S. and Tsiatis, A. A. (1994). Group sequential designs for
+       one-sided and two-sided hypothesis testing with provision for early stopping
+       in favor of the null hypothesis. JSPI 42, 19-35.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+from scipy import special
+
+from seqtest.core.classical import ClassicalBoundary
+from seqtest.core.recursion import (
+    BIG,
+    DEFAULT_R,
+    _as_bounds,
+    _as_info,
+    _State,
+    check_r,
+)
+from seqtest.core.region import Region
+from seqtest.core.roots import NoRoot, solve
+from seqtest.core.spending import SpendingFunction
+
+__all__ = [
+    "Boundary",
+    "binding_bounds",
+    "constant_bounds",
+    "efficacy_bounds",
+    "futility_bounds",
+    "spending_bounds",
+]
+
+#: How a plan's efficacy boundary is made: error spending or a classical shape.
+Boundary = SpendingFunction | ClassicalBoundary
+
+
+def _look_intervals(sides: int, a: float, b: float | None) -> list[tuple[float, float]]:
+    """Continuation of one look (the region's rule, for solvers that go look by look)."""
+    return Region.of_plan(sides, [a], None if b is None else [b]).intervals(0)
+
+
+def _solve_probability(state: _State, info: float, target: float, lo: float, hi: float,
+                       x0: float, prob: Any, decreasing: bool) -> float:
+    """Root of ``prob(x) = target`` on ``[lo, hi]`` for a monotone exit probability,
+    by Newton steps on ``log prob - log target``."""
+    log_t = math.log(target)
+
+    def g(x: float) -> tuple[float, float]:
+        p, dp = prob(x)
+        if p <= 0.0:
+            return -math.inf, 0.0
+        return math.log(p) - log_t, dp / p
+
+    return solve(g, x0, with_slope=True, increasing=not decreasing, bracket=(lo, hi),
+                 gtol=1e-13, xtol=1e-12)
+
+
+def _solve_upper(state: _State, info_next: float, target: float, sides: int,
+                 floor: float) -> float:
+    """Bound ``u`` with exit probability ``target`` above ``u`` (and below ``-u`` when
+    two-sided) from ``state``; ``floor`` is the smallest bound allowed."""
+    if target <= 0.0:
+        return math.inf
+
+    def prob(u: float) -> tuple[float, float]:
+        p = state.prob_above(u, info_next)
+        d = -state.density(u, info_next)
+        if sides == 2:
+            p += state.prob_below(-u, info_next)
+            d -= state.density(-u, info_next)
+        return p, d
+
+    if prob(floor)[0] <= target:
+        # spending more than what is left to spend: everything stops here
+        return floor
+    mass = state.mass()
+    share = min(target / (sides * mass), 0.5) if mass > 0 else 0.5
+    x0 = float(-special.ndtri(share))
+    return _solve_probability(state, info_next, target, floor, BIG, x0, prob,
+                              decreasing=True)
+
+
+def _solve_futility(state: _State, info: float, target: float, a: float, sides: int) -> float:
+    """Futility bound with probability ``target`` of stopping for futility at this look
+    (below it one-sided, inside the band two-sided), under the state's drift."""
+    if sides == 1:
+        def prob(x: float) -> tuple[float, float]:
+            return state.prob_below(x, info), state.density(x, info)
+        floor = -BIG
+    else:
+        def prob(x: float) -> tuple[float, float]:
+            return (state.prob_between(-x, x, info),
+                    state.density(x, info) + state.density(-x, info))
+        floor = 0.0
+    if target <= 0.0:
+        return -math.inf if sides == 1 else 0.0
+    top = min(a, BIG)
+    if prob(top)[0] <= target:
+        return a
+    mass = state.mass()
+    mu = state.theta * math.sqrt(info)
+    if sides == 1:
+        x0 = mu + float(special.ndtri(min(max(target / max(mass, 1e-300), 1e-300), 0.5)))
+    else:
+        x0 = min(top, target / max(2 * state.density(0.0, info), 1e-300))
+    return _solve_probability(state, info, target, floor, top, x0, prob, decreasing=False)
+
+
+def spending_bounds(
+    info: Sequence[float],
+    cumulative_alpha: Sequence[float],
+    *,
+    sides: int = 1,
+    futility: Sequence[float] | None = None,
+    r: int = DEFAULT_R,
+) -> np.ndarray:
+    """Efficacy boundaries that spend a given cumulative error at each look.
+
+    Parameters
+    ----------
+    info : array_like
+        Information (or information fractions) at each look, strictly increasing.
+    cumulative_alpha : array_like
+        Cumulative type I error to have spent by each look, per tail
+        (non-decreasing). A two-sided symmetric test spends it on each tail, so the
+        total is twice this.
+    sides : {1, 2}
+        One-sided upper test, or symmetric two-sided test (``+-u_k``).
+    futility : array_like, optional
+        Binding futility boundaries under the null: for ``sides=1`` a lower
+        boundary ``b_k`` (stop when ``Z_k <= b_k``); for ``sides=2`` an inner
+        half-width ``b_k`` (stop when ``|Z_k| < b_k``). ``None``: non-binding (the
+        efficacy boundaries ignore futility).
+    r : int
+        Grid size parameter.
+
+    Returns
+    -------
+    ndarray
+        Upper z boundary per look (``inf`` where nothing is spent).
+
+    Notes
+    -----
+    Each boundary is found by :func:`seqtest.core.roots.solve` (Newton steps on the
+    log exit probability, to 1e-12 on z); the overall accuracy is that of the
+    integration (:mod:`seqtest.core.recursion`).
+
+    References
+    ----------
+    .. [1] Lan and DeMets (1983), Biometrika 70, 659-663.
+    .. [2] Jennison and Turnbull (2000), chapter 19.
+    """
+    inf = _as_info(info)
+    k = inf.size
+    cum = np.asarray(cumulative_alpha, dtype=float).ravel()
+    bad = np.any(~np.isfinite(cum)) or np.any(cum < 0) or np.any(np.diff(cum) < -1e-15)
+    if cum.size != k or bad:
+        raise ValueError(f"cumulative_alpha: got {cum.tolist()}; allowed is {k} "
+                         "non-decreasing numbers >= 0")
+    if sides not in (1, 2):
+        raise ValueError(f"sides: got {sides!r}; allowed are 1 and 2")
+    fut = None if futility is None else _as_bounds("futility", futility, k, -math.inf)
+    r = check_r(r)
+    inc = np.diff(np.concatenate(([0.0], cum))) * sides
+    out = np.empty(k)
+    state = _State.origin(0.0)
+    for j in range(k):
+        floor = 0.0 if sides == 2 else -BIG
+        if fut is not None:
+            floor = max(floor, fut[j])
+        out[j] = _solve_upper(state, inf[j], inc[j], sides, floor)
+        if j + 1 < k:
+            state = state.advance(_look_intervals(sides, out[j], None if fut is None
+                                                  else fut[j]), inf[j], r, inf[j + 1])
+    return out
+
+
+def constant_bounds(
+    info: Sequence[float],
+    alpha: float,
+    shape: Sequence[float],
+    *,
+    sides: int = 1,
+    fixed: Sequence[bool] | None = None,
+    futility: Sequence[float] | None = None,
+    r: int = DEFAULT_R,
+) -> np.ndarray:
+    """Boundaries ``c * shape_k`` with the constant ``c`` solved for level ``alpha``.
+
+    Parameters
+    ----------
+    info : array_like
+        Information (or fractions) at each look.
+    alpha : float
+        Total type I error: one-sided, or both tails together when ``sides=2``.
+    shape : array_like
+        Boundary shape per look, e.g. ``t_k ** (Delta - 0.5)`` for the Wang-Tsiatis
+        family (Delta = 0.5 Pocock, Delta = 0 O'Brien-Fleming).
+    fixed : array_like of bool, optional
+        Looks whose boundary is ``shape_k`` itself, not scaled (Haybittle-Peto's
+        interim boundary of 3); the constant then scales only the other looks.
+    sides : {1, 2}
+        One-sided upper, or symmetric two-sided.
+    futility : array_like, optional
+        Binding futility boundaries (as in :func:`spending_bounds`).
+    r : int
+        Grid size parameter.
+
+    Returns
+    -------
+    ndarray
+        The boundary per look.
+
+    Notes
+    -----
+    ``c`` is found by :func:`seqtest.core.roots.solve` (secant steps with a bracket,
+    tolerance 1e-12) on the total exit probability under the null, from the recursion
+    of :mod:`seqtest.core.recursion`.
+
+    References
+    ----------
+    .. [1] Pocock (1977), Biometrika 64, 191-199.
+    .. [2] O'Brien and Fleming (1979), Biometrics 35, 549-556.
+    .. [3] Wang and Tsiatis (1987), Biometrics 43, 193-199.
+    """
+    inf = _as_info(info)
+    k = inf.size
+    s = np.asarray(shape, dtype=float).ravel()
+    if s.size != k or np.any(~np.isfinite(s)) or np.any(s <= 0):
+        raise ValueError(f"shape: got {s.tolist()}; allowed is {k} positive numbers")
+    fx = np.zeros(k, bool) if fixed is None else np.asarray(fixed, bool).ravel()
+    fut = None if futility is None else _as_bounds("futility", futility, k, -math.inf)
+
+    def bounds(c: float) -> np.ndarray:
+        return np.where(fx, s, c * s)
+
+    def level(c: float) -> float:
+        region = Region.of_plan(sides, bounds(c), fut)
+        return float(region.efficacy_probability(inf, 0.0, r).sum())
+
+    return bounds(_solve_constant(level, alpha, 1.0))
+
+
+def _solve_constant(level: Any, alpha: float, c0: float, lo: float = 1e-3,
+                    hi: float = 1e3) -> float:
+    """The constant ``c`` at which the decreasing ``level(c)`` equals ``alpha``, by
+    secant steps on ``log alpha - log level(c)`` (nearly linear in ``c``)."""
+    log_a = math.log(alpha)
+
+    def g(c: float) -> float:
+        v = level(c)
+        return log_a - math.log(v) if v > 0 else math.inf
+
+    try:
+        return solve(g, c0, step=0.5, lo=lo, hi=hi, xtol=1e-12, gtol=1e-14)
+    except NoRoot as exc:
+        raise ValueError(f"alpha: got {alpha!r}; no boundary constant in [{lo:g}, {hi:g}] "
+                         "reaches it") from exc
+
+
+def efficacy_bounds(t: np.ndarray, alpha: float, sides: int, efficacy: Boundary,
+                    futility_z: np.ndarray | None = None, r: int = DEFAULT_R) -> np.ndarray:
+    """Efficacy boundaries of a plan at fractions ``t``: error spending (``alpha /
+    sides`` per tail by the spending function) or a classical shape scaled to level
+    ``alpha``. ``futility_z``: a binding futility boundary (``None``: ignored)."""
+    if isinstance(efficacy, SpendingFunction):
+        return spending_bounds(t, efficacy(t, alpha / sides), sides=sides,
+                               futility=futility_z, r=r)
+    shape, fixed = efficacy.shape(t)
+    return constant_bounds(t, alpha, shape, sides=sides, fixed=fixed, futility=futility_z,
+                           r=r)
+
+
+def futility_bounds(t: np.ndarray, drift: float, a: np.ndarray, sides: int, beta: float,
+                    futility: SpendingFunction, r: int = DEFAULT_R, final: bool = True
+                    ) -> np.ndarray:
+    """Beta-spending futility boundary under the design alternative, given the efficacy
+    boundary ``a``.
+
+    ``t`` are information fractions (values above 1 spend all of beta); with ``final``
+    the last look's futility boundary is the efficacy boundary (they meet)."""
+    k = t.size
+    cum = futility(np.minimum(t, 1.0), beta)
+    inc = np.diff(np.concatenate(([0.0], cum)))
+    b = np.empty(k)
+    state = _State.origin(drift)
+    for j in range(k):
+        if j == k - 1 and final:
+            b[j] = a[j]
+            break
+        b[j] = _solve_futility(state, t[j], inc[j], a[j], sides)
+        if j == k - 1:
+            break
+        state = state.advance(_look_intervals(sides, a[j], b[j]), t[j], r, t[j + 1])
+    return b
+
+
+def binding_bounds(t: np.ndarray, alpha: float, sides: int, efficacy: Boundary,
+                   futility: SpendingFunction, beta: float, drift: float,
+                   r: int = DEFAULT_R, final: bool = True,
+                   cumulative_alpha: np.ndarray | None = None,
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """Efficacy and futility boundaries that account for each other (binding futility).
+
+    With error spending the two are solved look by look, the efficacy boundary under
+    the null and the futility boundary under the drift, on the same continuation
+    region. A classical shape's constant is solved with the futility boundary in place.
+    ``cumulative_alpha`` (per tail) overrides the spending function's."""
+    k = t.size
+    if isinstance(efficacy, SpendingFunction):
+        tc = np.minimum(t, 1.0)
+        ca = efficacy(tc, alpha / sides) if cumulative_alpha is None else cumulative_alpha
+        inc_a = np.diff(np.concatenate(([0.0], ca))) * sides
+        inc_b = np.diff(np.concatenate(([0.0], futility(tc, beta))))
+        a = np.empty(k)
+        b = np.empty(k)
+        s0, s1 = _State.origin(0.0), _State.origin(drift)
+        for j in range(k):
+            a[j] = _solve_upper(s0, t[j], inc_a[j], sides, 0.0 if sides == 2 else -BIG)
+            if j == k - 1 and final:
+                b[j] = a[j]
+                break
+            b[j] = _solve_futility(s1, t[j], inc_b[j], a[j], sides)
+            if j == k - 1:
+                break
+            iv = _look_intervals(sides, a[j], b[j])
+            s0 = s0.advance(iv, t[j], r, t[j + 1])
+            s1 = s1.advance(iv, t[j], r, t[j + 1])
+        return a, b
+    shape, fixed = efficacy.shape(t)
+
+    def both(c: float) -> tuple[np.ndarray, np.ndarray]:
+        aa = np.where(fixed, shape, c * shape)
+        return aa, futility_bounds(t, drift, aa, sides, beta, futility, r)
+
+    def level(c: float) -> float:
+        aa, bb = both(c)
+        return float(Region.of_plan(sides, aa, bb).efficacy_probability(t, 0.0, r).sum())
+
+    # While the drift is still being searched, a futility boundary can stop nearly
+    # every path before the scaled looks; the constant then has to go low (even
+    # below zero for Haybittle-Peto's final look). If even that cannot reach alpha,
+    # the lowest constant is used and the drift search moves on.
+    lo_c, hi_c = -20.0, 20.0
+    if level(lo_c) < alpha:
+        c = lo_c
+    else:
+        c = _solve_constant(level, alpha, 1.0, lo_c, hi_c)
+    return both(c)

@@ -1,0 +1,168 @@
+"""One root finder for every solve in seqtest.
+
+Boundaries (a tail probability equal to the error to spend), the drift of a plan (its
+power equal to the target), the classical constant (the level equal to alpha), the
+stage-wise p-value, confidence limits and median-unbiased estimate (a probability equal
+to a level): each is the root of a monotone function of one variable that is nearly
+linear on a well-chosen scale (log or probit of a probability). :func:`solve` finds it.
+
+Method: Newton steps when the caller supplies the slope, secant steps otherwise, from a
+starting point and a guess of the scale; once a sign change is seen, the root is kept
+bracketed and any step that leaves the bracket, or fails to halve it within two steps,
+is replaced by an Anderson-Bjorck step (regula falsi with the Anderson-Bjorck weight;
+bisection when the end values are unknown). Before a sign change is seen, the search
+moves downhill by doubling steps up to the limits ``lo``/``hi``. It stops when
+``|g| <= gtol`` or the bracket is narrower than ``xtol`` (relative to ``max(1, |x|)``).
+On the nearly linear scales used here it takes two to five evaluations.
+
+References
+----------
+.. [1] Anderson, N. and Bjorck, A. (1973). A new high order method of regula falsi
+       type for computing a root of an equation. BIT 13, 253-264.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+
+from seqtest.core.errors import SeqtestError
+
+__all__ = ["NoRoot", "solve"]
+
+
+class NoRoot(SeqtestError, ArithmeticError):
+    """The function keeps one sign up to the limit of the search.
+
+    Attributes
+    ----------
+    at_limit : float
+        The limit reached (``lo`` or ``hi``).
+    """
+
+    def __init__(self, message: str, at_limit: float) -> None:
+        super().__init__(message)
+        self.at_limit = at_limit
+
+
+def solve(
+    g: Callable[[float], float] | Callable[[float], tuple[float, float]],
+    x0: float,
+    *,
+    step: float = 1.0,
+    lo: float = -math.inf,
+    hi: float = math.inf,
+    increasing: bool = True,
+    with_slope: bool = False,
+    bracket: tuple[float, float] | None = None,
+    xtol: float = 1e-12,
+    gtol: float = 0.0,
+    max_evals: int = 200,
+) -> float:
+    """Root of a monotone function ``g`` (see the module docstring).
+
+    Parameters
+    ----------
+    g : callable
+        ``g(x) -> value``, or ``g(x) -> (value, slope)`` with ``with_slope``. May return
+        ``-inf``/``inf`` far from the root (a log of a probability that underflows).
+    x0 : float
+        Starting point.
+    step : float
+        Scale of ``x`` over which ``g`` changes by about one unit: the first secant step
+        and the unit of the downhill search.
+    lo, hi : float
+        Limits of the search; :class:`NoRoot` when ``g`` keeps its sign up to one.
+    increasing : bool
+        Whether ``g`` increases with ``x``.
+    bracket : (a, b), optional
+        Points known to bracket the root without evaluating them (the root lies in
+        ``[a, b]``); the search then starts bracketed.
+    xtol, gtol : float
+        Stop when the bracket is narrower than ``xtol * max(1, |x|)`` or ``|g| <= gtol``.
+    max_evals : int
+        Hard limit on evaluations (the best point so far is returned).
+    """
+    sign = 1.0 if increasing else -1.0
+
+    def ev(x: float) -> tuple[float, float | None]:
+        out = g(x)
+        if with_slope:
+            v, s = out  # type: ignore[misc]
+            return sign * float(v), sign * float(s)
+        return sign * float(out), None  # type: ignore[arg-type]
+
+    # bracket ends: a has g < 0, b has g > 0 (values None when only known in sign)
+    a, b = -math.inf, math.inf
+    fa: float | None = None
+    fb: float | None = None
+    if bracket is not None:
+        a, b = float(bracket[0]), float(bracket[1])
+    x = min(max(float(x0), lo, a), hi, b)
+    fx, sx = ev(x)
+    best = (abs(fx), x)
+    prev: tuple[float, float] | None = None
+    steps: list[float] = []
+    side = 0  # which end moved last, for the Anderson-Bjorck weight
+    for _ in range(max_evals):
+        if math.isnan(fx):
+            raise ArithmeticError(f"the function is not a number at {x!r}")
+        if abs(fx) <= gtol:
+            return x
+        if fx < 0:
+            if side == -1 and fb is not None and fa is not None and math.isfinite(fx):
+                m = 1.0 - fx / fa if fa != 0 else 0.5
+                fb *= m if m > 0 else 0.5
+            a, fa, side = x, fx, -1
+        else:
+            if side == 1 and fa is not None and fb is not None and math.isfinite(fx):
+                m = 1.0 - fx / fb if fb != 0 else 0.5
+                fa *= m if m > 0 else 0.5
+            b, fb, side = x, fx, 1
+        bracketed = math.isfinite(a) and math.isfinite(b) and a <= b
+        if bracketed and b - a <= xtol * max(1.0, abs(x)):
+            return x
+        # candidate: Newton, secant, or a first step of the given scale
+        cand = math.nan
+        if math.isfinite(fx):
+            if sx is not None and sx > 0 and math.isfinite(sx):
+                cand = x - fx / sx
+            elif prev is not None and math.isfinite(prev[1]) and prev[1] != fx:
+                cand = x - fx * (x - prev[0]) / (fx - prev[1])
+            elif sx is None and prev is None:
+                cand = x - fx * step
+        if bracketed:
+            # a step must at least halve the step before last, as in safeguarded Newton
+            slow = len(steps) >= 2 and abs(cand - x) > 0.5 * steps[-2]
+            if not (a < cand < b) or slow:
+                if fa is not None and fb is not None and math.isfinite(fa) \
+                        and math.isfinite(fb) and fb != fa:
+                    cand = b - fb * (b - a) / (fb - fa)
+                if not (a < cand < b):
+                    cand = 0.5 * (a + b)
+            if abs(cand - x) <= xtol * max(1.0, abs(x)):
+                return cand
+            steps.append(abs(cand - x))
+        else:
+            # downhill search: towards larger x when g < 0 (g increasing)
+            direction = 1.0 if fx < 0 else -1.0
+            limit = hi if direction > 0 else lo
+            if not math.isfinite(cand) or (cand - x) * direction <= 0:
+                cand = x + direction * abs(step)
+            if prev is not None and not math.isfinite(cand - x):
+                cand = x + direction * abs(step)
+            far = direction * (cand - x)
+            if prev is not None and far < abs(step):
+                far = abs(step)
+            cand = x + direction * min(far, 2.0 * abs(x - prev[0]) if prev else far)
+            if (cand - limit) * direction >= 0:
+                if x == limit:
+                    raise NoRoot(f"no root before the limit {limit!r} (the function keeps "
+                                 f"one sign there: {sign * fx!r})", limit)
+                cand = limit
+        prev = (x, fx)
+        x = cand
+        fx, sx = ev(x)
+        if abs(fx) < best[0]:
+            best = (abs(fx), x)
+    return best[1]

@@ -1,0 +1,364 @@
+"""Monitoring: from the looks observed so far to a decision with adjusted inference.
+
+:func:`analyze` is the one analysis path for every kind of plan: the per-arm totals of
+each look go through :mod:`seqtest.monitoring.metrics` (validation, estimate, standard
+error and z on the test scale), the plan's rule (:mod:`seqtest.monitoring.rules`) gives
+the boundaries, intervals, decisions and, at a stop, adjusted inference, and the result
+is an :class:`Analysis`.
+
+Decisions (:class:`~seqtest.core.vocabulary.Decision`): ``continue``,
+``stop_efficacy`` (with the direction), ``stop_futility``, or
+``complete_not_significant`` at the final look.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from scipy import special
+
+from seqtest.core import checks, jsonable
+from seqtest.core.scales import TEST_SCALE
+from seqtest.core.vocabulary import CAUTION, Decision, decision_from_code
+from seqtest.monitoring import metrics
+from seqtest.monitoring.rules import (
+    FRACTION_BASES,
+    FinalInference,
+    LookTable,
+    Projection,
+    rule_for,
+)
+from seqtest.planning.design import Plan
+
+__all__ = ["Analysis", "FinalInference", "LookResult", "Projection", "analyze"]
+
+
+@dataclass(frozen=True)
+class LookResult:
+    """Everything computed at one look (see :func:`analyze`).
+
+    Attributes
+    ----------
+    look : int
+        1-based number of the look.
+    n_control, n_treatment : float
+        Units per arm (exposure for rates).
+    control_value, treatment_value : float
+        Each arm's mean (a rate for binary and rate metrics).
+    estimate : float
+        The effect on its reported scale (difference, or relative lift).
+    test_estimate, se, z : float
+        The estimate, its standard error and the z statistic on the scale the test
+        runs on (:attr:`Analysis.test_scale`): ``z = test_estimate / se``.
+    information, information_fraction : float
+        ``1 / se^2``, and the fraction of the maximum reached (by sample, by
+        information, or for a mixture plan the larger arm against its cap).
+    efficacy_z, futility_z : float, float or None
+        Boundaries on the z scale of the test at this look.
+    p_threshold : float
+        The p-value this look had to reach to stop for efficacy (the efficacy boundary
+        on the p scale; for a mixture plan, alpha for the always-valid p-value).
+    unadjusted_p : float
+        The look's own fixed-sample p-value, which ignores the looks.
+    interval_lower, interval_upper : float
+        Interval valid at every look on the reported scale: the repeated confidence
+        interval (group-sequential plans) or the confidence sequence (mixture plans).
+    decision : Decision
+        This look's own decision.
+    srm_p_value : float or None
+        p-value of the sample-ratio check (None for rates).
+    always_valid_p : float or None
+        Mixture plans: the always-valid p-value.
+    small_sample : bool
+        An arm is below the counts where the normal approximation is reliable.
+    """
+
+    look: int
+    n_control: float
+    n_treatment: float
+    control_value: float
+    treatment_value: float
+    estimate: float
+    test_estimate: float
+    se: float
+    z: float
+    information: float
+    information_fraction: float
+    efficacy_z: float
+    futility_z: float | None
+    p_threshold: float
+    unadjusted_p: float
+    interval_lower: float
+    interval_upper: float
+    decision: Decision
+    srm_p_value: float | None
+    always_valid_p: float | None = None
+    small_sample: bool = False
+
+    # names of the first release, kept for Python callers
+    @property
+    def rci_lower(self) -> float:
+        return self.interval_lower
+
+    @property
+    def rci_upper(self) -> float:
+        return self.interval_upper
+
+    @property
+    def nominal_p(self) -> float:
+        return self.p_threshold
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """The analysis of an experiment's looks so far.
+
+    Attributes
+    ----------
+    decision : Decision
+        At the last analysed look.
+    direction : str or None
+        ``"treatment_better"`` or ``"control_better"`` for an efficacy stop (the sign
+        of the effect: whether larger is better is the user's to say).
+    stopped_at : int or None
+        1-based look of a stop.
+    looks : list of LookResult
+    final : FinalInference or None
+        Present once the experiment has stopped or completed.
+    projection : Projection or None
+        Present while the experiment continues.
+    warnings : list of str
+    metric_kind, scale, test_scale, plan_kind : str
+    """
+
+    decision: Decision
+    direction: str | None
+    stopped_at: int | None
+    looks: list[LookResult]
+    final: FinalInference | None
+    projection: Projection | None
+    warnings: list[str] = field(default_factory=list)
+    metric_kind: str = ""
+    scale: str = "difference"
+    test_scale: str = "difference"
+    plan_kind: str = "group_sequential"
+    caution: str = CAUTION
+
+    @property
+    def metric(self) -> str:
+        """The metric kind (name of the first release)."""
+        return self.metric_kind
+
+    def to_dict(self) -> dict:
+        """Plain JSON types (``inf`` and ``nan`` become ``None``)."""
+        return jsonable.plain(self)
+
+    def table(self) -> Any:
+        """The look-by-look table as a pandas DataFrame."""
+        import pandas as pd
+        return pd.DataFrame([jsonable.plain(x) for x in self.looks]).set_index("look")
+
+
+# -- the analysis ------------------------------------------------------------------------
+
+def analyze(
+    plan: Any,
+    looks: Sequence[Mapping] | Any,
+    *,
+    metric: str | None = None,
+    allocation: float | None = None,
+    final: bool = False,
+    max_n: float | None = None,
+    fraction_basis: str = "sample",
+    daily_traffic: float | None = None,
+    srm_threshold: float = 0.001,
+    fraction: str | None = None,
+) -> Analysis:
+    """Analyse the looks of an experiment under its plan.
+
+    Parameters
+    ----------
+    plan : Plan, MixturePlan or dict
+        The plan (a plan document is read with :func:`seqtest.plan_from_dict`).
+    looks : list of dict or DataFrame
+        Cumulative per-arm totals per look, in order:
+        ``{"control": {"n": ..., "successes": ...}, "treatment": {...}}``
+        (fields per metric kind in :mod:`seqtest.monitoring.metrics`), or a DataFrame
+        in the CSV layout of :mod:`seqtest.monitoring.lookfile`.
+    metric : {"binary", "continuous", "rate"}, optional
+        The metric kind of the totals (default: the plan's).
+    allocation : float, optional
+        Planned treatment:control ratio for the sample-ratio check (default: the
+        plan's, else 1).
+    final : bool
+        Declare the last look final: it spends all remaining alpha.
+    max_n : float, optional
+        Maximum total sample over both arms (exposure for rates). Defaults to the
+        plan's sample size; required when the plan has no metric.
+    fraction_basis : {"sample", "information"}
+        How information fractions are measured (see
+        :class:`~seqtest.monitoring.rules.GroupSequentialRule`).
+    daily_traffic : float, optional
+        Users (or exposure) per day over both arms, for the projection in days.
+    srm_threshold : float
+        p-value below which a sample-ratio mismatch is reported.
+    fraction : str, optional
+        The first release's name of ``fraction_basis``.
+
+    Returns
+    -------
+    Analysis
+
+    Raises
+    ------
+    seqtest.LookDataError
+        Totals that are invalid or go backwards (names the look, arm and field).
+    ValueError
+        Other bad arguments.
+    """
+    from seqtest.planning.documents import plan_from_dict
+    if isinstance(plan, Mapping):
+        plan = plan_from_dict(dict(plan))
+    if fraction is not None:
+        fraction_basis = fraction
+    checks.choice("fraction_basis", fraction_basis, FRACTION_BASES)
+    if daily_traffic is not None:
+        daily_traffic = checks.number("daily_traffic", daily_traffic, lo=0.0, lo_open=True,
+                                      allowed="a positive number of users per day")
+    if not isinstance(looks, (list, tuple)):
+        from seqtest.monitoring.lookfile import looks_from_frame
+        kind_hint = metric or (getattr(plan, "metric", None) or {}).get("kind")
+        looks = looks_from_frame(looks, kind_hint)
+    pm, kind, alloc = plan_metric(plan, metric, allocation)
+    scale = getattr(plan, "scale", None) or pm.get("scale", "difference")
+    if len(looks) == 0:
+        raise checks.fail("looks", [], "at least one look of totals")
+
+    arms = metrics.validate_looks(kind, list(looks))
+    eff = metrics.effect(kind, arms["control"], arms["treatment"], scale=scale)
+    warnings: list[str] = []
+    degenerate = np.atleast_1d(np.asarray(eff.degenerate, bool))
+    for j in np.flatnonzero(degenerate):
+        warnings.append(f"look {j + 1}: the variance estimate is zero (no variation in "
+                        "either arm yet), so z is set to 0 and this look cannot stop "
+                        "for efficacy")
+    rule = _rule(plan, pm, max_n, fraction_basis)
+    table = rule.evaluate(eff, final=final, warnings=warnings)
+    last = table.analysed
+    small = metrics.small_sample(kind, arms)[:last]
+    if small.any():
+        warnings.append(metrics.small_sample_message(kind, [int(j) + 1
+                                                            for j in np.flatnonzero(small)]))
+    records = _records(eff, table, kind, alloc, srm_threshold, small, plan.sides, warnings)
+    fin = rule.final_inference(eff, table, warnings)
+    proj = rule.projection(eff, table, daily_traffic)
+    direction = None
+    if table.decision == Decision.STOP_EFFICACY:
+        assert table.stop is not None
+        z_stop = float(np.atleast_1d(eff.test_estimate)[table.stop])
+        direction = "treatment_better" if z_stop > 0 else "control_better"
+    stopped = None if table.stop is None else table.stop + 1
+    return Analysis(decision=table.decision, direction=direction, stopped_at=stopped,
+                    looks=records, final=fin, projection=proj, warnings=warnings,
+                    metric_kind=kind, scale=scale, test_scale=TEST_SCALE[scale],
+                    plan_kind=rule.kind)
+
+
+def _rule(plan: Any, pm: dict, max_n: float | None, fraction_basis: str) -> Any:
+    if not isinstance(plan, Plan):
+        return rule_for(plan)
+    max_information = None
+    if fraction_basis == "information":
+        if not pm or "mde" not in pm:
+            raise ValueError("fraction_basis: 'information' needs a plan with a metric (for "
+                             "the maximum information)")
+        from seqtest.planning.sizing import delta_and_unit
+        max_information = plan.max_information(delta_and_unit(pm)[0])
+    total = _max_total(plan, max_n) if (pm or max_n is not None) else None
+    if fraction_basis == "sample" and total is None:
+        total = _max_total(plan, max_n)
+    return rule_for(plan, max_n=total, fraction_basis=fraction_basis,
+                    max_information=max_information)
+
+
+def _records(eff: metrics.Effect, table: LookTable, kind: str, alloc: float,
+             srm_threshold: float, small: np.ndarray, sides: int, warnings: list[str]
+             ) -> list[LookResult]:
+    def col(x: Any) -> np.ndarray:
+        return np.atleast_1d(np.asarray(x, float))
+
+    n_c, n_t = col(eff.n_control), col(eff.n_treatment)
+    z = col(eff.z)
+    unadj = sides * special.ndtr(-np.abs(z)) if sides == 2 else special.ndtr(-z)
+    out = []
+    for j in range(table.analysed):
+        srm_p = srm_at_look(kind, n_c[j], n_t[j], alloc, srm_threshold, j + 1, warnings)
+        out.append(LookResult(
+            look=j + 1, n_control=float(n_c[j]), n_treatment=float(n_t[j]),
+            control_value=float(col(eff.control_value)[j]),
+            treatment_value=float(col(eff.treatment_value)[j]),
+            estimate=float(col(eff.estimate)[j]),
+            test_estimate=float(col(eff.test_estimate)[j]), se=float(col(eff.test_se)[j]),
+            z=float(z[j]), information=float(col(eff.information)[j]),
+            information_fraction=float(table.fraction[j]),
+            efficacy_z=float(table.efficacy_z[j]),
+            futility_z=None if table.futility_z is None else float(table.futility_z[j]),
+            p_threshold=float(table.p_threshold[j]), unadjusted_p=float(unadj[j]),
+            interval_lower=float(table.interval_lower[j]),
+            interval_upper=float(table.interval_upper[j]),
+            decision=decision_from_code(table.codes[j]),
+            srm_p_value=srm_p,
+            always_valid_p=None if table.always_valid_p is None
+            else float(table.always_valid_p[j]),
+            small_sample=bool(small[j]),
+        ))
+    return out
+
+
+def plan_metric(plan: Any, metric: str | None, allocation: float | None
+                ) -> tuple[dict, str, float]:
+    """The plan's metric description, the metric kind to analyse and the allocation,
+    reconciling the arguments with the plan."""
+    pm = getattr(plan, "metric", None) or {}
+    kind = metric or pm.get("kind")
+    if kind is None:
+        raise ValueError("metric: the plan has no metric; give metric='binary', "
+                         "'continuous' or 'rate'")
+    if pm and metric and metric != pm.get("kind"):
+        raise ValueError(f"metric: got {metric!r} but the plan is for {pm.get('kind')!r}")
+    alloc = float(allocation if allocation is not None else pm.get("allocation", 1.0))
+    return pm, kind, alloc
+
+
+def srm_at_look(kind: str, n_c: float, n_t: float, allocation: float, threshold: float,
+                look: int, warnings: list[str]) -> float | None:
+    """Sample-ratio check of one look's arm sizes; a mismatch adds a warning.
+
+    Rate metrics are skipped: exposure is not a count of units."""
+    if kind == "rate":
+        return None
+    try:
+        srm = metrics.srm_check(int(round(n_c)), int(round(n_t)), allocation, threshold)
+    except (ValueError, ArithmeticError):
+        return None
+    if srm.mismatch:
+        warnings.append(f"look {look}: {srm.message}")
+    return srm.p_value
+
+
+def _max_total(plan: Plan, max_n: float | None) -> float:
+    if max_n is not None:
+        v = float(max_n)
+        if not math.isfinite(v) or v <= 0:
+            raise ValueError(f"max_n: got {max_n!r}; allowed is a positive total sample")
+        return v
+    if plan.metric is None:
+        raise ValueError("max_n: the plan has no metric, so give the maximum total sample "
+                         "over both arms")
+    from seqtest.planning.sizing import max_sizes
+    n_c, n_t = max_sizes(plan, **plan.metric)
+    return float(n_c + n_t)

@@ -1,0 +1,541 @@
+"""The stopping rule of each kind of plan, applied to the looks observed so far.
+
+A rule turns the per-look statistics of :class:`~seqtest.monitoring.metrics.Effect`
+(on the test scale, see :mod:`seqtest.core.scales`) into the per-look boundaries,
+intervals and decisions (:class:`LookTable`), and at a stop into adjusted inference.
+:func:`rule_for` picks the rule of a plan; :func:`seqtest.monitoring.analysis.analyze`
+and the simulator call the same rules, so the rules are written once.
+
+Group-sequential plans (:class:`GroupSequentialRule`)
+    Boundaries are recomputed at every look by error spending on the information
+    fractions actually observed (Lan and DeMets 1983), so unplanned, skipped or moved
+    looks keep the type I error: the spending function's cumulative alpha at
+    ``min(t_k, 1)``; the look that reaches the maximum (``t_k >= 1``) or is declared
+    final spends all that is left; correlations use the uncapped fractions, so
+    over-running information is handled. A classical plan (Pocock, O'Brien-Fleming,
+    ...) is monitored through the cumulative alpha of its design, interpolated
+    monotonely (PCHIP). Futility: beta spending under the design alternative on the
+    same fractions; a non-binding plan computes efficacy ignoring it. Repeated
+    confidence intervals use the efficacy boundaries of the same spending without any
+    futility boundary, so they hold their level whatever the stopping rule (Jennison
+    and Turnbull 2000, chapter 9), also for binding plans.
+
+Mixture plans (:class:`MixtureRule`)
+    The always-valid p-value and confidence sequence of the normal-mixture test
+    (:mod:`seqtest.core.normal_mixture`); a look stops for efficacy once the p-value
+    reaches alpha, and completes at the plan's cap.
+
+References
+----------
+.. [1] Lan, K. K. G. and DeMets, D. L. (1983). Biometrika 70, 659-663.
+.. [2] Jennison, C. and Turnbull, B. W. (2000). Group Sequential Methods with
+       Applications to Clinical Trials, chapters 7-10.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from scipy import special
+
+from seqtest.core import spending
+from seqtest.core.boundaries import binding_bounds, futility_bounds, spending_bounds
+from seqtest.core.errors import LookDataError
+from seqtest.core.normal_mixture import always_valid
+from seqtest.core.region import Region
+from seqtest.core.scales import from_test_scale
+from seqtest.core.spending import SpendingFunction
+from seqtest.core.vocabulary import Decision, decision_from_code
+from seqtest.monitoring import inference
+from seqtest.monitoring.metrics import Effect
+from seqtest.planning.design import Plan
+from seqtest.planning.mixture import MixturePlan
+
+__all__ = [
+    "FinalInference",
+    "always_valid_effect",
+    "GroupSequentialRule",
+    "LookTable",
+    "MixtureRule",
+    "Projection",
+    "rule_for",
+]
+
+FRACTION_BASES = ("sample", "information")
+# |z| beyond which stage-wise inference is not attempted (the grid reaches |z| = 40)
+_Z_INFERENCE_MAX = 30.0
+_CONTINUE = Decision.CONTINUE.code
+_EFFICACY = Decision.STOP_EFFICACY.code
+_FUTILITY = Decision.STOP_FUTILITY.code
+_COMPLETE = Decision.COMPLETE.code
+
+
+@dataclass(frozen=True)
+class FinalInference:
+    """Inference at stopping, adjusted for the sequential design.
+
+    Attributes
+    ----------
+    p_value, ci_lower, ci_upper, median_unbiased : float
+        Stage-wise ordering p-value and interval, and the median-unbiased estimate
+        (for a mixture plan: the always-valid p-value and confidence sequence; no
+        median-unbiased estimate).
+    naive_estimate, naive_ci_lower, naive_ci_upper, naive_p_value : float
+        The same from a fixed-sample analysis of the last look, which ignores the
+        looks (biased away from zero after an early stop).
+    """
+
+    p_value: float
+    ci_lower: float
+    ci_upper: float
+    median_unbiased: float | None
+    naive_estimate: float
+    naive_ci_lower: float
+    naive_ci_upper: float
+    naive_p_value: float
+
+
+@dataclass(frozen=True)
+class Projection:
+    """What lies ahead from the current look.
+
+    Attributes
+    ----------
+    conditional_power_planned : float
+        Chance of reaching significance at a later planned look if the true effect is
+        the planned one, in the direction the data point to (a two-sided plan: the
+        sign of the current estimate; a one-sided plan: the planned, positive
+        direction).
+    conditional_power_current : float
+        The same if the true effect is the current estimate.
+    next_look_fraction : float or None
+        Information fraction of the next planned look.
+    more_units_to_next_look, more_units_to_end : float or None
+        Users (exposure, for rates) over both arms still needed.
+    days_to_next_look, days_to_end : float or None
+        The same in days, given the daily traffic.
+    """
+
+    conditional_power_planned: float
+    conditional_power_current: float
+    next_look_fraction: float | None
+    more_units_to_next_look: float | None
+    more_units_to_end: float | None
+    days_to_next_look: float | None
+    days_to_end: float | None
+
+
+@dataclass(frozen=True)
+class LookTable:
+    """A rule applied to the looks: per-look arrays over the looks analysed.
+
+    Attributes
+    ----------
+    analysed : int
+        Looks analysed (later ones came after the maximum or a stop).
+    fraction : ndarray
+        Information fraction of each look (of the maximum sample, or of the cap).
+    efficacy_z, futility_z : ndarray, ndarray or None
+        Boundaries on the z scale of the test.
+    p_threshold : ndarray
+        The p-value each look had to reach to stop for efficacy.
+    interval_lower, interval_upper : ndarray
+        Per-look interval valid at every look (repeated confidence interval, or the
+        confidence sequence), on the effect's reported scale.
+    codes : ndarray of int8
+        Each look's own decision code (:class:`~seqtest.core.vocabulary.Decision`).
+    always_valid_p : ndarray or None
+    stop : int or None
+        0-based look at which the experiment stopped (or was advised to).
+    decision : Decision
+    last_final : bool
+        The last analysed look was the final one.
+    """
+
+    analysed: int
+    fraction: np.ndarray
+    efficacy_z: np.ndarray
+    futility_z: np.ndarray | None
+    p_threshold: np.ndarray
+    interval_lower: np.ndarray
+    interval_upper: np.ndarray
+    codes: np.ndarray
+    always_valid_p: np.ndarray | None
+    stop: int | None
+    decision: Decision
+    last_final: bool
+    future_fractions: np.ndarray
+    future_efficacy: np.ndarray
+
+
+def _arr(x: Any) -> np.ndarray:
+    return np.atleast_1d(np.asarray(x, float))
+
+
+def _unadjusted_p(z: np.ndarray, sides: int) -> np.ndarray:
+    zz = np.asarray(z, float)
+    return sides * special.ndtr(-np.abs(zz)) if sides == 2 else special.ndtr(-zz)
+
+
+def _naive(eff: Effect, j: int, alpha: float, sides: int, scale: str) -> dict[str, float]:
+    est = float(_arr(eff.test_estimate)[j])
+    se = float(_arr(eff.test_se)[j])
+    lo, hi = inference.naive_ci(est, se, alpha, sides)
+    return {"naive_estimate": float(_arr(eff.estimate)[j]),
+            "naive_ci_lower": float(from_test_scale(lo, scale)),
+            "naive_ci_upper": float(from_test_scale(hi, scale)),
+            "naive_p_value": float(_unadjusted_p(np.array(_arr(eff.z)[j]), sides))}
+
+
+# -- group-sequential plans -----------------------------------------------------------
+
+class GroupSequentialRule:
+    """The rule of a group-sequential :class:`~seqtest.planning.design.Plan`.
+
+    Parameters
+    ----------
+    plan : Plan
+    max_n : float or None
+        Maximum total sample over both arms (exposure for rates), for fractions by
+        sample size; ``None`` when the fractions are given directly.
+    fraction_basis : {"sample", "information"}
+        How information fractions are measured: ``n_k / max_n`` (the default; keeps
+        the boundaries free of the noise in re-estimated variances, common practice)
+        or ``I_k / I_max`` with ``I_k = 1 / se_k^2``.
+    max_information : float or None
+        ``I_max``, for ``fraction_basis="information"``.
+    """
+
+    kind = "group_sequential"
+
+    def __init__(self, plan: Plan, *, max_n: float | None = None,
+                 fraction_basis: str = "sample", max_information: float | None = None
+                 ) -> None:
+        self.plan = plan
+        self.max_n = max_n
+        self.fraction_basis = fraction_basis
+        self.max_information = max_information
+        self._spending = self._efficacy_spending()
+
+    # -- boundaries on observed fractions ---------------------------------------------
+    def _efficacy_spending(self) -> SpendingFunction:
+        plan = self.plan
+        if isinstance(plan.efficacy, SpendingFunction):
+            return plan.efficacy
+        # classical shape: spend what the design spends, interpolated (PCHIP)
+        share = np.asarray(plan.cumulative_alpha, float) / plan.alpha
+        share = np.clip(np.maximum.accumulate(share), 0.0, 1.0)
+        share[-1] = 1.0
+        return spending.from_table(plan.info_fractions, share)
+
+    def _cumulative_alpha(self, t: np.ndarray, final: bool) -> np.ndarray:
+        a_tail = self.plan.alpha / self.plan.sides
+        cum = np.asarray(self._spending(np.minimum(t, 1.0), a_tail), float).reshape(t.shape)
+        if final or t[-1] >= 1.0:
+            cum[-1] = a_tail
+        return cum
+
+    @staticmethod
+    def _check_fractions(t: np.ndarray) -> None:
+        if t.size == 0 or np.any(~np.isfinite(t)) or t[0] <= 0 or np.any(np.diff(t) <= 0):
+            raise ValueError(f"fractions: got {t.tolist()}; allowed is strictly increasing "
+                             "positive information fractions")
+        if np.any(t[:-1] >= 1.0):
+            k = int(np.argmax(t >= 1.0)) + 1
+            raise ValueError(f"fractions: look {k} already reached the maximum information "
+                             f"(fraction {t[k - 1]:.3f}), so it was the final look")
+
+    def boundaries(self, fractions: Any, *, final: bool = False
+                   ) -> tuple[np.ndarray, np.ndarray | None]:
+        """Efficacy and futility boundaries for looks at the given fractions.
+
+        Parameters
+        ----------
+        fractions : array_like
+            Observed information fractions of the looks so far, strictly increasing;
+            values above 1 mean the information ran over the maximum.
+        final : bool
+            The last look is the final one: it spends all the alpha left. A look with
+            fraction >= 1 is always final.
+
+        Returns
+        -------
+        efficacy_z, futility_z : ndarray, ndarray or None
+            Boundaries per look (futility ``None`` for plans without one). At the
+            final look the futility boundary equals the efficacy boundary.
+        """
+        t = np.asarray(fractions, dtype=float).ravel()
+        self._check_fractions(t)
+        plan = self.plan
+        is_final = bool(final or t[-1] >= 1.0)
+        cum = self._cumulative_alpha(t, is_final)
+        fut = plan.futility
+        if fut is None:
+            return spending_bounds(t, cum, sides=plan.sides, r=plan.r), None
+        beta = 1.0 - plan.power
+        if plan.binding:
+            return binding_bounds(t, plan.alpha, plan.sides, self._spending, fut, beta,
+                                  plan.drift, plan.r, final=is_final, cumulative_alpha=cum)
+        eff = spending_bounds(t, cum, sides=plan.sides, r=plan.r)
+        return eff, futility_bounds(t, plan.drift, eff, plan.sides, beta, fut, plan.r,
+                                    final=is_final)
+
+    def interval_boundaries(self, fractions: Any, efficacy_z: np.ndarray, *,
+                            final: bool = False) -> np.ndarray:
+        """Boundaries for repeated confidence intervals: the efficacy boundaries of the
+        same spending with no futility boundary (for a binding plan they differ from
+        the test's own, which rely on paths stopping at futility)."""
+        if not self.plan.binding or self.plan.futility is None:
+            return efficacy_z
+        t = np.asarray(fractions, dtype=float).ravel()
+        cum = self._cumulative_alpha(t, bool(final or t[-1] >= 1.0))
+        return spending_bounds(t, cum, sides=self.plan.sides, r=self.plan.r)
+
+    def region(self, efficacy_z: np.ndarray, futility_z: np.ndarray | None,
+               *, binding_only: bool = False) -> Region:
+        """The continuation region of these boundaries (``binding_only``: futility only
+        when the plan's futility is binding, as the error computations see it)."""
+        use_fut = futility_z is not None and (self.plan.binding or not binding_only)
+        return Region.of_plan(self.plan.sides, efficacy_z, futility_z if use_fut else None)
+
+    # -- the looks --------------------------------------------------------------------
+    def fractions(self, eff: Effect) -> np.ndarray:
+        """Information fraction of each look (see the class docstring)."""
+        if self.fraction_basis == "sample":
+            if self.max_n is None:
+                raise ValueError("max_n: the plan has no metric, so give the maximum total "
+                                 "sample over both arms")
+            t = (_arr(eff.n_control) + _arr(eff.n_treatment)) / self.max_n
+        else:
+            info = _arr(eff.information)
+            bad = np.flatnonzero(~(info > 0))
+            if bad.size:
+                raise LookDataError(
+                    "the variance estimate is zero, so the look has no statistical "
+                    "information; measure fractions by sample size "
+                    "(fraction_basis='sample') or wait for variation in the data",
+                    look=int(bad[0]) + 1)
+            assert self.max_information is not None
+            t = info / self.max_information
+        for j in range(1, t.size):
+            if t[j] <= t[j - 1]:
+                raise LookDataError(
+                    f"the information fraction did not grow ({t[j - 1]:.4f} at look {j}, "
+                    f"{t[j]:.4f} now); a look needs new data", look=j + 1)
+        return t
+
+    def future_fractions(self, t_now: float) -> np.ndarray:
+        """Planned looks still ahead; a planned look within 1% of the maximum
+        information of the current one is taken to be the current one."""
+        planned = self.plan.info_fractions
+        future = planned[planned > t_now + 0.01]
+        if future.size == 0 or future[-1] < 1.0:
+            future = np.append(future, 1.0)
+        return future
+
+    def evaluate(self, eff: Effect, *, final: bool, warnings: list[str]) -> LookTable:
+        """Boundaries, intervals and decisions of the looks."""
+        plan = self.plan
+        t_all = self.fractions(eff)
+        k = t_all.size
+        reached = np.flatnonzero(t_all >= 1.0)
+        last = k
+        if reached.size and reached[0] < k - 1:
+            last = int(reached[0]) + 1
+            warnings.append(f"look {last} reached the maximum information and was the final "
+                            f"look; looks {last + 1}..{k} are not analysed")
+        t = t_all[:last]
+        last_final = bool(final or t[-1] >= 1.0)
+        # Boundaries of all looks in one pass: a look's boundary depends only on the
+        # fractions up to it, so these are the boundaries known at each look. When the
+        # last look is not final, the remaining planned looks are appended (for the
+        # projection); that changes nothing before them.
+        future = np.empty(0) if last_final else self.future_fractions(float(t[-1]))
+        t_ext = np.concatenate([t, future])
+        a_all, b_all = self.boundaries(t_ext, final=True)
+        a, b = a_all[:last], None if b_all is None else b_all[:last]
+        a_int = self.interval_boundaries(t_ext, a_all, final=True)[:last]
+        z = _arr(eff.z)[:last]
+        degenerate = np.atleast_1d(np.asarray(eff.degenerate, bool))[:last]
+        codes = self.region(a, b).classify(z, degenerate=degenerate)
+        if last_final:
+            codes[-1] = _EFFICACY if codes[-1] == _EFFICACY else _COMPLETE
+        stop: int | None = None
+        for j in range(last):
+            c = int(codes[j])
+            binding_stop = c == _FUTILITY and (plan.binding or j == last - 1)
+            if c in (_EFFICACY, _COMPLETE) or binding_stop:
+                stop = j
+                break
+            if c == _FUTILITY:
+                warnings.append(f"look {j + 1} crossed the non-binding futility boundary and "
+                                "the experiment went on; that keeps the type I error")
+        decision = Decision.CONTINUE if stop is None else decision_from_code(codes[stop])
+        if stop is not None and stop < last - 1:
+            k_all = t_all.size
+            warnings.append(f"the experiment stopped at look {stop + 1} ({decision.value}); "
+                            f"looks {stop + 2}..{k_all} came after the stop and are not "
+                            "analysed")
+            last = stop + 1
+            t, a, codes = t[:last], a[:last], codes[:last]
+            b = None if b is None else b[:last]
+            a_int = a_int[:last]
+        est, se = _arr(eff.test_estimate)[:last], _arr(eff.test_se)[:last]
+        lo, hi = inference.repeated_ci(est, se, a_int, plan.sides)
+        return LookTable(
+            analysed=last, fraction=t, efficacy_z=a, futility_z=b,
+            p_threshold=plan.sides * special.ndtr(-a),
+            interval_lower=np.asarray(from_test_scale(lo, eff.scale), float),
+            interval_upper=np.asarray(from_test_scale(hi, eff.scale), float),
+            codes=codes, always_valid_p=None, stop=stop, decision=decision,
+            last_final=last_final, future_fractions=future,
+            future_efficacy=a_all[last:])
+
+    # -- at the stop ------------------------------------------------------------------
+    def final_inference(self, eff: Effect, table: LookTable, warnings: list[str]
+                        ) -> FinalInference | None:
+        """Stage-wise p-value, interval and median-unbiased estimate at the stop."""
+        if table.stop is None:
+            return None
+        j = table.stop
+        z = _arr(eff.z)[: j + 1]
+        if np.atleast_1d(np.asarray(eff.degenerate, bool))[j]:
+            warnings.append(f"look {j + 1}: no variation in either arm, so no adjusted "
+                            "p-value or interval can be computed")
+            return None
+        if abs(z[j]) > _Z_INFERENCE_MAX:
+            warnings.append(f"look {j + 1}: |z| = {abs(z[j]):.1f} is beyond "
+                            f"{_Z_INFERENCE_MAX:g}, where the unadjusted p-value is below "
+                            "1e-190 and the numerical integration for the adjusted interval "
+                            "does not reach; check the totals, and use the unadjusted "
+                            "figures with care")
+            return None
+        plan = self.plan
+        # Information for inference: proportional to the fractions used for the
+        # boundaries, anchored at the stopping look's observed information, so the
+        # correlation structure matches the one the boundaries were computed on.
+        t = table.fraction[: j + 1]
+        info = t * (float(_arr(eff.information)[j]) / t[-1])
+        b = None if table.futility_z is None else table.futility_z[: j + 1]
+        # a binding futility boundary is part of the sample space: paths that stop
+        # for futility never reach later looks (a non-binding one is ignored, which
+        # keeps the p-value valid whether or not it was obeyed)
+        region = self.region(table.efficacy_z[: j + 1], b, binding_only=True)
+        sw = inference.stagewise(z, info, region, alpha=plan.alpha, sides=plan.sides,
+                                 r=plan.r)
+        scale = eff.scale
+        return FinalInference(
+            p_value=sw.p_value, ci_lower=float(from_test_scale(sw.ci_lower, scale)),
+            ci_upper=float(from_test_scale(sw.ci_upper, scale)),
+            median_unbiased=float(from_test_scale(sw.median_unbiased, scale)),
+            **_naive(eff, j, plan.alpha, plan.sides, scale))
+
+    def projection(self, eff: Effect, table: LookTable, daily_traffic: float | None
+                   ) -> Projection | None:
+        """Conditional power and the users (and days) to the next look and to the end."""
+        if table.decision != Decision.CONTINUE or table.last_final:
+            return None
+        plan = self.plan
+        j = table.analysed - 1
+        z_now, t_now = float(_arr(eff.z)[j]), float(table.fraction[j])
+        future, fa = table.future_fractions, table.future_efficacy
+        # the planned effect in the direction the data point to (two-sided plans);
+        # one-sided plans test the positive direction only
+        sign = -1.0 if (plan.sides == 2 and z_now < 0) else 1.0
+        cp_plan = inference.conditional_power(z_now, t_now, future, fa, sign * plan.drift,
+                                              sides=plan.sides, r=plan.r)
+        cp_now = inference.conditional_power(z_now, t_now, future, fa,
+                                             z_now / math.sqrt(t_now), sides=plan.sides,
+                                             r=plan.r)
+        nxt = float(future[0])
+        more_next = more_end = d_next = d_end = None
+        if self.max_n is not None:
+            more_next = (nxt - t_now) * self.max_n
+            more_end = max(0.0, (1.0 - t_now) * self.max_n)
+            if daily_traffic is not None:
+                d_next, d_end = more_next / daily_traffic, more_end / daily_traffic
+        return Projection(cp_plan, cp_now, nxt, more_next, more_end, d_next, d_end)
+
+
+# -- mixture plans ----------------------------------------------------------------------
+
+class MixtureRule:
+    """The rule of a :class:`~seqtest.planning.mixture.MixturePlan`."""
+
+    kind = "mixture"
+
+    def __init__(self, plan: MixturePlan) -> None:
+        self.plan = plan
+        self._result: Any = None
+
+    def evaluate(self, eff: Effect, *, final: bool, warnings: list[str]) -> LookTable:
+        plan = self.plan
+        size = np.maximum(_arr(eff.n_control), _arr(eff.n_treatment))
+        res = always_valid_effect(eff, plan)
+        self._result = res
+        codes = np.atleast_1d(res.decision_code).astype(np.int8).copy()
+        k = codes.size
+        if final and codes[-1] == _CONTINUE:
+            codes[-1] = _COMPLETE
+        stop_at = np.flatnonzero(codes != _CONTINUE)
+        stop = int(stop_at[0]) if stop_at.size else None
+        last = k if stop is None else stop + 1
+        if stop is not None and stop < k - 1:
+            warnings.append(f"the experiment stopped at look {stop + 1} "
+                            f"({decision_from_code(codes[stop]).value}); looks "
+                            f"{stop + 2}..{k} came after the stop and are not analysed")
+        frac = (size / plan.max_n_per_arm) if plan.max_n_per_arm else np.full(k, np.nan)
+        decision = decision_from_code(codes[last - 1])
+        return LookTable(
+            analysed=last, fraction=frac[:last],
+            efficacy_z=np.atleast_1d(res.boundary_z)[:last].astype(float), futility_z=None,
+            p_threshold=np.full(last, plan.alpha),
+            interval_lower=np.atleast_1d(res.ci_lower)[:last],
+            interval_upper=np.atleast_1d(res.ci_upper)[:last],
+            codes=codes[:last], always_valid_p=np.atleast_1d(res.p_value)[:last],
+            stop=None if decision == Decision.CONTINUE else last - 1, decision=decision,
+            last_final=decision != Decision.CONTINUE, future_fractions=np.empty(0),
+            future_efficacy=np.empty(0))
+
+    def final_inference(self, eff: Effect, table: LookTable, warnings: list[str]
+                        ) -> FinalInference | None:
+        if table.stop is None:
+            return None
+        j = table.stop
+        assert table.always_valid_p is not None
+        return FinalInference(
+            p_value=float(table.always_valid_p[j]), ci_lower=float(table.interval_lower[j]),
+            ci_upper=float(table.interval_upper[j]), median_unbiased=None,
+            **_naive(eff, j, self.plan.alpha, self.plan.sides, eff.scale))
+
+    def projection(self, eff: Effect, table: LookTable, daily_traffic: float | None
+                   ) -> Projection | None:
+        return None
+
+
+def rule_for(plan: Any, **options: Any) -> GroupSequentialRule | MixtureRule:
+    """The rule of a plan (options as :class:`GroupSequentialRule` takes them)."""
+    if isinstance(plan, MixturePlan):
+        return MixtureRule(plan)
+    if isinstance(plan, Plan):
+        return GroupSequentialRule(plan, **options)
+    raise ValueError(f"plan: got {type(plan).__name__}; allowed is a Plan, a MixturePlan or "
+                     "a plan document")
+
+
+def always_valid_effect(eff: Effect, plan: MixturePlan, *, null: float | None = None) -> Any:
+    """:func:`~seqtest.core.normal_mixture.always_valid` on an
+    :class:`~seqtest.monitoring.metrics.Effect` (looks on the last axis): the effect's
+    scale must be the plan's; the null defaults to the one the effect was computed with;
+    the size of the larger arm is passed as ``n`` for the plan's cap."""
+    if not isinstance(plan, MixturePlan):
+        raise ValueError(f"plan: got {type(plan).__name__}; allowed is a MixturePlan")
+    if eff.scale != plan.scale:
+        raise ValueError(f"eff: the effect is on the {eff.scale} scale but the plan on the "
+                         f"{plan.scale} scale; compute the effect with scale={plan.scale!r}")
+    n = np.maximum(np.asarray(eff.n_control, float), np.asarray(eff.n_treatment, float))
+    return always_valid(eff.estimate, eff.se, plan, null=eff.null if null is None else null,
+                        n=n, scale=eff.scale)

@@ -1,0 +1,1 @@
+"""Plans: group-sequential designs, sizing, mixture plans, plan documents."""

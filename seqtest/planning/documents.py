@@ -1,0 +1,400 @@
+"""Plan documents: reading them back, and refusing those whose numbers were changed.
+
+A plan document (``Plan.to_dict()``, ``MixturePlan.to_dict()``; what ``seqtest plan
+--json`` writes and the service stores) has a ``kind``, the ``version`` of seqtest that
+wrote it, the ``inputs`` it was designed from and the numbers ``computed`` from them.
+:func:`plan_from_dict` checks every field (type, range, length; a message naming the
+field), then, unless the caller trusts the document, designs the plan again from its
+inputs and compares: a document whose computed numbers disagree with its inputs was
+edited, and deciding on it would break the error rates its inputs promise (a boundary
+lowered from 2.79 to 1.96, a drift halved so the sample is a quarter of what the power
+needs), so it is refused with :class:`~seqtest.core.errors.PlanDocumentError` naming the
+field.
+
+Releases. A document written by an earlier release is not refused because this release
+computes a little differently: the numbers of each earlier release are accepted within
+the documented size of what changed since (:data:`RELEASE_CHANGES`), the plan keeps its
+own numbers (a frozen plan decides as it did), and :attr:`Plan.notes` says what this
+release would compute instead. A document of this release must agree to within
+:data:`SAME_RELEASE_TOLERANCE` (recomputation is deterministic up to rounding).
+
+Old names of the first release (``inputs.info_fractions``, ``computed.nominal_p``) are
+read with a :class:`DeprecationWarning`, for one release.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Mapping
+from dataclasses import replace
+from typing import Any
+
+import numpy as np
+
+from seqtest.core import checks, classical, spending
+from seqtest.core.errors import InputError, PlanDocumentError
+from seqtest.core.version import __version__
+from seqtest.core.vocabulary import PLAN_KINDS, SCALES
+from seqtest.planning.design import MAX_GRID_R, Plan, design
+from seqtest.planning.mixture import MixturePlan, mixture_plan
+from seqtest.planning.sizing import check_metric
+
+__all__ = ["RELEASE_CHANGES", "SAME_RELEASE_TOLERANCE", "plan_from_dict"]
+
+#: Largest difference accepted between a document of this release and a recomputation
+#: (absolute on z and probabilities, relative on the drift and tau2).
+SAME_RELEASE_TOLERANCE = 1e-8
+
+#: For documents of earlier releases: how much each kind of number may differ from
+#: what this release computes, and why (the changes since that release).
+RELEASE_CHANGES: dict[str, dict[str, Any]] = {
+    "0.1.0": {
+        "z": 1e-3,
+        "probability": 1e-5,
+        "relative": 5e-3,
+        "why": "0.2.0 made the numerical integration accurate when two looks are close "
+               "together (boundaries moved by up to about 1e-4, the drift of such plans "
+               "by up to about 0.1%) and replaced the root finders (changes near 1e-12)",
+    },
+}
+
+_GS_INPUTS = {"alpha", "sides", "power", "information_fractions", "efficacy", "futility",
+              "binding", "metric", "grid_r"}
+_GS_COMPUTED = {"efficacy_z", "futility_z", "cumulative_alpha", "p_threshold", "drift",
+                "fixed_drift", "inflation"}
+_MIX_INPUTS = ("alpha", "sides", "mde", "max_n_per_arm", "unit_variance", "scale", "metric")
+_MIX_COMPUTED = ("tau2", "tau2_rule")
+_RENAMED = {"inputs": {"info_fractions": "information_fractions"},
+            "computed": {"nominal_p": "p_threshold"}}
+
+
+def plan_from_dict(document: Any, *, trust: bool = False) -> Plan | MixturePlan:
+    """Read a plan document of either kind.
+
+    Parameters
+    ----------
+    document : dict
+        A plan document (see the module docstring).
+    trust : bool
+        Skip the comparison of the computed numbers with a recomputation from the
+        inputs (every field is still checked). Only for documents the caller verified
+        before, e.g. a plan the service verified when it stored it.
+
+    Raises
+    ------
+    PlanDocumentError
+        Naming the field: not a plan document, a missing or malformed field, or
+        computed numbers that disagree with the inputs.
+    """
+    doc = _mapping("plan", document)
+    kind = doc.get("kind")
+    if kind not in PLAN_KINDS:
+        raise PlanDocumentError(f"kind: got {checks.show(kind)}; allowed are "
+                                f"{', '.join(PLAN_KINDS)}", field="kind")
+    version = doc.get("version", "0.1.0")
+    if not isinstance(version, str) or len(version) > 40:
+        raise PlanDocumentError(f"version: got {checks.show(version)}; allowed is the "
+                                "release that wrote the document, e.g. '0.2.0'",
+                                field="version")
+    if version != __version__ and version not in RELEASE_CHANGES:
+        raise PlanDocumentError(
+            f"version: got {version!r}; this is seqtest {__version__}, which reads "
+            f"documents of {', '.join([__version__, *RELEASE_CHANGES])}; read it with the "
+            "release that wrote it", field="version")
+    inputs = _renamed("inputs", _mapping("inputs", _field(doc, "inputs", "")))
+    computed = _renamed("computed", _mapping("computed", _field(doc, "computed", "")))
+    _no_extra(doc, {"kind", "version", "inputs", "computed"}, "")
+    try:
+        if kind == "group_sequential":
+            plan: Plan | MixturePlan = _read_group_sequential(inputs, computed)
+        else:
+            plan = _read_mixture(inputs, computed)
+    except PlanDocumentError:
+        raise
+    except InputError as exc:
+        raise PlanDocumentError(f"inputs: {exc}", field="inputs") from None
+    if trust:
+        return plan
+    return _verify(plan, inputs, version)
+
+
+# -- checking fields ---------------------------------------------------------------------
+
+def _mapping(name: str, value: Any) -> Mapping:
+    if not isinstance(value, Mapping):
+        raise PlanDocumentError(f"{name}: got {checks.show(value)}; allowed is a JSON object"
+                                + (" (a plan document, e.g. from 'seqtest plan --json')"
+                                   if name == "plan" else ""), field=None if name == "plan"
+                                else name)
+    return value
+
+
+def _field(d: Mapping, key: str, where: str) -> Any:
+    if key not in d:
+        path = f"{where}.{key}" if where else key
+        raise PlanDocumentError(f"{path}: missing; the document lacks this field",
+                                field=path)
+    return d[key]
+
+
+def _no_extra(d: Mapping, allowed: set[str], where: str) -> None:
+    extra = sorted(str(k) for k in d if k not in allowed)
+    if extra:
+        path = f"{where}.{extra[0]}" if where else extra[0]
+        raise PlanDocumentError(f"{path}: unknown field; allowed are "
+                                f"{', '.join(sorted(allowed))}", field=path)
+
+
+def _renamed(where: str, d: Mapping) -> dict:
+    out = dict(d)
+    for old, new in _RENAMED.get(where, {}).items():
+        if old in out:
+            if new in out:
+                raise PlanDocumentError(f"{where}.{old}: give only {where}.{new} (the same "
+                                        "field under its new name)", field=f"{where}.{old}")
+            warnings.warn(f"plan document: {where}.{old} is now {where}.{new}; the old name "
+                          "is read for this release only", DeprecationWarning, stacklevel=4)
+            out[new] = out.pop(old)
+    return out
+
+
+def _check(path: str, fn: Any, *args: Any, **kw: Any) -> Any:
+    """Run a check from :mod:`seqtest.core.checks`, naming the document's field."""
+    try:
+        return fn(path, *args, **kw)
+    except InputError as exc:
+        raise PlanDocumentError(str(exc), field=path) from None
+
+
+def _numbers(path: str, value: Any, *, length: int | None, missing: float,
+             lo: float = -math.inf, hi: float = math.inf) -> np.ndarray:
+    """A JSON list of numbers (``null`` for a non-finite value, read as ``missing``)."""
+    if not isinstance(value, list):
+        raise PlanDocumentError(f"{path}: got {checks.show(value)}; allowed is a list of "
+                                "numbers", field=path)
+    if length is not None and len(value) != length:
+        raise PlanDocumentError(f"{path}: got {len(value)} values; allowed is one per look "
+                                f"({length})", field=path)
+    out = [missing if v is None else _check(f"{path}[{i}]", checks.number, v, lo=lo, hi=hi)
+           for i, v in enumerate(value)]
+    return np.asarray(out, float)
+
+
+def _boundary(path: str, value: Any) -> Any:
+    if value is None:
+        return None
+    d = _mapping(path, value)
+    try:
+        if d.get("type") == "classical":
+            fam = d.get("family")
+            if fam == "wang_tsiatis":
+                _no_extra(d, {"type", "family", "delta"}, path)
+                return classical.wang_tsiatis(_field(d, "delta", path))
+            if fam == "haybittle_peto":
+                _no_extra(d, {"type", "family", "interim_z"}, path)
+                return classical.haybittle_peto(_field(d, "interim_z", path))
+            raise PlanDocumentError(f"{path}.family: got {checks.show(fam)}; allowed are "
+                                    "wang_tsiatis, haybittle_peto", field=f"{path}.family")
+        if d.get("type") != "spending":
+            raise PlanDocumentError(f"{path}.type: got {checks.show(d.get('type'))}; allowed "
+                                    "are spending, classical", field=f"{path}.type")
+        fam = d.get("family")
+        params = {"obrien_fleming": set(), "pocock": set(), "hwang_shih_decani": {"gamma"},
+                  "power_family": {"rho"}, "table": {"fractions", "cumulative"}}
+        if fam not in params:
+            raise PlanDocumentError(f"{path}.family: got {checks.show(fam)}; allowed are "
+                                    f"{', '.join(params)}", field=f"{path}.family")
+        _no_extra(d, {"type", "family", *params[fam]}, path)
+        for key in params[fam]:
+            _field(d, key, path)
+        return spending.from_dict(dict(d))
+    except PlanDocumentError:
+        raise
+    except (InputError, ValueError, TypeError) as exc:
+        raise PlanDocumentError(f"{path}: {exc}", field=path) from None
+
+
+def _metric(value: Any) -> dict | None:
+    if value is None:
+        return None
+    try:
+        return check_metric(value)
+    except (InputError, ValueError) as exc:
+        raise PlanDocumentError(f"inputs.metric: {exc}", field="inputs.metric") from None
+
+
+def _read_group_sequential(inp: dict, comp: dict) -> Plan:
+    _no_extra(inp, _GS_INPUTS, "inputs")
+    _no_extra(comp, _GS_COMPUTED, "computed")
+    for key in ("alpha", "sides", "power", "information_fractions", "efficacy", "futility",
+                "binding"):
+        _field(inp, key, "inputs")
+    for key in ("efficacy_z", "futility_z", "cumulative_alpha", "drift"):
+        _field(comp, key, "computed")
+    from seqtest.planning.design import _check_fractions
+    sides = int(_check("inputs.sides", checks.choice, inp["sides"], (1, 2)))
+    alpha = _check("inputs.alpha", checks.number, inp["alpha"], lo=0.0, hi=0.5 * sides,
+                   lo_open=True)
+    power = _check("inputs.power", checks.probability, inp["power"], lo=alpha / sides)
+    try:
+        t = _check_fractions(None, inp["information_fractions"],
+                             "inputs.information_fractions")
+    except InputError as exc:
+        raise PlanDocumentError(str(exc), field="inputs.information_fractions") from None
+    eff = _boundary("inputs.efficacy", inp["efficacy"])
+    if eff is None:
+        raise PlanDocumentError("inputs.efficacy: got None; allowed is a spending function "
+                                "or a classical boundary", field="inputs.efficacy")
+    fut = _boundary("inputs.futility", inp["futility"])
+    if fut is not None and not isinstance(fut, spending.SpendingFunction):
+        raise PlanDocumentError("inputs.futility: a futility boundary is made by beta "
+                                "spending; allowed is a spending function or null",
+                                field="inputs.futility")
+    binding = _check("inputs.binding", checks.boolean, inp["binding"])
+    r = _check("inputs.grid_r", checks.whole, inp.get("grid_r", 24), lo=8, hi=MAX_GRID_R)
+    k = t.size
+    eff_z = _numbers("computed.efficacy_z", comp["efficacy_z"], length=k, missing=np.inf,
+                     lo=-50.0, hi=50.0)
+    fut_z = None
+    if comp["futility_z"] is not None:
+        fut_z = _numbers("computed.futility_z", comp["futility_z"], length=k,
+                         missing=-np.inf, lo=-50.0, hi=50.0)
+    if (fut_z is None) != (fut is None or k == 1):
+        raise PlanDocumentError("computed.futility_z: present exactly when the plan has a "
+                                "futility boundary and more than one look",
+                                field="computed.futility_z")
+    cum = _numbers("computed.cumulative_alpha", comp["cumulative_alpha"], length=k,
+                   missing=np.nan, lo=0.0, hi=1.0)
+    drift = _check("computed.drift", checks.number, comp["drift"], lo=0.0, hi=1e3,
+                   lo_open=True)
+    plan = Plan(alpha=alpha, sides=sides, power=power, info_fractions=t, efficacy_z=eff_z,
+                futility_z=fut_z, drift=drift, efficacy=eff, futility=fut,
+                binding=bool(binding and fut_z is not None),
+                metric=_metric(inp.get("metric")), r=r, cumulative_alpha=cum)
+    # numbers derived from the ones above: they must agree with them whatever the release
+    derived = [("p_threshold", plan.p_threshold, False), ("fixed_drift", plan.fixed_drift, True),
+               ("inflation", plan.inflation, True)]
+    for key, value, relative in derived:
+        if key not in comp:
+            continue
+        path = f"computed.{key}"
+        if key == "p_threshold":
+            got = _numbers(path, comp[key], length=k, missing=0.0, lo=0.0, hi=1.0)
+        else:
+            got = np.atleast_1d(_check(path, checks.number, comp[key]))
+        want = np.atleast_1d(np.asarray(value, float))
+        err = np.abs(got - want) / (np.abs(want) if relative else 1.0)
+        if np.any(~(err <= SAME_RELEASE_TOLERANCE)):
+            i = int(np.argmax(~(err <= SAME_RELEASE_TOLERANCE)))
+            where = f"{path}[{i}]" if key == "p_threshold" else path
+            raise PlanDocumentError(f"{where}: the document says {got[i]:.6g} but its own "
+                                    f"boundaries and drift give {want[i]:.6g}; the document "
+                                    "was edited", field=where)
+    return plan
+
+
+def _read_mixture(inp: dict, comp: dict) -> MixturePlan:
+    _no_extra(inp, set(_MIX_INPUTS), "inputs")
+    _no_extra(comp, set(_MIX_COMPUTED), "computed")
+    for key in _MIX_INPUTS:
+        _field(inp, key, "inputs")
+    for key in _MIX_COMPUTED:
+        _field(comp, key, "computed")
+    _check("inputs.scale", checks.choice, inp["scale"], SCALES)
+    try:
+        return MixturePlan(alpha=inp["alpha"], sides=inp["sides"], tau2=comp["tau2"],
+                           mde=inp["mde"], max_n_per_arm=inp["max_n_per_arm"],
+                           metric=_metric(inp["metric"]), scale=inp["scale"],
+                           unit_variance=inp["unit_variance"], tau2_rule=comp["tau2_rule"])
+    except (InputError, ValueError, TypeError) as exc:
+        raise PlanDocumentError(f"plan: {exc}", field="inputs") from None
+
+
+# -- verification --------------------------------------------------------------------------
+
+def _verify(plan: Plan | MixturePlan, inputs: dict, version: str) -> Plan | MixturePlan:
+    """Recompute the plan from its inputs and compare (see the module docstring)."""
+    same = version == __version__
+    change = RELEASE_CHANGES.get(version, {})
+    tol_z = SAME_RELEASE_TOLERANCE if same else change["z"]
+    tol_p = SAME_RELEASE_TOLERANCE if same else change["probability"]
+    tol_rel = SAME_RELEASE_TOLERANCE if same else change["relative"]
+    try:
+        fresh = _recompute(plan, inputs)
+    except InputError as exc:
+        raise PlanDocumentError(f"inputs: {exc}", field="inputs") from None
+    notes: list[str] = []
+    for path, stored, new, kind in _comparable(plan, fresh):
+        tol = {"z": tol_z, "probability": tol_p, "relative": tol_rel}[kind]
+        a, b = np.atleast_1d(np.asarray(stored, float)), np.atleast_1d(np.asarray(new, float))
+        same_inf = (np.isinf(a) & np.isinf(b) & (np.sign(a) == np.sign(b))) \
+            | (np.isnan(a) & np.isnan(b))
+        with np.errstate(invalid="ignore"):
+            diff = np.abs(a - b) if kind != "relative" else np.abs(a - b) / np.abs(b)
+        bad = ~same_inf & ~(diff <= tol)
+        if bad.any():
+            i = int(np.argmax(bad))
+            where = f"{path}[{i}]" if a.size > 1 or path.endswith("_z") \
+                or path.endswith("alpha") else path
+            raise PlanDocumentError(
+                f"{where}: the document says {a[i]:.6g} but its inputs give {b[i]:.6g}; the "
+                "computed numbers were changed after the plan was designed (or belong to "
+                "other inputs). Design the plan again ('seqtest plan' or seqtest.design) "
+                "instead of editing it.", field=where)
+        if not same:
+            moved = ~same_inf & (diff > SAME_RELEASE_TOLERANCE)
+            for i in np.flatnonzero(moved):
+                where = f"{path}[{i}]" if a.size > 1 else path
+                notes.append(f"{where}: {a[i]:.6g} (this release would compute {b[i]:.6g})")
+    if notes:
+        text = (f"plan written by seqtest {version}; it keeps its own numbers and decides as "
+                f"it did. seqtest {__version__} would compute: " + "; ".join(notes[:6])
+                + ("; ..." if len(notes) > 6 else "") + f" ({change['why']})")
+        return replace(plan, notes=(text,))
+    return plan
+
+
+def _recompute(plan: Plan | MixturePlan, inputs: dict) -> Plan | MixturePlan:
+    if isinstance(plan, Plan):
+        return design(alpha=plan.alpha, sides=plan.sides, power=plan.power,
+                      info_fractions=plan.info_fractions, efficacy=plan.efficacy,
+                      futility=plan.futility, binding=bool(inputs["binding"]),
+                      metric=plan.metric, r=plan.r)
+    kw: dict[str, Any] = {"alpha": plan.alpha, "sides": plan.sides}
+    if plan.metric is not None:
+        kw["metric"] = plan.metric
+        if plan.tau2_rule == "given":
+            kw["tau2"] = plan.tau2
+        if plan.max_n_per_arm is not None:
+            kw["max_n_per_arm"] = plan.max_n_per_arm
+        if inputs.get("unit_variance") is not None and plan.tau2_rule == "max_n":
+            kw["unit_variance"] = plan.unit_variance
+        return mixture_plan(**kw)
+    kw.update(mde=plan.mde, max_n_per_arm=plan.max_n_per_arm,
+              unit_variance=plan.unit_variance, scale=plan.scale)
+    if plan.tau2_rule == "given":
+        kw["tau2"] = plan.tau2
+    return mixture_plan(**kw)
+
+
+def _comparable(plan: Any, fresh: Any) -> list[tuple[str, Any, Any, str]]:
+    if isinstance(plan, Plan):
+        rows = [("computed.efficacy_z", plan.efficacy_z, fresh.efficacy_z, "z"),
+                ("computed.cumulative_alpha", plan.cumulative_alpha, fresh.cumulative_alpha,
+                 "probability"),
+                ("computed.drift", plan.drift, fresh.drift, "relative")]
+        if plan.futility_z is not None:
+            if fresh.futility_z is None:
+                raise PlanDocumentError("computed.futility_z: the inputs give no futility "
+                                        "boundary", field="computed.futility_z")
+            rows.append(("computed.futility_z", plan.futility_z, fresh.futility_z, "z"))
+        return rows
+    if plan.tau2_rule != fresh.tau2_rule:
+        raise PlanDocumentError(f"computed.tau2_rule: the document says {plan.tau2_rule!r} "
+                                f"but its inputs give {fresh.tau2_rule!r}",
+                                field="computed.tau2_rule")
+    return [("computed.tau2", plan.tau2, fresh.tau2, "relative"),
+            ("inputs.unit_variance", plan.unit_variance if plan.unit_variance is not None
+             else math.nan, fresh.unit_variance if fresh.unit_variance is not None
+             else math.nan, "relative")]
