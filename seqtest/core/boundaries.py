@@ -22,10 +22,10 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import special
 
 from seqtest.core.classical import ClassicalBoundary
@@ -127,11 +127,11 @@ def _solve_futility(state: _State, info: float, target: float, a: float, sides: 
 
 
 def spending_bounds(
-    info: Sequence[float],
-    cumulative_alpha: Sequence[float],
+    info: ArrayLike,
+    cumulative_alpha: ArrayLike,
     *,
     sides: int = 1,
-    futility: Sequence[float] | None = None,
+    futility: ArrayLike | None = None,
     r: int = DEFAULT_R,
 ) -> np.ndarray:
     """Efficacy boundaries that spend a given cumulative error at each look.
@@ -196,13 +196,13 @@ def spending_bounds(
 
 
 def constant_bounds(
-    info: Sequence[float],
+    info: ArrayLike,
     alpha: float,
-    shape: Sequence[float],
+    shape: ArrayLike,
     *,
     sides: int = 1,
-    fixed: Sequence[bool] | None = None,
-    futility: Sequence[float] | None = None,
+    fixed: ArrayLike | None = None,
+    futility: ArrayLike | None = None,
     r: int = DEFAULT_R,
 ) -> np.ndarray:
     """Boundaries ``c * shape_k`` with the constant ``c`` solved for level ``alpha``.

@@ -36,6 +36,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import special
 
 __all__ = [
@@ -200,7 +201,7 @@ def continuation_intervals(lower: float, upper: float, in_lo: float, in_hi: floa
     return [(lower, upper)] if lower < upper else []
 
 
-def _as_info(info: Sequence[float]) -> np.ndarray:
+def _as_info(info: ArrayLike) -> np.ndarray:
     arr = np.asarray(info, dtype=float).ravel()
     if arr.size == 0 or np.any(~np.isfinite(arr)) or arr[0] <= 0 or np.any(np.diff(arr) <= 0):
         raise ValueError(
@@ -209,7 +210,7 @@ def _as_info(info: Sequence[float]) -> np.ndarray:
     return arr
 
 
-def _as_bounds(name: str, b: Sequence[float] | None, k: int, fill: float) -> np.ndarray:
+def _as_bounds(name: str, b: ArrayLike | None, k: int, fill: float) -> np.ndarray:
     if b is None:
         return np.full(k, fill)
     arr = np.asarray(b, dtype=float).ravel()
@@ -245,13 +246,13 @@ class Crossing:
 
 
 def crossing_probabilities(
-    upper: Sequence[float],
-    lower: Sequence[float] | None,
-    info: Sequence[float],
+    upper: ArrayLike,
+    lower: ArrayLike | None,
+    info: ArrayLike,
     drift: float = 0.0,
     *,
-    inner_lower: Sequence[float] | None = None,
-    inner_upper: Sequence[float] | None = None,
+    inner_lower: ArrayLike | None = None,
+    inner_upper: ArrayLike | None = None,
     r: int = DEFAULT_R,
 ) -> Crossing:
     """First-exit probabilities of a group-sequential test.

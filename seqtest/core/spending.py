@@ -24,12 +24,12 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import interpolate, special
+from numpy.typing import ArrayLike
+from scipy import special
 
 __all__ = [
     "SpendingFunction",
@@ -105,7 +105,8 @@ class SpendingFunction:
                 return a * self._table_interp()(t)
         raise ValueError(f"family: got {self.family!r}; unknown spending family")
 
-    def _table_interp(self) -> interpolate.PchipInterpolator:
+    def _table_interp(self) -> Any:
+        from scipy import interpolate  # PCHIP: imported only for table spending
         x = np.concatenate([[0.0], np.asarray(self.params["fractions"], float)])
         y = np.concatenate([[0.0], np.asarray(self.params["cumulative"], float)])
         if x[-1] < 1.0:
@@ -196,7 +197,7 @@ def power_family(rho: float) -> SpendingFunction:
     return SpendingFunction("power_family", {"rho": r})
 
 
-def from_table(fractions: Sequence[float], cumulative: Sequence[float]) -> SpendingFunction:
+def from_table(fractions: ArrayLike, cumulative: ArrayLike) -> SpendingFunction:
     """Spending from a user table, by monotone (PCHIP) interpolation.
 
     Parameters

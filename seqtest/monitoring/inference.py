@@ -36,11 +36,11 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import special
 
 from seqtest.core.recursion import DEFAULT_R, _State
@@ -83,8 +83,8 @@ class StagewiseResult:
 
 
 def stagewise(
-    z: Sequence[float],
-    info: Sequence[float],
+    z: ArrayLike,
+    info: ArrayLike,
     region: Region,
     *,
     alpha: float = 0.05,
@@ -178,8 +178,8 @@ def repeated_ci(estimate: np.ndarray, se: np.ndarray, bound: np.ndarray, sides: 
 def conditional_power(
     z_now: float,
     t_now: float,
-    future_fractions: Sequence[float],
-    future_upper: Sequence[float],
+    future_fractions: ArrayLike,
+    future_upper: ArrayLike,
     drift: float,
     *,
     sides: int = 2,

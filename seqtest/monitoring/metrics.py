@@ -25,6 +25,7 @@ import math
 import numbers
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import special
@@ -618,7 +619,9 @@ def arm_unit_variances(
             v_c = float(unit_variance(kind, sd=control))
             return v_c, float(unit_variance(kind, sd=treatment))
         try:
-            (m_c, sd_c), (m_t, sd_t) = control, treatment  # type: ignore[misc]
+            pair_c: Any = control
+            pair_t: Any = treatment
+            (m_c_in, sd_c), (m_t_in, sd_t) = pair_c, pair_t
         except (TypeError, ValueError):
             raise ValueError(
                 "for a continuous metric on the relative scale, control and treatment "
@@ -626,7 +629,7 @@ def arm_unit_variances(
             ) from None
         v_c = float(unit_variance(kind, sd=sd_c))
         v_t = float(unit_variance(kind, sd=sd_t))
-        m_c, m_t = float(m_c), float(m_t)
+        m_c, m_t = float(m_c_in), float(m_t_in)
     else:
         v_c = float(unit_variance(kind, **{name: control}))
         v_t = float(unit_variance(kind, **{name: treatment}))

@@ -19,11 +19,11 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import special
 
 from seqtest.core import checks, classical, spending
@@ -213,7 +213,7 @@ class Plan:
     binding: bool
     metric: dict | None = None
     r: int = DEFAULT_R
-    cumulative_alpha: np.ndarray = field(default=None, repr=False)  # type: ignore[assignment]
+    cumulative_alpha: np.ndarray = field(default=None, repr=False)  # type: ignore[arg-type]
     notes: tuple[str, ...] = field(default=(), repr=False)
 
     # -- derived quantities ----------------------------------------------------------
@@ -272,7 +272,7 @@ class Plan:
                                float(cr.upper.sum() + eff_lo.sum()), stop_frac,
                                stop_frac * self.inflation)
 
-    def power_curve(self, effects: Sequence[float]) -> np.ndarray:
+    def power_curve(self, effects: ArrayLike) -> np.ndarray:
         """Probability of rejecting in the positive direction at each effect."""
         return np.array([self.characteristics(e).reject for e in np.ravel(effects)])
 
@@ -358,14 +358,14 @@ def design(
     sides: int = 2,
     power: float = 0.9,
     looks: int | None = None,
-    info_fractions: Sequence[float] | None = None,
+    info_fractions: ArrayLike | None = None,
     efficacy: Any = None,
     futility: Any = None,
     binding: bool = False,
     *,
     metric: dict | None = None,
     r: int = DEFAULT_R,
-    information_fractions: Sequence[float] | None = None,
+    information_fractions: ArrayLike | None = None,
 ) -> Plan:
     """Design a group-sequential plan.
 
@@ -444,6 +444,7 @@ def design(
     r = _check_r(r)
     eff = parse_boundary(SpendingFunction("obrien_fleming") if efficacy is None else efficacy,
                          "efficacy")
+    assert eff is not None
     fut = parse_boundary(futility, "futility")
     if fut is not None and not isinstance(fut, SpendingFunction):
         raise ValueError(f"futility: got {futility!r}; a futility boundary is made by beta "

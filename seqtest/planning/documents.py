@@ -344,9 +344,9 @@ def _verify(plan: Plan | MixturePlan, inputs: dict, version: str) -> Plan | Mixt
                 "instead of editing it.", field=where)
         if not same:
             moved = ~same_inf & (diff > SAME_RELEASE_TOLERANCE)
-            for i in np.flatnonzero(moved):
-                where = f"{path}[{i}]" if a.size > 1 else path
-                notes.append(f"{where}: {a[i]:.6g} (this release would compute {b[i]:.6g})")
+            for j in np.flatnonzero(moved):
+                where = f"{path}[{j}]" if a.size > 1 else path
+                notes.append(f"{where}: {a[j]:.6g} (this release would compute {b[j]:.6g})")
     if notes:
         text = (f"plan written by seqtest {version}; it keeps its own numbers and decides as "
                 f"it did. seqtest {__version__} would compute: " + "; ".join(notes[:6])

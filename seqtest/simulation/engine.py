@@ -446,6 +446,8 @@ def _arms(plan: Any, sc: Scenario) -> tuple[dict, dict, float, float]:
             m_t = m_c * (1.0 + sc.effect * (b_t / b_c - 1.0))
         else:
             m_t = m_c + sc.effect * (b_t - b_c)
+    ctrl: dict[str, Any]
+    trt: dict[str, Any]
     d = sc.data
     k = sc.data_kind
     if k == "binary":
@@ -796,7 +798,7 @@ def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray
             continue
         a, b = rule.boundaries(row[v], final=True)
         a_u[i, v] = a
-        if has_fut and b is not None:
+        if b_u is not None and b is not None:
             b_u[i, v] = b
     return a_u[inv], (None if b_u is None else b_u[inv]), len(uniq)
 
@@ -1078,12 +1080,13 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
 def _join_paths(parts: list[dict | None]) -> dict:
     out: dict = {}
     first = parts[0]
-    assert first is not None
+    assert first is not None and all(p is not None for p in parts)
+    parts_: list[dict] = [p for p in parts if p is not None]
     for key, val in first.items():
         if isinstance(val, dict):
-            out[key] = {f: np.concatenate([p[key][f] for p in parts]) for f in val}
+            out[key] = {f: np.concatenate([p[key][f] for p in parts_]) for f in val}
         else:
-            out[key] = np.concatenate([p[key] for p in parts])
+            out[key] = np.concatenate([p[key] for p in parts_])
     return out
 
 
