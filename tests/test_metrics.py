@@ -341,17 +341,17 @@ def test_continuous_large_mean_cancellation():
               treatment={"n": 10, "successes": 1}, scale="log"),
          "scale: got .*; allowed is one of"),
         (dict(kind="binary", control={"n": 10}, treatment={"n": 10, "successes": 1}),
-         "control is missing successes"),
+         "control: missing successes"),
         (dict(kind="binary", control={"n": 0, "successes": 0},
-              treatment={"n": 10, "successes": 1}), "control n must be positive; got 0"),
+              treatment={"n": 10, "successes": 1}), "control.n: got 0; allowed is positive"),
         (dict(kind="continuous", control={"n": 1, "sum": 1, "sum_sq": 1},
               treatment={"n": 10, "sum": 1, "sum_sq": 1}),
-         "control n must be at least 2"),
+         "control.n: got 1; allowed is at least 2"),
         (dict(kind="rate", control={"exposure": 1, "events": 1},
               treatment={"exposure": [1, 0], "events": [1, 1]}),
-         "treatment exposure must be positive"),
+         "treatment.exposure: got 0; allowed is positive"),
         (dict(kind="binary", control={"n": 10, "successes": 1},
-              treatment={"n": 10, "successes": 1}, null=float("nan")), "null must be"),
+              treatment={"n": 10, "successes": 1}, null=float("nan")), "null: got"),
     ],
 )
 def test_effect_rejects_bad_arguments(kwargs, message):
@@ -596,11 +596,11 @@ def test_arm_unit_variances_relative_match_effect_se(kind, control, treatment):
 @pytest.mark.parametrize(
     "kind, params, message",
     [
-        ("binary", {"p": 1.5}, "p must be between 0 and 1; got 1.5"),
-        ("binary", {"sd": 1.0}, "takes exactly the parameter 'p'; got sd"),
-        ("continuous", {"sd": -1.0}, "sd must be a finite number >= 0; got -1.0"),
-        ("rate", {"rate": float("inf")}, "rate must be a finite number >= 0"),
-        ("rate", {}, "got none"),
+        ("binary", {"p": 1.5}, "p: got 1.5; allowed is a number in \\[0, 1\\]"),
+        ("binary", {"sd": 1.0}, "got the parameters sd; a binary metric takes exactly the parameter 'p'"),
+        ("continuous", {"sd": -1.0}, "sd: got -1.0; allowed is a finite number >= 0"),
+        ("rate", {"rate": float("inf")}, "rate: got inf; allowed is a finite number >= 0"),
+        ("rate", {}, "got the parameters none"),
         ("count", {"rate": 1.0}, "kind: got .*; allowed is one of"),
     ],
 )
@@ -610,7 +610,7 @@ def test_unit_variance_rejects(kind, params, message):
 
 
 def test_arm_unit_variances_rejects_zero_control_mean():
-    with pytest.raises(ValueError, match="control mean must be nonzero"):
+    with pytest.raises(ValueError, match="control: got 0.0; allowed is a non-zero mean"):
         arm_unit_variances("binary", 0.0, 0.1, scale="relative")
 
 
@@ -659,12 +659,12 @@ def test_srm_extreme_p_value_uses_upper_tail():
 @pytest.mark.parametrize(
     "args, message",
     [
-        ((-1, 5), "n_control must be a whole number >= 0; got -1"),
-        ((5, 2.5), "n_treatment must be a whole number >= 0; got 2.5"),
-        ((0, 0), "must be positive"),
-        ((5, 5, 0.0), "allocation must be a finite number > 0; got 0.0"),
-        ((5, 5, 1.0, 1.5), "threshold must be between 0 and 1; got 1.5"),
-        (("5", 5), "n_control must be a whole number"),
+        ((-1, 5), "n_control: got -1; allowed is a whole number >= 0"),
+        ((5, 2.5), "n_treatment: got 2.5; allowed is a whole number >= 0"),
+        ((0, 0), "allowed are counts with a positive total"),
+        ((5, 5, 0.0), "allocation: got 0.0; allowed is a finite number > 0"),
+        ((5, 5, 1.0, 1.5), "threshold: got 1.5; allowed is a probability"),
+        (("5", 5), "n_control: got .*; allowed is a whole number"),
     ],
 )
 def test_srm_rejects_bad_arguments(args, message):

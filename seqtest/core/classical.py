@@ -22,10 +22,11 @@ References
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
+
+from seqtest.core import checks
 
 __all__ = ["ClassicalBoundary", "pocock", "obrien_fleming", "wang_tsiatis",
            "haybittle_peto", "from_dict"]
@@ -76,12 +77,7 @@ class ClassicalBoundary:
 
 def wang_tsiatis(delta: float) -> ClassicalBoundary:
     """Wang-Tsiatis family ``C t^(Delta - 1/2)``, ``Delta`` in [-0.5, 1]."""
-    try:
-        d = float(delta)
-    except (TypeError, ValueError):
-        d = math.nan
-    if not (-0.5 <= d <= 1.0):
-        raise ValueError(f"delta: got {delta!r}; allowed is a number in [-0.5, 1]")
+    d = checks.number("delta", delta, lo=-0.5, hi=1.0)
     return ClassicalBoundary("wang_tsiatis", {"delta": d})
 
 
@@ -97,12 +93,7 @@ def obrien_fleming() -> ClassicalBoundary:
 
 def haybittle_peto(interim_z: float = 3.0) -> ClassicalBoundary:
     """Haybittle-Peto: fixed interim boundary ``interim_z`` (3 by convention)."""
-    try:
-        z = float(interim_z)
-    except (TypeError, ValueError):
-        z = math.nan
-    if not (2.0 <= z <= 8.0):
-        raise ValueError(f"interim_z: got {interim_z!r}; allowed is a number in [2, 8]")
+    z = checks.number("interim_z", interim_z, lo=2.0, hi=8.0)
     return ClassicalBoundary("haybittle_peto", {"interim_z": z})
 
 

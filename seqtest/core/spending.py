@@ -31,6 +31,8 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import special
 
+from seqtest.core import checks
+
 __all__ = [
     "SpendingFunction",
     "obrien_fleming",
@@ -44,16 +46,14 @@ __all__ = [
 
 
 def _check_alpha(alpha: float) -> float:
-    a = float(alpha)
-    if not (0.0 < a <= 1.0) or not math.isfinite(a):
-        raise ValueError(f"alpha: got {alpha!r}; allowed is a probability in (0, 1]")
-    return a
+    return checks.number("alpha", alpha, lo=0.0, hi=1.0, lo_open=True,
+                         allowed="a probability in (0, 1]")
 
 
 def _fractions(t: Any) -> np.ndarray:
     arr = np.asarray(t, dtype=float)
     if np.any(~np.isfinite(arr)) or np.any(arr < 0):
-        raise ValueError(f"t: got {t!r}; information fractions must be finite and >= 0")
+        raise checks.fail("t", t, "information fractions, finite and >= 0")
     return np.minimum(arr, 1.0)
 
 
@@ -221,7 +221,8 @@ def from_table(fractions: ArrayLike, cumulative: ArrayLike) -> SpendingFunction:
             f"fractions, cumulative: got lengths {x.size} and {y.size}; "
             "allowed are two non-empty lists of equal length")
     if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
-        raise ValueError("fractions, cumulative: all entries must be finite numbers")
+        raise checks.fail("fractions, cumulative", "a value that is not finite",
+                          "finite numbers")
     if x[0] <= 0 or x[-1] > 1 or np.any(np.diff(x) <= 0):
         raise ValueError(
             f"fractions: got {x.tolist()}; allowed is strictly increasing in (0, 1]")
@@ -236,13 +237,7 @@ def from_table(fractions: ArrayLike, cumulative: ArrayLike) -> SpendingFunction:
 
 
 def _finite(name: str, value: Any) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name}: got {value!r}; allowed is a finite number") from None
-    if not math.isfinite(v):
-        raise ValueError(f"{name}: got {value!r}; allowed is a finite number")
-    return v
+    return checks.number(name, value)
 
 
 _NAMES = {

@@ -31,7 +31,7 @@ import numpy as np
 from scipy import special
 
 from seqtest.core import checks
-from seqtest.core.errors import LookDataError
+from seqtest.core.errors import InputError, LookDataError
 from seqtest.core.scales import null_on_test_scale, to_test_scale
 from seqtest.core.vocabulary import ARMS, METRIC_KINDS, SCALES
 
@@ -357,10 +357,8 @@ class Effect:
 
 def _arm_arrays(kind: str, totals: Mapping, name: str) -> dict[str, np.ndarray]:
     if not isinstance(totals, Mapping):
-        raise ValueError(
-            f"{name} must be a mapping of totals ({_expected_text(kind)}); "
-            f"got {type(totals).__name__}"
-        )
+        raise checks.fail(name, type(totals).__name__,
+                          f"a mapping of totals ({_expected_text(kind)})")
     fields = METRIC_FIELDS[kind]
     if kind in ALTERNATIVE_FIELDS and not all(f in totals for f in fields):
         alt = ALTERNATIVE_FIELDS[kind]
@@ -368,10 +366,8 @@ def _arm_arrays(kind: str, totals: Mapping, name: str) -> dict[str, np.ndarray]:
             fields = alt
     missing = [f for f in fields if f not in totals]
     if missing:
-        raise ValueError(
-            f"{name} is missing {', '.join(missing)}; a {kind} metric expects "
-            f"{_expected_text(kind)}"
-        )
+        raise InputError(f"{name}: missing {', '.join(missing)}; a {kind} metric expects "
+                         f"{_expected_text(kind)}")
     arrays = {f: np.asarray(totals[f], dtype=float) for f in fields}
     size_field = "exposure" if kind == "rate" else "n"
     size = arrays[size_field]
@@ -379,7 +375,7 @@ def _arm_arrays(kind: str, totals: Mapping, name: str) -> dict[str, np.ndarray]:
     if np.any(bad):
         first = size[bad].flat[0] if size.ndim else size
         need = "at least 2" if kind == "continuous" else "positive"
-        raise ValueError(f"{name} {size_field} must be {need}; got {_fmt(float(first))}")
+        raise InputError(f"{name}.{size_field}: got {_fmt(float(first))}; allowed is {need}")
     if "mean" in arrays:
         n = arrays["n"]
         total = n * arrays["mean"]
@@ -485,9 +481,7 @@ def effect(
     """
     kind = _check_kind(kind)
     scale = _check_scale(scale)
-    null_value = float(null)
-    if not math.isfinite(null_value):
-        raise ValueError(f"null must be a finite number; got {null!r}")
+    null_value = checks.number("null", null)
     c = _arm_arrays(kind, control, "control")
     t = _arm_arrays(kind, treatment, "treatment")
     n_c, m_c, w_c = _arm_mean_and_variance(kind, c)
@@ -560,20 +554,19 @@ def unit_variance(kind: str, **params: float) -> np.ndarray | float:
     kind = _check_kind(kind)
     name = _UNIT_PARAMS[kind]
     if set(params) != {name}:
-        raise ValueError(
-            f"unit_variance for a {kind} metric takes exactly the parameter {name!r}; "
-            f"got {', '.join(sorted(params)) or 'none'}"
-        )
+        raise InputError(f"unit_variance: got the parameters "
+                         f"{', '.join(sorted(params)) or 'none'}; a {kind} metric takes "
+                         f"exactly the parameter {name!r}")
     value = np.asarray(params[name], dtype=float)
     if kind == "binary":
         ok = (value >= 0) & (value <= 1)
-        allowed = "between 0 and 1"
+        allowed = "a number in [0, 1]"
     else:
         ok = (value >= 0) & np.isfinite(value)
         allowed = "a finite number >= 0"
     if not np.all(ok):
         bad = value[~ok].flat[0] if value.ndim else value
-        raise ValueError(f"{name} must be {allowed}; got {float(bad)!r}")
+        raise checks.fail(name, float(bad), allowed)
     if kind == "binary":
         return _scalar(value * (1.0 - value))
     if kind == "continuous":
@@ -623,10 +616,9 @@ def arm_unit_variances(
             pair_t: Any = treatment
             (m_c_in, sd_c), (m_t_in, sd_t) = pair_c, pair_t
         except (TypeError, ValueError):
-            raise ValueError(
-                "for a continuous metric on the relative scale, control and treatment "
-                f"must be (mean, sd) pairs; got {control!r} and {treatment!r}"
-            ) from None
+            raise InputError(
+                f"control, treatment: got {control!r} and {treatment!r}; allowed are "
+                "(mean, sd) pairs for a continuous metric on the relative scale") from None
         v_c = float(unit_variance(kind, sd=sd_c))
         v_t = float(unit_variance(kind, sd=sd_t))
         m_c, m_t = float(m_c_in), float(m_t_in)
@@ -637,7 +629,7 @@ def arm_unit_variances(
         if scale == "difference":
             return v_c, v_t
     if m_c == 0 or not math.isfinite(m_c):
-        raise ValueError(f"the control mean must be nonzero on the relative scale; got {m_c!r}")
+        raise checks.fail("control", m_c, "a non-zero mean on the relative scale")
     return m_t * m_t * v_c / m_c**4, v_t / (m_c * m_c)
 
 
@@ -675,12 +667,7 @@ class SRMResult:
 
 
 def _count(value: object, name: str) -> int:
-    if isinstance(value, bool | np.bool_) or not isinstance(value, numbers.Real):
-        raise ValueError(f"{name} must be a whole number >= 0; got {value!r}")
-    x = float(value)
-    if not math.isfinite(x) or x < 0 or not x.is_integer():
-        raise ValueError(f"{name} must be a whole number >= 0; got {value!r}")
-    return int(x)
+    return checks.whole(name, value, lo=0)
 
 
 def srm_check(
@@ -721,13 +708,10 @@ def srm_check(
     nt = _count(n_treatment, "n_treatment")
     total = nc + nt
     if total == 0:
-        raise ValueError("n_control + n_treatment must be positive; got 0 and 0")
-    a = float(allocation)
-    if not (math.isfinite(a) and a > 0):
-        raise ValueError(f"allocation must be a finite number > 0; got {allocation!r}")
-    thr = float(threshold)
-    if not (0 < thr < 1):
-        raise ValueError(f"threshold must be between 0 and 1; got {threshold!r}")
+        raise InputError("n_control, n_treatment: got 0 and 0; allowed are counts with a "
+                         "positive total")
+    a = checks.number("allocation", allocation, lo=0.0, lo_open=True)
+    thr = checks.probability("threshold", threshold)
     expected_share = a / (1.0 + a)
     e_t = total * expected_share
     e_c = total - e_t

@@ -32,6 +32,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from seqtest.core import checks
+
 if TYPE_CHECKING:
     from seqtest.planning.design import Plan
 
@@ -49,14 +51,8 @@ _ALLOWED = {
 
 def _num(name: str, v: Any, lo: float = -math.inf, hi: float = math.inf,
          open_lo: bool = True, what: str = "") -> float:
-    try:
-        x = float(v)
-    except (TypeError, ValueError):
-        x = math.nan
-    ok = math.isfinite(x) and (x > lo if open_lo else x >= lo) and x <= hi
-    if not ok or isinstance(v, bool):
-        raise ValueError(f"metric.{name}: got {v!r}; allowed is {what or 'a finite number'}")
-    return x
+    return checks.number(f"metric.{name}", v, lo=lo, hi=hi, lo_open=open_lo,
+                         allowed=what or None)
 
 
 def check_metric(metric: dict) -> dict:
