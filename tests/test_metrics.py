@@ -597,7 +597,8 @@ def test_arm_unit_variances_relative_match_effect_se(kind, control, treatment):
     "kind, params, message",
     [
         ("binary", {"p": 1.5}, "p: got 1.5; allowed is a number in \\[0, 1\\]"),
-        ("binary", {"sd": 1.0}, "got the parameters sd; a binary metric takes exactly the parameter 'p'"),
+        ("binary", {"sd": 1.0},
+         "got the parameters sd; a binary metric takes exactly the parameter 'p'"),
         ("continuous", {"sd": -1.0}, "sd: got -1.0; allowed is a finite number >= 0"),
         ("rate", {"rate": float("inf")}, "rate: got inf; allowed is a finite number >= 0"),
         ("rate", {}, "got the parameters none"),

@@ -240,7 +240,7 @@ def analyze(
 
     arms = metrics.validate_looks(kind, list(looks))
     eff = metrics.effect(kind, arms["control"], arms["treatment"], scale=scale)
-    warnings: list[str] = []
+    warnings: list[str] = list(getattr(plan, "notes", ()))
     degenerate = np.atleast_1d(np.asarray(eff.degenerate, bool))
     for j in np.flatnonzero(degenerate):
         warnings.append(f"look {j + 1}: the variance estimate is zero (no variation in "
