@@ -32,17 +32,21 @@ Grids
 
 The rule
 --------
-A gated cell *leaks* when the lower end of the Clopper-Pearson interval of its
-type I error at the family-wise level lies above alpha: with M gated cells, each
-interval is two-sided at confidence ``1 - 2 * 0.05 / M`` (Bonferroni), so if every
-design held alpha exactly, the chance that any cell is flagged is at most 5%. The
-report also shows the plain 95% interval of each cell and marks cells whose 95%
-lower end is above alpha ("watch"); among M cells at exactly alpha about
-``0.025 M`` such marks are expected by chance alone. Limits: with n = 100,000
-replicates and alpha = 0.05 the rule detects a leak only when the true rate exceeds
-alpha by about ``z * sqrt(alpha (1 - alpha) / n)`` (z = 2.9 to 3.5 after the
-correction, so 0.0020 to 0.0024); smaller excesses (e.g. from estimated variances
-or discrete data, which make the type I error only approximately alpha) pass.
+A plan promises an error for each direction it can reject in: alpha for the upper
+tail of a one-sided plan, alpha / 2 for each tail of a two-sided one. A gated cell
+*leaks* when the lower end of the Clopper-Pearson interval of any of its tails, at the
+family-wise level, lies above that tail's alpha: with M gated tails, each interval is
+two-sided at confidence ``1 - 2 * 0.05 / M`` (Bonferroni), so if every design held
+each tail exactly, the chance that any cell is flagged is at most 5% (the total of a
+two-sided plan cannot exceed alpha without a tail exceeding alpha / 2, so it needs no
+test of its own). The report also shows the plain 95% intervals and marks cells whose
+95% lower end of the total or of a tail is above its alpha ("watch"); among M tails at
+exactly their alpha about ``0.025 M`` such marks are expected by chance alone.
+Limits: with n = 100,000 replicates the rule detects a leak in a tail only when its
+true rate exceeds the tail's alpha by about ``z * sqrt(a (1 - a) / n)`` (z = 3.3 to 3.8
+after the correction for 100 to 600 tails: 0.0016 to 0.0019 at a = 0.025); smaller
+excesses (e.g. from estimated variances or discrete data, which make the type I error
+only approximately alpha) pass.
 Stress cells are not gated: their verdicts are findings.
 
 Seeds: each cell's seed is the CRC-32 of its id plus ``--seed``, so adding cells
@@ -352,6 +356,7 @@ class Assessment:
 
     gated: int
     confidence: float
+    tests: int
     leaks: list[str]
     watch: list[str]
     naive_failures: list[str]
@@ -361,14 +366,23 @@ class Assessment:
 def assess(results: list[CellResult], family_level: float = 0.05) -> Assessment:
     run = [r for r in results if r.result is not None]
     gated = [r for r in run if r.cell.gate and r.result.null]
-    m = max(len(gated), 1)
+    # every tail a plan promises an error for is one test: the upper tail of a
+    # one-sided plan, both tails of a two-sided one (each at alpha / 2)
+    m = max(sum(len(r.result.tails) for r in gated), 1)
     conf = 1.0 - 2.0 * family_level / m
     leaks, watch, naive_fail, rows = [], [], [], []
     for r in run:
         res = r.result
         lo_fw, hi_fw = clopper_pearson(res.rejections, res.reps, conf)
-        leak = bool(r.cell.gate and res.null and lo_fw > res.alpha)
-        w = bool(res.null and res.ci_lower > res.alpha)
+        tails = {}
+        for t in res.tails:
+            t_lo, t_hi = clopper_pearson(t.rejections, res.reps, conf)
+            tails[t.direction] = {"rate": t.rate, "alpha": t.alpha,
+                                  "ci95": [t.ci_lower, t.ci_upper],
+                                  "ci_family": [t_lo, t_hi], "leak": t_lo > t.alpha}
+        tail_leak = any(v["leak"] for v in tails.values())
+        leak = bool(r.cell.gate and res.null and tail_leak)
+        w = bool(res.null and res.leaks)
         if leak:
             leaks.append(r.cell.id)
         elif w and r.cell.gate:
@@ -387,12 +401,13 @@ def assess(results: list[CellResult], family_level: float = 0.05) -> Assessment:
                      "alpha": res.alpha,
                      "rate": res.rate, "ci95": [res.ci_lower, res.ci_upper],
                      "ci_family": [lo_fw, hi_fw], "leak": leak, "watch": w,
+                     "tails": tails,
                      "naive_rate": None if res.naive is None else res.naive.rate,
                      "naive_reference": nref, "naive_ok": naive_ok,
                      "expected_fraction": res.expected_total / res.max_total,
                      "boundary_calls": res.boundary_calls, "seconds": r.seconds,
                      "verdict": res.verdict})
-    return Assessment(len(gated), conf, leaks, watch, naive_fail, rows)
+    return Assessment(len(gated), conf, m, leaks, watch, naive_fail, rows)
 
 
 # ---------------------------------------------------------------------------
@@ -516,13 +531,15 @@ def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int
         f"- cells run: {len(rows)} of {len(rows) + len(not_run)}"
         + (f" ({len(not_run)} not run: time budget)" if not_run else ""),
         f"- gated cells (null scenarios of shipped designs): {a.gated}",
-        f"- family-wise rule: a gated cell leaks when the lower end of its "
-        f"Clopper-Pearson interval at confidence {a.confidence:.6f} (= 1 - 2 x 0.05 / "
-        f"{a.gated}, Bonferroni) is above alpha",
+        f"- family-wise rule: a gated cell leaks when the lower end of the "
+        f"Clopper-Pearson interval of one of its tails (alpha for a one-sided plan, "
+        f"alpha/2 for each tail of a two-sided one) at confidence {a.confidence:.6f} "
+        f"(= 1 - 2 x 0.05 / {a.tests} gated tails, Bonferroni) is above that tail's "
+        "alpha",
         f"- **leaking gated cells: {len(a.leaks)}**"
         + (": " + ", ".join(a.leaks) if a.leaks else ""),
-        f"- gated cells with the plain 95% lower end above alpha (watch; about "
-        f"{0.025 * a.gated:.1f} expected by chance if every design were exact): "
+        f"- gated cells with a plain 95% lower end above its alpha (watch; about "
+        f"{0.025 * a.tests:.1f} expected by chance if every design were exact): "
         f"{len(a.watch)}" + (": " + ", ".join(a.watch) if a.watch else ""),
         f"- naive baseline against the published repeated-test rates: "
         f"{naive_text}",
@@ -588,7 +605,8 @@ def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int
     path = out / "report.md"
     path.write_text("\n".join(lines) + "\n")
     doc = {"grid": grid, "seed": seed, "workers": workers, "seconds": seconds,
-           "gated": a.gated, "confidence": a.confidence, "leaks": a.leaks,
+           "gated": a.gated, "confidence": a.confidence, "tests": a.tests,
+           "leaks": a.leaks,
            "watch": a.watch, "naive_failures": a.naive_failures, "not_run": not_run,
            "cells": rows}
     (out / "results.json").write_text(json.dumps(doc, indent=1, allow_nan=False) + "\n")
@@ -613,7 +631,8 @@ def run(grid: str, out: Path | str, *, reps: int = 100_000, random_reps: int | N
 def render(out: Path | str) -> Assessment:
     """Write the report again from the ``results.json`` of an earlier run in ``out``."""
     doc = json.loads((Path(out) / "results.json").read_text())
-    a = Assessment(doc["gated"], doc["confidence"], doc["leaks"], doc["watch"],
+    a = Assessment(doc["gated"], doc["confidence"], doc.get("tests", doc["gated"]),
+                   doc["leaks"], doc["watch"],
                    doc["naive_failures"], doc["cells"])
     write_report(a, Path(out), grid=doc["grid"], seed=doc["seed"], workers=doc["workers"],
                  seconds=doc["seconds"], not_run=doc["not_run"])

@@ -177,6 +177,34 @@ class NaiveSummary:
 
 
 @dataclass(frozen=True)
+class TailRate:
+    """Rejections in one direction, against the error the plan promises there.
+
+    Attributes
+    ----------
+    direction : {"upper", "lower"}
+        Treatment better (upper) or control better (lower).
+    rejections, rate, ci_lower, ci_upper : int, float, float, float
+        Count, share of replicates, and its exact (Clopper-Pearson) interval.
+    alpha : float
+        The plan's error in this direction: alpha for a one-sided plan's upper tail,
+        alpha / 2 for each tail of a two-sided plan.
+    """
+
+    direction: str
+    rejections: int
+    rate: float
+    ci_lower: float
+    ci_upper: float
+    alpha: float
+
+    @property
+    def leaks(self) -> bool:
+        """The interval's lower end is above the tail's alpha."""
+        return self.ci_lower > self.alpha
+
+
+@dataclass(frozen=True)
 class SimulationResult:
     """What :func:`simulate` found for one plan and one scenario.
 
@@ -200,14 +228,18 @@ class SimulationResult:
         Replicates stopped for efficacy (in total, treatment better, control better).
     rate, ci_lower, ci_upper : float
         ``rejections / reps`` and its exact interval.
+    tails : tuple of TailRate
+        Each direction a plan promises an error for, with its own interval: the upper
+        tail of a one-sided plan (at alpha), both tails of a two-sided one (alpha / 2
+        each). Under the null a plan must hold every tail, not only the total.
     design_rate : float or None
         What the plan promises: alpha under the null; under an effect given as a
         multiple of the design effect, the plan's power at it (normal theory,
         planned looks, futility obeyed); otherwise None.
     verdict : str
-        ``"holds alpha"`` or ``"leaks alpha"`` (the interval's lower end above
-        alpha) under the null; under an effect, how the power compares with
-        `design_rate`.
+        ``"holds alpha"`` or ``"leaks alpha"`` under the null (the lower end of the
+        interval of the total above alpha, or of a tail above its share), naming the
+        tail that leaks; under an effect, how the power compares with `design_rate`.
     look_times : ndarray
         Scheduled look times as fractions of the maximum sample.
     mean_fraction : ndarray
@@ -251,6 +283,7 @@ class SimulationResult:
     rate: float
     ci_lower: float
     ci_upper: float
+    tails: tuple[TailRate, ...]
     design_rate: float | None
     verdict: str
     look_times: np.ndarray
@@ -274,8 +307,9 @@ class SimulationResult:
 
     @property
     def leaks(self) -> bool:
-        """Under the null: the interval's lower end is above alpha."""
-        return self.null and self.ci_lower > self.alpha
+        """Under the null: the interval of the total, or of a tail, lies above what the
+        plan promises."""
+        return self.null and (self.ci_lower > self.alpha or any(t.leaks for t in self.tails))
 
     def to_dict(self) -> dict:
         """Plain JSON types (non-finite numbers become None)."""
@@ -311,6 +345,9 @@ class SimulationResult:
             "confidence": self.confidence,
             "ci_lower": self.ci_lower,
             "ci_upper": self.ci_upper,
+            "tails": {t.direction: {"rejections": t.rejections, "rate": t.rate,
+                                    "ci_lower": t.ci_lower, "ci_upper": t.ci_upper,
+                                    "alpha": t.alpha} for t in self.tails},
             "design_rate": num(self.design_rate),
             "verdict": self.verdict,
             "expected_total": num(self.expected_total),
@@ -343,6 +380,9 @@ class SimulationResult:
             f"{what}: {self.rate:.4f}  ({pct} Clopper-Pearson {self.ci_lower:.4f} to "
             f"{self.ci_upper:.4f})" + (f"; plan: {self.design_rate:.4f}"
                                          if self.design_rate is not None else ""),
+            *[f"  {t.direction} tail ({'treatment' if t.direction == 'upper' else 'control'}"
+              f" better): {t.rate:.4f}  ({pct} CI {t.ci_lower:.4f} to {t.ci_upper:.4f})"
+              + (f"; plan: {t.alpha:g}" if self.null else "") for t in self.tails],
             f"Verdict: {self.verdict}",
         ]
         if self.naive is not None:
@@ -906,9 +946,23 @@ def _design_rate(plan: Any, sc: Scenario, job: _Job) -> float | None:
     return float(plan.characteristics(sc.effect).reject_any)
 
 
-def _verdict(null: bool, lo: float, hi: float, alpha: float, design: float | None) -> str:
+def _tails(rej_up: int, rej_down: int, reps: int, alpha: float, sides: int,
+           confidence: float) -> tuple[TailRate, ...]:
+    out = []
+    for direction, count in (("upper", rej_up), ("lower", rej_down))[:sides]:
+        lo, hi = clopper_pearson(count, reps, confidence)
+        out.append(TailRate(direction, count, count / reps, lo, hi, alpha / sides))
+    return tuple(out)
+
+
+def _verdict(null: bool, lo: float, hi: float, alpha: float, design: float | None,
+             tails: tuple[TailRate, ...] = ()) -> str:
     if null:
-        return "leaks alpha" if lo > alpha else "holds alpha"
+        leaking = [f"{t.direction} tail {t.rate:.4f} against {t.alpha:g}"
+                   for t in tails if t.leaks]
+        if lo > alpha:
+            leaking.insert(0, f"total against {alpha:g}")
+        return f"leaks alpha ({'; '.join(leaking)})" if leaking else "holds alpha"
     if design is None:
         return "power (no prediction from the plan to compare)"
     if hi < design:
@@ -1046,6 +1100,7 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
     rej_up, rej_down = int(stops[:, 0].sum()), int(stops[:, 1].sum())
     rej = rej_up + rej_down
     lo, hi = clopper_pearson(rej, reps, confidence)
+    tails = _tails(rej_up, rej_down, reps, job.alpha, job.sides, confidence)
     mean_total = total / reps
     var = max(0.0, (total_sq - total * total / reps) / max(reps - 1, 1))
     design = _design_rate(plan, sc, job)
@@ -1070,8 +1125,9 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
         reps=reps, seed=job.seed, chunk_size=job.chunk, null=sc.is_null,
         true_effect=float(true), confidence=confidence, rejections=rej,
         rejections_upper=rej_up, rejections_lower=rej_down, rate=rej / reps, ci_lower=lo,
-        ci_upper=hi, design_rate=design,
-        verdict=_verdict(sc.is_null, lo, hi, job.alpha, design), look_times=job.times.copy(),
+        ci_upper=hi, tails=tails, design_rate=design,
+        verdict=_verdict(sc.is_null, lo, hi, job.alpha, design, tails),
+        look_times=job.times.copy(),
         mean_fraction=mean_frac, stops=stops, expected_total=mean_total,
         expected_total_se=math.sqrt(var / reps), max_total=float(job.n_max), naive=nv,
         boundary_calls=calls, paths=paths)
