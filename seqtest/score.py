@@ -845,7 +845,8 @@ def interval(kind: str, x_c: Any, n_c: Any, x_t: Any, n_t: Any, critical: Any, *
         Per-arm totals (binary: successes, n; rate: events, exposure).
     critical : array_like
         Critical value(s) ``c > 0`` (e.g. each look's efficacy boundary for repeated
-        confidence intervals); broadcast with the totals.
+        confidence intervals; ``inf`` at a look that spends nothing gives the whole
+        range); broadcast with the totals.
     scale : {"difference", "relative"}
         Limits for ``m_t - m_c`` or for ``m_t / m_c - 1``.
     sides : {1, 2}
@@ -873,12 +874,21 @@ def interval(kind: str, x_c: Any, n_c: Any, x_t: Any, n_t: Any, critical: Any, *
     if sides not in (1, 2) or isinstance(sides, bool):
         raise ValueError(f"sides: got {sides!r}; allowed are 1 and 2")
     xc, nc, xt, nt = _counts(kind, x_c, n_c, x_t, n_t)
-    c = _array("critical", critical)
+    try:
+        c = np.asarray(critical, dtype=float)
+    except (TypeError, ValueError):
+        raise ValueError(f"critical: got {critical!r}; allowed is a number > 0 (inf for a "
+                         "look that spends nothing)") from None
     if not np.all(c > 0):
-        raise ValueError(f"critical: got {_first_bad(c, c > 0)!r}; allowed is a number > 0")
+        raise ValueError(f"critical: got {_first_bad(c, c > 0)!r}; allowed is a number > 0 "
+                         "(inf for a look that spends nothing)")
     xc, nc, xt, nt, c = np.broadcast_arrays(xc, nc, xt, nt, c)
     shape = c.shape
     xc, nc, xt, nt, c = (np.array(v, float).ravel() for v in (xc, nc, xt, nt, c))
+    # an infinite boundary (a look that spends no alpha) rejects nothing: the
+    # interval is the whole range; solved with a placeholder, then replaced
+    endless = np.isinf(c)
+    c = np.where(endless, 1.0, c)
     corr = bool(correction) and kind == "binary"
     m_c, m_t = xc / nc, xt / nt
     relative = scale == "relative"
@@ -891,8 +901,8 @@ def interval(kind: str, x_c: Any, n_c: Any, x_t: Any, n_t: Any, critical: Any, *
 
         half_t = (xt + 0.5) / (nt + 0.5) if kind == "binary" else (xt + 0.5) / nt
         half_c = (xc + 0.5) / (nc + 0.5) if kind == "binary" else (xc + 0.5) / nc
-        with np.errstate(divide="ignore"):
-            est = np.log(m_t) - np.log(m_c)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            est = np.log(m_t) - np.log(m_c)     # nan or +-inf with a zero count
         start = np.where(np.isfinite(est), est, np.log(half_t) - np.log(half_c))
         step = np.sqrt(1.0 / (xt + 0.5) + 1.0 / (xc + 0.5))
         lo_end = np.full(start.shape, -_LOG_RANGE)
@@ -924,17 +934,22 @@ def interval(kind: str, x_c: Any, n_c: Any, x_t: Any, n_t: Any, critical: Any, *
         upper = np.where(upper >= _LOG_RANGE, np.inf, np.expm1(upper))
     if sides == 1 and not (kind == "binary" and not relative):
         upper = np.full(lower.shape, np.inf)
+    if np.any(endless):
+        low_end = -1.0 if (relative or kind == "binary") else -np.inf
+        high_end = 1.0 if (kind == "binary" and not relative) else np.inf
+        lower = np.where(endless, low_end, lower)
+        upper = np.where(endless, high_end, upper)
     if null is not None:
         # on the returned scale, so that no rounding of the scale change can undo it
         d0 = np.broadcast_to(_check_null(kind, scale, null), shape).ravel()
         z0 = _z_raw(kind, scale, xc, nc, xt, nt, d0, corr, skew)
         # the interval excludes d0 from below iff the test rejects upward, and from
         # above iff it rejects downward (two-sided)
-        reject_up = z0 >= c
+        reject_up = (z0 >= c) & ~endless
         lower = np.where(reject_up, np.maximum(lower, np.nextafter(d0, np.inf)),
                          np.minimum(lower, d0))
         if sides == 2:
-            reject_down = z0 <= -c
+            reject_down = (z0 <= -c) & ~endless
             upper = np.where(reject_down, np.minimum(upper, np.nextafter(d0, -np.inf)),
                              np.maximum(upper, d0))
     return _scalar(lower.reshape(shape)), _scalar(upper.reshape(shape))
@@ -1116,6 +1131,10 @@ def group_sequential_size(dv: DesignVariances, info_fractions: Sequence[float] |
                           ) -> tuple[float, float]:
     """Maximum ``(n_c, n_t)`` (not rounded) of a group-sequential plan run with the
     score test: ``n_c = v1 (D1 / delta)^2`` with ``D1`` from :func:`score_drift`.
+
+    Power is for rejecting in the direction of ``dv.delta`` (a negative design
+    effect is handled as the mirror image, with the skewness's sign flipped; a
+    one-sided plan rejects upward only, so give it a positive effect).
 
     With ``skew`` the boundaries carry the skewness correction, whose size depends
     on ``n_c`` itself (``skew_k = third0 / (v0^1.5 sqrt(n_c t_k))``): solved by

@@ -36,7 +36,7 @@ import time
 from pathlib import Path
 
 import numpy as np
-from scipy import special
+from scipy import special  # type: ignore[import-untyped]
 
 import seqtest
 from seqtest import score
@@ -64,7 +64,7 @@ def _run(plan: seqtest.Plan, n_c: float, n_t: float, p_c: float, p_t: float, rep
     nc_k = np.ceil(n_c * t * (1 - 1e-12)).astype(np.int64)
     nt_k = np.ceil(n_t * t * (1 - 1e-12)).astype(np.int64)
     frac = (nc_k + nt_k) / float(nc_k[-1] + nt_k[-1])
-    a, b = bounds_at(plan, frac, final=True)
+    a, b = bounds_at(plan, frac.tolist(), final=True)
     rng = np.random.default_rng(np.random.SeedSequence(seed))
     up = down = 0
     done = 0
@@ -145,7 +145,8 @@ def main() -> None:
         for label, q in (("1:4", 4.0), ("1:2", 2.0), ("4:1", 0.25)):
             plan = _plan(sides, q)
             ss = plan.sample_size()
-            row = {"sides": sides, "alpha": plan.alpha, "allocation_control_to_treatment": label,
+            row: dict = {"sides": sides, "alpha": plan.alpha,
+                         "allocation_control_to_treatment": label,
                    "baseline": BASE, "traffic": "planned"}
             for stat in ("corrected", "score", "wald"):
                 seed += 1

@@ -35,7 +35,7 @@ import warnings
 
 import numpy as np
 import pytest
-from scipy import optimize, special, stats
+from scipy import optimize, special, stats  # type: ignore[import-untyped]
 
 from seqtest import score
 
@@ -147,7 +147,7 @@ def _tables(rng, n, lo=1, hi=400):
 @pytest.mark.parametrize("correction", [False, True])
 def test_binary_difference_at_no_effect_matches_statsmodels_score(correction):
     # statsmodels test_proportions_2indep(method="score", compare="diff"), value 0
-    from statsmodels.stats.proportion import test_proportions_2indep
+    from statsmodels.stats.proportion import test_proportions_2indep  # type: ignore[import-untyped]
     rng = np.random.default_rng(1)
     xc, nc, xt, nt = _tables(rng, 200)
     keep = (xc + xt > 0) & (xc + xt < nc + nt)
@@ -176,7 +176,7 @@ def test_binary_difference_margin_matches_restricted_likelihood(correction):
 def test_statsmodels_difference_margin_is_not_the_restricted_maximum():
     # Why statsmodels is not the reference for non-zero margins (issue #10269): its
     # "null" proportions do not maximise the restricted likelihood; ours do.
-    from statsmodels.stats.proportion import test_proportions_2indep
+    from statsmodels.stats.proportion import test_proportions_2indep  # type: ignore[import-untyped]
     xc, nc, xt, nt, d = 20, 100, 30, 100, 0.05
     sm = test_proportions_2indep(xt, nt, xc, nc, value=d, method="score", compare="diff",
                                  correction=False)
@@ -196,7 +196,7 @@ def test_statsmodels_difference_margin_is_not_the_restricted_maximum():
 @pytest.mark.parametrize("correction", [False, True])
 def test_binary_relative_matches_statsmodels_score(correction):
     # statsmodels test_proportions_2indep(method="score", compare="ratio")
-    from statsmodels.stats.proportion import test_proportions_2indep
+    from statsmodels.stats.proportion import test_proportions_2indep  # type: ignore[import-untyped]
     rng = np.random.default_rng(3)
     xc, nc, xt, nt = _tables(rng, 200)
     r0 = np.where(rng.random(200) < 0.3, 0.0, np.expm1(rng.uniform(-1.5, 1.5, 200)))
@@ -234,7 +234,7 @@ def test_pooled_at_no_effect_is_pearson_chi_square_on_both_scales():
 def test_rate_difference_matches_statsmodels_score():
     # statsmodels test_poisson_2indep(method="score", compare="diff"), any margin,
     # and the independent restricted likelihood
-    from statsmodels.stats.rates import test_poisson_2indep
+    from statsmodels.stats.rates import test_poisson_2indep  # type: ignore[import-untyped]
     rng = np.random.default_rng(5)
     xc, xt = rng.integers(0, 300, 120), rng.integers(0, 300, 120)
     ec, et = rng.uniform(5, 500, 120), rng.uniform(5, 500, 120)
@@ -254,7 +254,7 @@ def test_rate_difference_matches_statsmodels_score():
 def test_rate_relative_matches_statsmodels_and_the_conditional_binomial_score():
     # statsmodels test_poisson_2indep(method="score", compare="ratio"); and the score
     # statistic of the binomial of x_t given the total (pi0 = phi E_t / (phi E_t + E_c))
-    from statsmodels.stats.rates import test_poisson_2indep
+    from statsmodels.stats.rates import test_poisson_2indep  # type: ignore[import-untyped]
     rng = np.random.default_rng(6)
     xc, xt = rng.integers(0, 300, 120), rng.integers(0, 300, 120)
     ec, et = rng.uniform(5, 500, 120), rng.uniform(5, 500, 120)
@@ -320,7 +320,7 @@ def test_swapping_arms_flips_the_sign():
 
 def test_extreme_p_values_through_the_survival_function():
     # statsmodels computes p-values with norm.sf: p near 1e-50 keeps its digits
-    from statsmodels.stats.proportion import test_proportions_2indep
+    from statsmodels.stats.proportion import test_proportions_2indep  # type: ignore[import-untyped]
     for xc, nc, xt, nt, low, high in ((20_000, 10**9, 23_100, 10**9, 1e-55, 1e-45),
                                       (2000, 100_000, 4950, 100_000, 1e-300, 1e-250)):
         res = score.binary_difference(xc, nc, xt, nt)
@@ -496,7 +496,7 @@ def test_difference_score_interval_published_examples(t, c, mee, mn):
 def test_relative_interval_matches_statsmodels_koopman(correction):
     # statsmodels confint_proportions_2indep(method="score", compare="ratio"):
     # Koopman/Nam's closed-form cubic roots of the same inverted test
-    from statsmodels.stats.proportion import confint_proportions_2indep
+    from statsmodels.stats.proportion import confint_proportions_2indep  # type: ignore[import-untyped]
     rng = np.random.default_rng(9)
     xc, nc, xt, nt = _tables(rng, 60, lo=10)
     xc = np.clip(xc, 1, nc - 1)
@@ -515,7 +515,7 @@ def test_rate_interval_matches_statsmodels_score_inversion(scale):
     # statsmodels confint_poisson_2indep(method="score") finds its limits by
     # Nelder-Mead on (p - alpha)^2 with xtol 1e-8, good to about 1e-4 relative; the
     # exact check is statsmodels' own p-value at our limits, which must be alpha
-    from statsmodels.stats.rates import confint_poisson_2indep, test_poisson_2indep
+    from statsmodels.stats.rates import confint_poisson_2indep, test_poisson_2indep  # type: ignore[import-untyped]
     compare = "diff" if scale == "difference" else "ratio"
     shift = 0.0 if scale == "difference" else 1.0
     for xc, ec, xt, et in ((30, 100.0, 45, 90.0), (3, 10.0, 11, 25.0), (250, 1000.0, 190, 1e3)):
@@ -622,6 +622,11 @@ def test_repeated_intervals_vectorised_over_looks():
                 one = score.interval("binary", xc[i, k], n_c[k], xt[i, k], n_t[k], bounds[k],
                                      scale=scale)
                 assert (lo[i, k], hi[i, k]) == one
+    # a look that spends nothing (boundary inf) has the whole range as its interval
+    lo, hi = score.interval("binary", xc, n_c, xt, n_t, np.r_[np.inf, bounds[1:]])
+    assert np.all(lo[:, 0] == -1) and np.all(hi[:, 0] == 1) and np.all(lo[:, 1:] > -1)
+    lo, hi = score.interval("binary", xc, n_c, xt, n_t, np.inf, scale="relative", null=0.0)
+    assert np.all(lo == -1) and np.all(hi == np.inf)
 
 
 @pytest.mark.parametrize("kind, scale", CASES)
@@ -728,7 +733,7 @@ def test_monte_carlo_upper_tail_with_1_to_4_allocation():
 def test_design_variances_at_no_effect_match_statsmodels(p_c, p_t, q):
     # statsmodels power_proportions_2indep: null variance pooled, alternative
     # unpooled, per unit of sample 1 (here the control arm, nobs2 = ratio * nobs1)
-    from statsmodels.stats.proportion import (
+    from statsmodels.stats.proportion import (  # type: ignore[import-untyped]
         power_proportions_2indep,
         samplesize_proportions_2indep_onetail,
     )
@@ -749,7 +754,7 @@ def test_design_variances_at_no_effect_match_statsmodels(p_c, p_t, q):
 def test_rate_design_variances_match_statsmodels(d0):
     # statsmodels power_poisson_diff_2indep(method_var="score"): restricted null
     # variance at any margin, per unit exposure of sample 1 (our control arm)
-    from statsmodels.stats.rates import power_poisson_diff_2indep
+    from statsmodels.stats.rates import power_poisson_diff_2indep  # type: ignore[import-untyped]
     l_c, l_t, q = 0.5, 0.58, 2.5
     dv = score.design_variances("rate", l_c, l_t, allocation=q, null=d0)
     ref = power_poisson_diff_2indep(l_c, l_t, 1000, nobs_ratio=q, value=-d0,
