@@ -1,4 +1,4 @@
-"""Score statistics restricted to the null (seqtest.score) against outside references.
+"""Score statistics restricted to the null (seqtest.core.score) against outside references.
 
 References used (named beside each check):
 
@@ -37,7 +37,7 @@ import numpy as np
 import pytest
 from scipy import optimize, special, stats  # type: ignore[import-untyped]
 
-from seqtest import score
+from seqtest.core import score
 
 Z975 = float(special.ndtri(0.975))
 
@@ -540,7 +540,7 @@ CASES = [("binary", "difference"), ("binary", "relative"), ("rate", "difference"
 def test_interval_solver_accuracy_against_brentq(kind, scale, skew):
     # the stated accuracy: within 1e-12 of max(Wald scale, |limit|) of the root of
     # the computed statistic (scipy brentq at xtol 1e-15 as the reference)
-    from seqtest.score import _z_raw
+    from seqtest.core.score import _z_raw
     rng = np.random.default_rng(10)
     for _ in range(25):
         nc, nt = rng.integers(5, 3000, 2)
@@ -634,7 +634,7 @@ def test_the_statistic_decreases_in_the_null(kind, scale):
     # the inversion needs z(theta0) decreasing: every table with arms up to 12 (and,
     # for the corrected statistic, wherever |z| >= 1, the only region an interval
     # uses), on a fine grid of nulls
-    from seqtest.score import _z_raw
+    from seqtest.core.score import _z_raw
     rows = [(a, m, b, n) for m in range(1, 13) for n in range(1, 13) for a in range(m + 1)
             for b in range(n + 1)]
     t = np.array(rows, float)

@@ -172,7 +172,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import special  # type: ignore[import-untyped]
+from scipy import special
 
 __all__ = [
     "KINDS",
@@ -642,7 +642,7 @@ def score_test(kind: str, control: Mapping, treatment: Mapping, *,
                scale: str = "difference", null: Any = 0.0,
                correction: bool = False) -> ScoreTest:
     """The score test from per-arm totals given as mappings, as
-    :func:`seqtest.metrics.effect` takes them (binary: ``n``, ``successes``; rate:
+    :func:`seqtest.monitoring.metrics.effect` takes them (binary: ``n``, ``successes``; rate:
     ``exposure``, ``events``)."""
     kind, scale = _check_kind_scale(kind, scale)
     count, size = _FIELDS[kind]
@@ -1084,11 +1084,11 @@ def score_drift(info_fractions: Sequence[float] | Array,
 
     ``ratio = 1`` and no skew give back the plan's own drift; one look gives
     ``ratio z_{1-alpha/sides} + z_power`` (the fixed-sample formula). Computed by the
-    recursion of :func:`seqtest.boundaries.crossing_probabilities` (accuracy about
+    recursion of :func:`seqtest.core.recursion.crossing_probabilities` (accuracy about
     1e-7 on the power) and the root finder of :func:`interval`'s kind (secant on the
     probit of the power, bracketed), to 1e-10 on the drift.
     """
-    from seqtest.boundaries import crossing_probabilities
+    from seqtest.core.recursion import crossing_probabilities
 
     t = np.asarray(info_fractions, float).ravel()
     a = np.asarray(efficacy_z, float).ravel()
