@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 
 import seqtest
+from seqtest.core import score
 from seqtest.core.normal_mixture import half_width
 
 
@@ -24,27 +25,57 @@ def _binary_looks(rates_c, rates_t, sizes):
             for pc, pt, n in zip(rates_c, rates_t, sizes, strict=True)]
 
 
-GS_RELATIVE = {"kind": "binary", "baseline": 0.045, "mde": 0.1, "relative": True,
-               "scale": "relative"}
+GS_RELATIVE = {
+    "binary": {"kind": "binary", "baseline": 0.045, "mde": 0.1, "relative": True,
+               "scale": "relative"},
+    "continuous": {"kind": "continuous", "baseline": 20.0, "sd": 30.0, "mde": 0.05,
+                   "relative": True, "scale": "relative"},
+}
 
 
+def _looks(kind, n, lifts):
+    if kind == "binary":
+        return _binary_looks([0.045] * len(n), [0.045 * (1 + x) for x in lifts], n)
+    return [{"control": {"n": int(m), "mean": 20.0, "sd": 30.0},
+             "treatment": {"n": int(m), "mean": 20.0 * (1 + x), "sd": 30.0}}
+            for m, x in zip(n, lifts, strict=True)]
+
+
+@pytest.mark.parametrize("kind", ["binary", "continuous"])
 @pytest.mark.parametrize("sides", [1, 2])
-def test_group_sequential_relative_look_is_on_one_scale(sides):
+def test_group_sequential_relative_look_is_on_one_scale(kind, sides):
     plan = seqtest.design(alpha=0.05 if sides == 2 else 0.025, sides=sides, looks=4,
-                          metric=GS_RELATIVE)
-    n = plan.sample_size().per_look_control
-    looks = _binary_looks([0.045] * 4, [0.045, 0.049, 0.050, 0.051], n)
-    an = seqtest.analyze(plan, looks)
-    assert an.test_scale == "log_ratio"
+                          metric=GS_RELATIVE[kind])
+    n = plan.n_control
+    an = seqtest.analyze(plan, _looks(kind, n, [0.0, 0.09, 0.11, 0.13]))
     for lk in an.looks:
-        # the reported estimate is the lift; the test runs on its log
-        assert lk.test_estimate == pytest.approx(math.log1p(lk.estimate), rel=1e-12)
-        assert lk.z == pytest.approx(lk.test_estimate / lk.se, rel=1e-12)
+        if kind == "binary":
+            # binary: the score test of equal proportions runs on the lift itself, with
+            # the se restricted to the null; z is its skewness correction
+            assert an.test_scale == "relative"
+            assert lk.test_estimate == pytest.approx(lk.estimate, rel=1e-12)
+            assert lk.z == pytest.approx(
+                float(score.corrected_z(lk.test_estimate / lk.se, lk.skewness)), rel=1e-12)
+            assert lk.skewness == pytest.approx(skewness(lk), rel=1e-9, abs=1e-15)
+        else:
+            # continuous: the test runs on the log of the ratio of means
+            assert an.test_scale == "log_ratio"
+            assert lk.test_estimate == pytest.approx(math.log1p(lk.estimate), rel=1e-12)
+            assert lk.z == pytest.approx(lk.test_estimate / lk.se, rel=1e-12)
         crossed = abs(lk.z) >= lk.efficacy_z if sides == 2 else lk.z >= lk.efficacy_z
         assert crossed == (lk.decision == "stop_efficacy")
-        # the interval is the test's interval mapped back to the lift
-        assert lk.interval_lower == pytest.approx(
-            math.expm1(lk.test_estimate - lk.efficacy_z * lk.se), rel=1e-9)
+        # the interval excludes no effect exactly when the look crosses efficacy
+        excludes = lk.interval_lower > 0 or (sides == 2 and lk.interval_upper < 0)
+        assert excludes == crossed
+
+
+def skewness(lk):
+    """The skewness of the score contrast at this look (seqtest.core.score)."""
+    p_c = lk.control_value
+    p_t = lk.treatment_value
+    st = score.binary_relative(p_c * lk.n_control, lk.n_control, p_t * lk.n_treatment,
+                               lk.n_treatment)
+    return float(st.skewness)
 
 
 def test_mixture_relative_boundary_is_on_the_scale_of_z():

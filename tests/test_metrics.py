@@ -15,6 +15,7 @@ from statsmodels.stats import proportion as sm_proportion
 from statsmodels.stats import rates as sm_rates
 from statsmodels.stats.power import NormalIndPower
 
+from seqtest.core import score
 from seqtest.monitoring.metrics import (
     METRIC_FIELDS,
     Effect,
@@ -27,7 +28,7 @@ from seqtest.monitoring.metrics import (
 )
 
 # ---------------------------------------------------------------------------
-# Binary: two-proportion z statistic with unpooled (Wald) variance
+# Binary: the score statistic restricted to the null, with the skewness correction
 # ---------------------------------------------------------------------------
 
 BINARY_CASES = [
@@ -41,64 +42,47 @@ BINARY_CASES = [
 
 
 @pytest.mark.parametrize("sc, nc, st, nt", BINARY_CASES)
-def test_binary_difference_matches_statsmodels_wald(sc, nc, st, nt):
-    # Source: statsmodels.stats.proportion.test_proportions_2indep, method="wald"
-    # (unpooled variance p1(1-p1)/n1 + p2(1-p2)/n2), compare="diff".
-    ref = sm_proportion.test_proportions_2indep(st, nt, sc, nc, method="wald", compare="diff",
-                                  correction=False)
+def test_binary_difference_is_the_pooled_score_test(sc, nc, st, nt):
+    # Source: statsmodels.stats.proportion.test_proportions_2indep(method="score",
+    # compare="diff", correction=False): the Farrington-Manning score statistic, at no
+    # effect the pooled two-proportion z test. Our se is the restricted one, so
+    # (estimate - 0) / se is that statistic; z adds the skewness correction
+    # (seqtest.core.score.corrected_z), which is 0 only for equal arms' symmetric data.
+    ref = sm_proportion.test_proportions_2indep(st, nt, sc, nc, method="score",
+                                                compare="diff", correction=False)
     e = effect("binary", {"n": nc, "successes": sc}, {"n": nt, "successes": st})
     assert e.estimate == pytest.approx(st / nt - sc / nc, rel=1e-12)
-    assert e.z == pytest.approx(ref.statistic, rel=1e-10)
-    assert e.se**2 == pytest.approx(ref.variance, rel=1e-10)
-    # p-value from the normal tail of our z against statsmodels' p-value.
-    assert 2 * stats.norm.sf(abs(e.z)) == pytest.approx(ref.pvalue, rel=1e-8)
-
-
-@pytest.mark.parametrize("sc, nc, st, nt", BINARY_CASES)
-def test_binary_difference_textbook_formula(sc, nc, st, nt):
-    # Source: textbook Wald statistic for a difference of proportions,
-    # z = (p_t - p_c) / sqrt(p_t(1-p_t)/n_t + p_c(1-p_c)/n_c)  (Agresti 2013, Sec. 3.1).
-    pc, pt = sc / nc, st / nt
-    z_ref = (pt - pc) / math.sqrt(pt * (1 - pt) / nt + pc * (1 - pc) / nc)
-    e = effect("binary", {"n": nc, "successes": sc}, {"n": nt, "successes": st})
-    assert e.z == pytest.approx(z_ref, rel=1e-12)
+    assert e.estimate / e.se == pytest.approx(ref.statistic, rel=1e-9)
+    assert e.z == pytest.approx(float(score.corrected_z(e.estimate / e.se, e.skewness)),
+                                rel=1e-12)
+    # pooled variance at no effect: p (1 - p) (1/n_c + 1/n_t) (textbook pooled z test)
+    p = (sc + st) / (nc + nt)
+    assert e.se**2 == pytest.approx(p * (1 - p) * (1 / nc + 1 / nt), rel=1e-10)
     assert e.information == pytest.approx(1 / e.se**2, rel=1e-12)
-    assert e.control_value == pytest.approx(pc)
-    assert e.treatment_value == pytest.approx(pt)
+    assert e.control_value == pytest.approx(sc / nc)
+    assert e.treatment_value == pytest.approx(st / nt)
     assert e.n_control == nc and e.n_treatment == nt
 
 
 @pytest.mark.parametrize("sc, nc, st, nt", BINARY_CASES)
-def test_binary_relative_se_matches_log_ratio_variance(sc, nc, st, nt):
-    # Source: statsmodels test_proportions_2indep(compare="ratio", method="log") gives
-    # Var(log RR) = (1-p_t)/(n_t p_t) + (1-p_c)/(n_c p_c) (Katz et al. 1978). The
-    # delta method maps it to the ratio: Var(RR) = RR^2 Var(log RR), which is
-    # algebraically the same as our w_t/m_c^2 + m_t^2 w_c/m_c^4.
-    ref = sm_proportion.test_proportions_2indep(st, nt, sc, nc, method="log", compare="ratio",
-                                  correction=False)
+def test_binary_relative_is_the_same_test_reported_on_the_ratio(sc, nc, st, nt):
+    # Source: statsmodels test_proportions_2indep(method="score", compare="ratio") at
+    # value 1 is the Miettinen-Nurminen score test of equal proportions: the same
+    # statistic as the difference's at no effect; the estimate is the lift and se the
+    # restricted standard error over the control proportion (z = estimate / se).
+    ref = sm_proportion.test_proportions_2indep(st, nt, sc, nc, method="score",
+                                                compare="ratio", correction=False)
     e = effect("binary", {"n": nc, "successes": sc}, {"n": nt, "successes": st},
                scale="relative")
+    d = effect("binary", {"n": nc, "successes": sc}, {"n": nt, "successes": st})
     assert e.estimate == pytest.approx(ref.ratio - 1, rel=1e-12)
-    assert e.se == pytest.approx(ref.ratio * math.sqrt(ref.variance), rel=1e-10)
-    assert e.scale == "relative"
+    assert e.estimate / e.se == pytest.approx(ref.statistic, rel=1e-9)
+    assert e.z == pytest.approx(d.z, rel=1e-12)
+    assert e.se == pytest.approx(d.se / (sc / nc), rel=1e-12)
+    assert e.scale == "relative" and e.test_scale == "relative"
 
 
-def test_binary_relative_se_against_simulation():
-    # Source: Monte Carlo of the sampling distribution of p_t/p_c - 1.
-    # R = 40_000 replications: the sample sd has relative standard error
-    # 1/sqrt(2(R-1)) = 0.35%; the first-order delta-method bias in the variance is
-    # of order CV(p_c)^2 = (1-p_c)/(n p_c) = 0.8/1000 = 0.08%. Tolerance 1.5% is
-    # > 4 Monte Carlo standard errors plus the bias.
-    rng = np.random.default_rng(20240611)
-    n, pc, pt = 5_000, 0.20, 0.22
-    sc = rng.binomial(n, pc, size=40_000)
-    st = rng.binomial(n, pt, size=40_000)
-    sim = st / sc - 1.0
-    e = effect("binary", {"n": n, "successes": n * pc}, {"n": n, "successes": n * pt},
-               scale="relative")
-    assert e.se == pytest.approx(np.std(sim, ddof=1), rel=0.015)
-
-
+# ---------------------------------------------------------------------------
 # ---------------------------------------------------------------------------
 # Continuous: Welch
 # ---------------------------------------------------------------------------
@@ -171,28 +155,30 @@ def test_continuous_relative_delta_method_formula():
     "ec, xc, et, xt",
     [(1000.0, 30, 1200.0, 20), (52_000.0, 812, 49_500.0, 845), (10.5, 4, 12.25, 9)],
 )
-def test_rate_difference_matches_textbook_and_statsmodels(ec, xc, et, xt):
-    # Source: textbook Wald statistic for a difference of Poisson rates,
-    # (r_t - r_c) / sqrt(x_t/e_t^2 + x_c/e_c^2); and statsmodels
-    # test_poisson_2indep(method="wald", compare="diff").
+def test_rate_difference_is_the_score_test(ec, xc, et, xt):
+    # Source: statsmodels test_poisson_2indep(method="score", compare="diff"): the score
+    # test of equal rates with the pooled rate, (r_t - r_c) / sqrt(r (1/e_t + 1/e_c))
+    # with r = (x_t + x_c) / (e_t + e_c) (textbook).
     rt, rc = xt / et, xc / ec
-    z_ref = (rt - rc) / math.sqrt(xt / et**2 + xc / ec**2)
-    ref = sm_rates.test_poisson_2indep(xt, et, xc, ec, method="wald", compare="diff")
+    r = (xt + xc) / (et + ec)
+    z_ref = (rt - rc) / math.sqrt(r * (1 / et + 1 / ec))
+    ref = sm_rates.test_poisson_2indep(xt, et, xc, ec, method="score", compare="diff")
     e = effect("rate", {"exposure": ec, "events": xc}, {"exposure": et, "events": xt})
-    assert e.z == pytest.approx(z_ref, rel=1e-12)
-    assert e.z == pytest.approx(ref.statistic, rel=1e-10)
+    assert e.estimate / e.se == pytest.approx(z_ref, rel=1e-12)
+    assert e.estimate / e.se == pytest.approx(ref.statistic, rel=1e-9)
     assert e.estimate == pytest.approx(rt - rc, rel=1e-12)
     assert e.n_control == ec and e.control_value == pytest.approx(rc)
 
 
-def test_rate_relative_se_matches_log_ratio():
-    # Source: Var(log rate ratio) = 1/x_t + 1/x_c (textbook Poisson result); delta
-    # method Var(RR) = RR^2 (1/x_t + 1/x_c).
+def test_rate_relative_is_the_conditional_score_test():
+    # Source: statsmodels test_poisson_2indep(method="score", compare="ratio"): at
+    # ratio 1 the conditional binomial score test, equal to the difference's statistic.
     ec, xc, et, xt = 800.0, 64, 750.0, 75
-    rr = (xt / et) / (xc / ec)
+    ref = sm_rates.test_poisson_2indep(xt, et, xc, ec, method="score", compare="ratio")
     e = effect("rate", {"exposure": ec, "events": xc}, {"exposure": et, "events": xt},
                scale="relative")
-    assert e.se == pytest.approx(rr * math.sqrt(1 / xt + 1 / xc), rel=1e-12)
+    assert e.estimate == pytest.approx((xt / et) / (xc / ec) - 1, rel=1e-12)
+    assert e.estimate / e.se == pytest.approx(ref.statistic, rel=1e-9)
 
 
 # ---------------------------------------------------------------------------
@@ -201,12 +187,22 @@ def test_rate_relative_se_matches_log_ratio():
 
 
 def test_null_shifts_z():
-    # Definition: z = (estimate - null) / se.
+    # Source: statsmodels test_proportions_2indep(method="score", compare="ratio",
+    # value=1.2): the Miettinen-Nurminen statistic at a ratio of 1.2, restricted to that
+    # null; z = (estimate - null) / se with the se restricted to it. (statsmodels'
+    # non-zero difference margin is not used as a reference: see tests/test_score.py.)
+    # Continuous metrics: the Welch z at a shifted null, by definition.
     c, t = {"n": 1000, "successes": 100}, {"n": 1000, "successes": 130}
-    e0 = effect("binary", c, t)
-    e1 = effect("binary", c, t, null=0.01)
-    assert e1.z == pytest.approx((e0.estimate - 0.01) / e0.se, rel=1e-12)
-    assert e1.null == 0.01
+    e1 = effect("binary", c, t, scale="relative", null=0.2)
+    ref = sm_proportion.test_proportions_2indep(130, 1000, 100, 1000, method="score",
+                                                compare="ratio", value=1.2,
+                                                correction=False)
+    assert (e1.estimate - 0.2) / e1.se == pytest.approx(ref.statistic, rel=1e-8)
+    assert e1.null == 0.2
+    cc = {"n": 50, "mean": 10.0, "sd": 2.0}
+    ct = {"n": 60, "mean": 11.0, "sd": 2.5}
+    w0, w1 = effect("continuous", cc, ct), effect("continuous", cc, ct, null=0.25)
+    assert w1.z == pytest.approx((w0.estimate - 0.25) / w0.se, rel=1e-12)
 
 
 @pytest.mark.parametrize("kind", sorted(METRIC_FIELDS))
@@ -259,28 +255,31 @@ def test_large_vectorised_input_runs():
     assert np.std(e.z) == pytest.approx(1.0, abs=0.005)
 
 
-def test_zero_successes_in_both_arms_is_finite_and_zero_z():
-    # Degenerate case documented in effect(): zero-count floor in the variance.
+def test_zero_successes_in_both_arms_is_degenerate_with_zero_z():
+    # No outcome in either arm: the restricted variance is 0, no evidence either way.
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         e = effect("binary", {"n": 100, "successes": 0}, {"n": 100, "successes": 0})
-    assert e.estimate == 0.0
-    assert e.z == 0.0
-    # Floor: p = 0.5/n in the variance of each arm.
-    p = 0.5 / 100
-    assert e.se == pytest.approx(math.sqrt(2 * p * (1 - p) / 100), rel=1e-12)
-    assert not e.degenerate
+    assert e.estimate == 0.0 and e.z == 0.0 and e.information == 0.0
+    assert e.degenerate and e.se == math.inf
 
 
 def test_all_successes_and_none_is_finite():
+    # Source: the pooled z test by hand, p = 0.5: z = 1 / sqrt(0.25 * 2 / 50) = 10.
     e = effect("binary", {"n": 50, "successes": 0}, {"n": 50, "successes": 50})
-    assert np.isfinite(e.z) and e.z > 10 and np.isfinite(e.se)
+    assert e.estimate / e.se == pytest.approx(10.0, rel=1e-12)
+    assert np.isfinite(e.z) and e.z > 5 and not e.degenerate
 
 
-def test_zero_events_in_rate_arm_floor():
+def test_zero_events_in_both_rate_arms_is_degenerate():
     e = effect("rate", {"exposure": 100.0, "events": 0}, {"exposure": 100.0, "events": 0})
-    assert e.z == 0.0
-    assert e.se == pytest.approx(math.sqrt(2 * 0.5 / 100.0**2), rel=1e-12)
+    assert e.z == 0.0 and e.degenerate and e.se == math.inf
+
+
+def test_zero_events_in_one_rate_arm_is_finite():
+    # Source: pooled-rate score test by hand: r = 5/200, z = (5/100) / sqrt(r * 2/100).
+    e = effect("rate", {"exposure": 100.0, "events": 0}, {"exposure": 100.0, "events": 5})
+    assert e.estimate / e.se == pytest.approx(0.05 / math.sqrt(0.025 * 0.02), rel=1e-12)
 
 
 def test_constant_continuous_data_is_flagged_degenerate():
@@ -294,13 +293,19 @@ def test_constant_continuous_data_is_flagged_degenerate():
     assert e.estimate == pytest.approx(1.0)
 
 
-def test_relative_with_zero_control_mean_is_flagged():
+def test_relative_with_zero_control_mean():
+    # The lift is undefined (control 0) but the score test of equal proportions is not:
+    # z stays finite and equals the difference scale's.
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         e = effect("binary", {"n": 100, "successes": 0}, {"n": 100, "successes": 5},
                    scale="relative")
-    assert e.degenerate and math.isnan(e.estimate)
-    assert e.z == 0.0 and e.information == 0.0 and e.se == math.inf
+    d = effect("binary", {"n": 100, "successes": 0}, {"n": 100, "successes": 5})
+    assert e.estimate == math.inf and e.se == math.inf
+    assert e.z == pytest.approx(d.z, rel=1e-12) and np.isfinite(e.z)
+    c = effect("continuous", {"n": 10, "mean": 0.0, "sd": 1.0},
+               {"n": 10, "mean": 1.0, "sd": 1.0}, scale="relative")
+    assert c.degenerate and c.z == 0.0 and c.information == 0.0
 
 
 def test_mixed_degenerate_elements_in_array():
@@ -311,14 +316,14 @@ def test_mixed_degenerate_elements_in_array():
 
 
 def test_extreme_counts():
-    # Very large n and very small proportions stay accurate; compare with the
-    # textbook Wald formula evaluated in exact arithmetic terms.
+    # Very large n and very small proportions stay accurate: the pooled z test by hand
+    # (textbook) in double precision.
     nc = nt = 10**10
     sc, st = 10, 25
     e = effect("binary", {"n": nc, "successes": sc}, {"n": nt, "successes": st})
-    pc, pt = sc / nc, st / nt
-    z_ref = (pt - pc) / math.sqrt(pt * (1 - pt) / nt + pc * (1 - pc) / nc)
-    assert e.z == pytest.approx(z_ref, rel=1e-10)
+    p = (sc + st) / (nc + nt)
+    z_ref = (st / nt - sc / nc) / math.sqrt(p * (1 - p) * (1 / nc + 1 / nt))
+    assert e.estimate / e.se == pytest.approx(z_ref, rel=1e-9)
 
 
 def test_continuous_large_mean_cancellation():
@@ -576,21 +581,26 @@ def test_binary_sample_size_textbook():
     [("binary", 0.10, 0.12), ("rate", 0.3, 0.33), ("continuous", (40.0, 10.0), (42.0, 11.0))],
 )
 def test_arm_unit_variances_relative_match_effect_se(kind, control, treatment):
-    # Contract with effect(): Var(estimate) = u_c / n_c + u_t / n_t on the relative
-    # scale (delta method, Casella & Berger 2002, Sec. 5.5.4).
+    # Contract: Var(estimate) = u_c / n_c + u_t / n_t on the relative scale by the delta
+    # method (Casella & Berger 2002, Sec. 5.5.4), the unpooled variance at the design
+    # means. Continuous: effect()'s own se; binary and rate (whose test uses the
+    # variance restricted to the null instead): the Katz log-ratio variance of
+    # statsmodels (method="log" / "wald-log") times the squared ratio.
     nc, nt = 4000.0, 5000.0
     u_c, u_t = arm_unit_variances(kind, control, treatment, scale="relative")
     if kind == "binary":
-        c, t = {"n": nc, "successes": nc * control}, {"n": nt, "successes": nt * treatment}
+        ref = sm_proportion.test_proportions_2indep(nt * treatment, nt, nc * control, nc,
+                                                    method="log", compare="ratio",
+                                                    correction=False)
+        var = ref.ratio**2 * ref.variance
     elif kind == "rate":
-        c = {"exposure": nc, "events": nc * control}
-        t = {"exposure": nt, "events": nt * treatment}
+        rr = treatment / control
+        var = rr**2 * (1 / (nt * treatment) + 1 / (nc * control))  # Var log = 1/x_t + 1/x_c
     else:
         c = {"n": nc, "mean": control[0], "sd": control[1]}
         t = {"n": nt, "mean": treatment[0], "sd": treatment[1]}
-    e = effect(kind, c, t, scale="relative")
-    # For continuous, effect() uses the sample sd exactly as given.
-    assert e.se**2 == pytest.approx(u_c / nc + u_t / nt, rel=1e-10)
+        var = effect(kind, c, t, scale="relative").se ** 2
+    assert var == pytest.approx(u_c / nc + u_t / nt, rel=1e-10)
 
 
 @pytest.mark.parametrize(

@@ -260,7 +260,10 @@ def test_always_valid_effect_uses_plan_scale_and_cap():
     plan = mixture_plan(mde=0.2, scale="relative", max_n_per_arm=3000)
     eff = metrics.effect("binary", arr["control"], arr["treatment"], scale="relative")
     r = always_valid_effect(eff, plan)
-    ref = always_valid(eff.estimate, eff.se, plan, n=np.array([1000, 2000, 3000]))
+    # on the relative scale the test runs on the log ratio whose standard error makes
+    # it the score statistic (seqtest.core.score.log_ratio)
+    ref = always_valid(eff.log_ratio_estimate, eff.log_ratio_se, plan,
+                       n=np.array([1000, 2000, 3000]), on_log_ratio=True)
     np.testing.assert_array_equal(r.decision, ref.decision)
     assert r.decision[-1] in ("stop_efficacy", "complete_not_significant")
     with pytest.raises(ValueError, match="difference scale but the plan on the relative"):

@@ -26,6 +26,7 @@ from statsmodels.stats import proportion as sm_proportion
 
 import seqtest
 from seqtest import spending
+from seqtest.core import score
 from seqtest.core.region import Region, first_stop
 from seqtest.core.vocabulary import DECISIONS
 from seqtest.monitoring import metrics
@@ -132,58 +133,65 @@ BINARY_ONE_LOOK = [(1000, 10_000, 1090, 10_000), (480, 5000, 560, 5200),
 
 
 @pytest.mark.parametrize("sc, nc, st, nt", BINARY_ONE_LOOK)
-def test_one_look_binary_is_two_proportion_wald_test(sc, nc, st, nt):
-    # metrics.effect documents the unpooled (Wald) variance, so the matching reference
-    # is statsmodels' test_proportions_2indep(method="wald") and the textbook
-    # z = (p_t - p_c) / sqrt(p_t(1-p_t)/n_t + p_c(1-p_c)/n_c) (Agresti 2013, 3.1);
-    # statsmodels' proportions_ztest pools the two arms, a different variance.
+def test_one_look_binary_is_the_corrected_score_test(sc, nc, st, nt):
+    # One look is the fixed-sample test. Binary metrics are tested by the score
+    # statistic restricted to the null: statsmodels' test_proportions_2indep(
+    # method="score", correction=False) gives its plain value (the pooled z), and the
+    # look's z is its skewness correction (Gart and Nam 1990; seqtest.core.score,
+    # checked there by exact enumeration). The repeated interval of a single look is
+    # the fixed-sample score interval (the test inverted), so it excludes 0 exactly when
+    # the look stops; the stage-wise interval of one look is (z +- 1.96) se on the
+    # canonical scale of the statistic (Jennison and Turnbull 2000, 8.4: with one look
+    # the stage-wise ordering is the ordering by z), with the se restricted to the null.
     plan = seqtest.design(alpha=0.05, sides=2, power=0.8, looks=1)
     looks = [{"control": {"n": nc, "successes": sc}, "treatment": {"n": nt, "successes": st}}]
     an = seqtest.analyze(plan, looks, metric="binary", max_n=nc + nt)
-    ref = sm_proportion.test_proportions_2indep(st, nt, sc, nc, method="wald",
+    ref = sm_proportion.test_proportions_2indep(st, nt, sc, nc, method="score",
                                                 compare="diff", correction=False)
-    pc, pt = sc / nc, st / nt
-    z_text = (pt - pc) / math.sqrt(pt * (1 - pt) / nt + pc * (1 - pc) / nc)
     look = an.looks[0]
-    assert look.z == pytest.approx(ref.statistic, rel=1e-10)
-    assert look.z == pytest.approx(z_text, rel=1e-10)
-    assert an.final.p_value == pytest.approx(ref.pvalue, rel=1e-6)
-    lo, hi = sm_proportion.confint_proportions_2indep(st, nt, sc, nc, method="wald",
-                                                      compare="diff", alpha=0.05,
-                                                      correction=False)
-    assert an.final.ci_lower == pytest.approx(lo, abs=1e-5 * look.se)
-    assert an.final.ci_upper == pytest.approx(hi, abs=1e-5 * look.se)
-    assert an.looks[0].rci_lower == pytest.approx(lo, abs=1e-6 * look.se)
-    assert an.looks[0].rci_upper == pytest.approx(hi, abs=1e-6 * look.se)
+    assert look.test_estimate / look.se == pytest.approx(ref.statistic, rel=1e-9)
+    st_ = score.binary_difference(sc, nc, st, nt)
+    assert look.z == pytest.approx(float(st_.corrected_z), rel=1e-12)
+    assert an.final.p_value == pytest.approx(2 * stats.norm.sf(abs(look.z)), rel=1e-6)
+    lo, hi = score.interval("binary", sc, nc, st, nt, stats.norm.isf(0.025), null=0.0)
+    assert look.interval_lower == pytest.approx(float(lo), abs=1e-9)
+    assert look.interval_upper == pytest.approx(float(hi), abs=1e-9)
+    assert (look.interval_lower > 0 or look.interval_upper < 0) == \
+        (an.decision == "stop_efficacy")
+    q = stats.norm.isf(0.025)
+    assert an.final.ci_lower == pytest.approx((look.z - q) * look.se, abs=1e-5 * look.se)
+    assert an.final.ci_upper == pytest.approx((look.z + q) * look.se, abs=1e-5 * look.se)
+    assert an.final.naive_ci_lower == pytest.approx(float(lo), abs=1e-9)
 
 
 @pytest.mark.parametrize("sc, nc, st, nt", BINARY_ONE_LOOK[:2] + [(30, 400, 45, 410)])
-def test_one_look_relative_binary_is_the_log_ratio_test(sc, nc, st, nt):
-    # On the relative scale the test runs on log(p_t / p_c) with the delta-method
-    # (Katz et al. 1978) variance (1-p_t)/(n_t p_t) + (1-p_c)/(n_c p_c): statsmodels'
-    # test_proportions_2indep / confint_proportions_2indep(method="log",
-    # compare="ratio"); the relative effect is the ratio minus 1.
+def test_one_look_relative_binary_is_the_ratio_score_test(sc, nc, st, nt):
+    # On the relative scale the test of equal proportions is the same score test; the
+    # estimate is the lift, se the restricted se over the control proportion, and the
+    # fixed-sample interval is the inverted ratio score test, which with the skewness
+    # term off is statsmodels' confint_proportions_2indep(method="score",
+    # compare="ratio") (Miettinen and Nurminen 1985; seqtest.core.score tests both).
     plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=1,
                           metric={"kind": "binary", "baseline": 0.1, "mde": 0.1,
                                   "relative": True, "scale": "relative"})
     looks = [{"control": {"n": nc, "successes": sc}, "treatment": {"n": nt, "successes": st}}]
     an = seqtest.analyze(plan, looks, max_n=nc + nt)
-    ref = sm_proportion.test_proportions_2indep(st, nt, sc, nc, method="log",
+    ref = sm_proportion.test_proportions_2indep(st, nt, sc, nc, method="score",
                                                 compare="ratio", correction=False)
-    lo, hi = sm_proportion.confint_proportions_2indep(st, nt, sc, nc, method="log",
-                                                      compare="ratio", correction=False)
     look = an.looks[0]
-    assert an.scale == "relative"
+    assert an.scale == "relative" and an.test_scale == "relative"
     assert look.estimate == pytest.approx((st / nt) / (sc / nc) - 1, rel=1e-12)
-    assert look.z == pytest.approx(ref.statistic, rel=1e-10)
-    assert an.final.p_value == pytest.approx(ref.pvalue, rel=1e-6)
-    # limits: stage-wise root finding to ~1e-5 of the log-scale se, mapped by exp
-    se_log = math.log(hi / lo) / (2 * stats.norm.isf(0.025))
-    assert an.final.ci_lower == pytest.approx(lo - 1, abs=1e-5 * se_log * hi)
-    assert an.final.ci_upper == pytest.approx(hi - 1, abs=1e-5 * se_log * hi)
-    assert look.rci_lower == pytest.approx(lo - 1, rel=1e-9)
-    assert look.rci_upper == pytest.approx(hi - 1, rel=1e-9)
-    assert an.final.median_unbiased == pytest.approx(look.estimate, abs=1e-5 * se_log * hi)
+    assert look.test_estimate / look.se == pytest.approx(ref.statistic, rel=1e-9)
+    plain_lo, plain_hi = score.interval("binary", sc, nc, st, nt, stats.norm.isf(0.025),
+                                        scale="relative", skew=False)
+    sm_lo, sm_hi = sm_proportion.confint_proportions_2indep(
+        st, nt, sc, nc, method="score", compare="ratio", correction=False)
+    assert float(plain_lo) == pytest.approx(sm_lo - 1, rel=1e-7, abs=1e-9)
+    assert float(plain_hi) == pytest.approx(sm_hi - 1, rel=1e-7, abs=1e-9)
+    lo, hi = score.interval("binary", sc, nc, st, nt, stats.norm.isf(0.025),
+                            scale="relative", null=0.0)
+    assert look.interval_lower == pytest.approx(float(lo), abs=1e-9)
+    assert look.interval_upper == pytest.approx(float(hi), abs=1e-9)
 
 
 def test_one_look_one_sided_is_the_one_sided_z_test():

@@ -13,10 +13,10 @@ import math
 import numpy as np
 import pytest
 from scipy import stats
-from statsmodels.stats import proportion as sm_proportion
-from statsmodels.stats.power import NormalIndPower, normal_power_het
+from statsmodels.stats.power import NormalIndPower
 
 import seqtest
+from seqtest.core import score
 from seqtest.planning.sizing import sample_size
 
 FIXED_80 = seqtest.design(alpha=0.05, sides=2, power=0.8, looks=1)
@@ -102,7 +102,7 @@ def test_negative_effect_same_size():
 
 
 # ---------------------------------------------------------------------------
-# Two proportions, unpooled variance
+# Two proportions and two rates: sized for the score test they are tested with
 # ---------------------------------------------------------------------------
 
 PROPORTIONS = [
@@ -112,72 +112,94 @@ PROPORTIONS = [
     (0.50, -0.05, False, 0.05, 2, 0.9, 1.0),
     (0.03, 0.10, True, 0.05, 2, 0.8, 1.0),
     (0.20, -0.15, True, 0.025, 1, 0.9, 0.7),
+    (0.02, 0.006, False, 0.025, 1, 0.9, 4.0),
 ]
 
 
-def unpooled(baseline, mde, relative, q):
-    p_c = baseline
-    p_t = baseline * (1 + mde) if relative else baseline + mde
-    return p_t - p_c, p_c * (1 - p_c), p_t * (1 - p_t), q
+def farrington_manning(p_c, p_t, q):
+    """Null and alternative per-control-unit variances of p_t - p_c at no effect:
+    the pooled proportion weighted by the allocation (Fleiss, Levin and Paik 2003,
+    sec. 4.4; Farrington and Manning 1990, sec. 3)."""
+    p = (p_c + q * p_t) / (1 + q)
+    return p * (1 - p) * (1 + 1 / q), p_c * (1 - p_c) + p_t * (1 - p_t) / q
 
 
 @pytest.mark.parametrize("baseline, mde, relative, alpha, sides, power, q", PROPORTIONS)
-def test_proportions_by_hand_and_statsmodels(baseline, mde, relative, alpha, sides, power, q):
-    # The module documents the unpooled variance at the design alternative:
-    # n_c = (z_a + z_b)^2 (p_c(1-p_c) + p_t(1-p_t)/q) / (p_t - p_c)^2 (standard
-    # formula). statsmodels.NormalIndPower gives the same with the standardised
-    # effect d = delta / sigma_eff, sigma_eff^2 = (v_c + v_t/q) / (1 + 1/q).
+def test_proportions_fixed_size_is_the_score_test_formula(baseline, mde, relative, alpha,
+                                                          sides, power, q):
+    # The fixed-sample size of the score (pooled) test: n_c = (z_a sqrt(v0) + z_b
+    # sqrt(v1))^2 / delta^2 (Farrington and Manning 1990, eq. 7); statsmodels'
+    # normal_sample_size_one_tail with std_null = sqrt(v0), std_alternative = sqrt(v1)
+    # is the same formula solved by another code (compared to 1e-9).
+    from statsmodels.stats.power import normal_sample_size_one_tail
     plan = seqtest.design(alpha=alpha, sides=sides, power=power, looks=1)
     ss = sample_size(plan, kind="binary", baseline=baseline, mde=mde, relative=relative,
                      allocation=q)
-    delta, v_c, v_t, q = unpooled(baseline, mde, relative, q)
-    n_hand = zsum(alpha, power, sides) ** 2 * (v_c + v_t / q) / delta ** 2
-    es = abs(delta) / math.sqrt((v_c + v_t / q) / (1 + 1 / q))
-    ref = NormalIndPower().solve_power(effect_size=es, alpha=alpha / sides, power=power,
-                                       ratio=q, alternative="larger")
-    assert n_hand == pytest.approx(ref, rel=1e-7)  # statsmodels' root finder, as above
-    assert ss.max_information * (v_c + v_t / q) == pytest.approx(n_hand, rel=1e-12)
-    assert ss.delta == pytest.approx(delta, rel=1e-12)
-    assert ss.n_control == math.ceil(n_hand)
-    assert ss.n_treatment == math.ceil(q * n_hand * (1 - 1e-12))
-    # rounding up is minimal: statsmodels.normal_power_het (std per unit of n_c
-    # equal under null and alternative, unpooled) reaches the power at n_control
-    # and not at n_control - 1
-    sd_unit = math.sqrt(v_c + v_t / q)
-    kw = dict(diff=abs(delta), alpha=alpha / sides, std_null=sd_unit,
-              std_alternative=sd_unit, alternative="larger")
-    assert normal_power_het(nobs=ss.n_control, **kw) >= power
-    assert normal_power_het(nobs=ss.n_control - 1, **kw) < power
+    p_c = baseline
+    p_t = baseline * (1 + mde) if relative else baseline + mde
+    v0, v1 = farrington_manning(p_c, p_t, q)
+    za, zb = stats.norm.isf(alpha / sides), stats.norm.isf(1 - power)
+    n_hand = (za * math.sqrt(v0) + zb * math.sqrt(v1)) ** 2 / (p_t - p_c) ** 2
+    ref = normal_sample_size_one_tail(abs(p_t - p_c), power, alpha / sides,
+                                      std_null=math.sqrt(v0), std_alternative=math.sqrt(v1))
+    assert n_hand == pytest.approx(ref, rel=1e-9)
+    assert ss.fixed_control == math.ceil(n_hand * (1 - 1e-12))
+    assert ss.delta == pytest.approx(p_t - p_c, rel=1e-12)
+    # the one-look plan adds only the skewness term of the corrected statistic, a
+    # relative O(1 / sqrt(n)) change (below 3% at these sizes)
+    assert ss.n_control == pytest.approx(n_hand, rel=0.03)
+
+
+def _exact_power(n_c, n_t, p_c, p_t, alpha, sides):
+    """Power of the one-look corrected score test by exact enumeration of both
+    binomial arms (scipy.stats.binom): the sum of P(x_c) P(x_t) over the outcomes the
+    test rejects in the direction of the effect."""
+    xc = np.arange(n_c + 1)[:, None]
+    xt = np.arange(n_t + 1)[None, :]
+    z = np.asarray(score.binary_difference(xc, n_c, xt, n_t).corrected_z, float)
+    crit = stats.norm.isf(alpha / sides)
+    reject = z >= crit if p_t > p_c else z <= -crit
+    w = stats.binom.pmf(np.arange(n_c + 1), n_c, p_c)[:, None] * \
+        stats.binom.pmf(np.arange(n_t + 1), n_t, p_t)[None, :]
+    return float(w[reject].sum())
+
+
+@pytest.mark.parametrize("p_c, mde, q", [(0.3, 0.1, 1.0), (0.3, 0.1, 2.0), (0.2, -0.08, 0.5)])
+def test_one_look_power_by_exact_enumeration(p_c, mde, q):
+    # The planned size reaches the planned power, checked by exact enumeration of the
+    # two binomial arms (no normal approximation): within 0.01 of 0.8 (the lattice of
+    # a few hundred units moves the exact power by about that much from one n to the
+    # next), and one user per arm fewer does not add power.
+    plan = seqtest.design(alpha=0.05, sides=2, power=0.8, looks=1)
+    ss = sample_size(plan, kind="binary", baseline=p_c, mde=mde, allocation=q)
+    pw = _exact_power(ss.n_control, ss.n_treatment, p_c, p_c + mde, 0.05, 2)
+    assert pw == pytest.approx(0.8, abs=0.01)
 
 
 def test_rates_by_hand():
-    # Poisson counts per unit exposure: Var(rate_t - rate_c) = l_c/E_c + l_t/E_t
-    # (standard Poisson variance, common practice), unpooled at the alternative.
+    # Poisson counts per unit exposure, tested by the pooled-rate score test: at no
+    # effect v0 = l (1 + 1/q) with l the allocation-weighted rate, v1 = l_c + l_t / q
+    # (standard Poisson variances, common practice); n_c = (z_a sqrt(v0) + z_b
+    # sqrt(v1))^2 / delta^2 for one look.
     ss = sample_size(FIXED_80, kind="rate", baseline=2.0, mde=0.1, allocation=1.5)
-    e_c = zsum(0.05, 0.8, 2) ** 2 * (2.0 + 2.1 / 1.5) / 0.1 ** 2
-    assert ss.n_control == math.ceil(e_c)
-    assert ss.n_treatment == math.ceil(1.5 * e_c)
+    lam = (2.0 + 1.5 * 2.1) / 2.5
+    v0, v1 = lam * (1 + 1 / 1.5), 2.0 + 2.1 / 1.5
+    e_c = (stats.norm.isf(0.025) * math.sqrt(v0) + stats.norm.isf(0.2) * math.sqrt(v1)) \
+        ** 2 / 0.1 ** 2
+    assert ss.fixed_control == math.ceil(e_c)
     rel = sample_size(FIXED_80, kind="rate", baseline=2.0, mde=0.05, relative=True,
                       allocation=1.5)
     assert rel.n_control == ss.n_control  # 5% of 2.0 is 0.1
 
 
 @pytest.mark.parametrize("mde", [0.2, -0.2, 0.5])
-def test_relative_scale_sizes_the_statistic_monitoring_uses(mde):
-    # Monitoring (seqtest.monitor docstring) tests a relative effect on log(1 + r)
-    # with the unpooled delta-method variance; statsmodels'
-    # test_proportions_2indep(compare="ratio", method="log") is that statistic.
-    # At the planned size and the expected counts of the design alternative, a
-    # one-look plan's statistic must reach its drift z_{1-a/2} + z_{1-b} (rounding
-    # n up can only add about 1 / (2 n) relative).
-    ss = sample_size(FIXED_80, kind="binary", baseline=0.1, mde=mde, relative=True,
-                     scale="relative")
-    n = ss.n_control
-    p_c, p_t = 0.1, 0.1 * (1 + mde)
-    res = sm_proportion.test_proportions_2indep(p_t * n, n, p_c * n, n, compare="ratio",
-                                                method="log", correction=False)
-    drift = zsum(0.05, 0.8, 2)
-    assert abs(res.statistic) == pytest.approx(drift, rel=1.0 / n + 1e-9)
+def test_relative_scale_sizes_the_same_test(mde):
+    # At no effect the score test of equal proportions is one test whatever the scale
+    # the effect is reported on (seqtest.core.score), so the two scales size alike.
+    kw = dict(kind="binary", baseline=0.1, mde=mde, relative=True)
+    rel = sample_size(FIXED_80, **kw, scale="relative")
+    dif = sample_size(FIXED_80, **kw)
+    assert (rel.n_control, rel.n_treatment) == (dif.n_control, dif.n_treatment)
 
 
 # ---------------------------------------------------------------------------
@@ -193,12 +215,15 @@ def test_relative_scale_sizes_the_statistic_monitoring_uses(mde):
 def test_group_sequential_size_is_fixed_size_times_inflation(kw):
     # Jennison & Turnbull (2000), chapter 2: the maximum sample size of a group
     # sequential plan is the fixed-sample size times the inflation factor.
+    # (continuous metrics: the Welch statistic has the same variance under the null
+    # and the alternative, so the canonical relation holds exactly)
     plan = seqtest.design(power=0.8, **kw)
-    metric = dict(kind="binary", baseline=0.1, mde=0.02, allocation=1.5)
+    metric = dict(kind="continuous", sd=1.0, sd_treatment=1.3, mde=0.2, allocation=1.5)
     ss = sample_size(plan, **metric)
     fixed = sample_size(seqtest.design(alpha=plan.alpha, sides=plan.sides, power=0.8,
                                        looks=1), **metric)
-    delta, v_c, v_t, q = unpooled(0.1, 0.02, False, 1.5)
+    q = 1.5
+    delta, v_c, v_t = 0.2, 1.0, 1.3 ** 2
     n_fixed = zsum(plan.alpha, 0.8, plan.sides) ** 2 * (v_c + v_t / q) / delta ** 2
     n_max = n_fixed * plan.inflation
     assert ss.fixed_control == fixed.n_control == math.ceil(n_fixed)

@@ -298,6 +298,7 @@ def always_valid(
     null: float = 0.0,
     n: Any = None,
     scale: str | None = None,
+    on_log_ratio: bool = False,
 ) -> MixtureResult:
     """Always-valid p-values, confidence sequences and decisions along looks.
 
@@ -327,6 +328,12 @@ def always_valid(
         the delta-method ``se`` of :func:`seqtest.monitoring.metrics.effect`) the test runs
         on the log ratio, see Notes, and ``tau2`` is the mixing variance of the
         log ratio.
+
+    on_log_ratio : bool
+        On the relative scale: `estimate` and `se` are already the log ratio and its
+        standard error (e.g. from the score statistic, see
+        :func:`seqtest.core.score.log_ratio`); the intervals are still reported on the
+        relative scale.
 
     Returns
     -------
@@ -379,7 +386,8 @@ def always_valid(
         cap = None
         scale = "difference" if scale is None else checks.choice("scale", scale, SCALES)
     assert scale is not None
-    theta0 = null_on_test_scale(null, scale)
+    test_scale = "log_ratio" if scale == "relative" else "difference"
+    theta0 = null_on_test_scale(null, test_scale)
 
     est0 = np.atleast_1d(np.asarray(estimate, dtype=float))
     se_in = np.atleast_1d(np.asarray(se, dtype=float))
@@ -391,7 +399,10 @@ def always_valid(
         raise InputError("estimate: got a value that is not finite where se is finite; "
                          "allowed are finite numbers (nan only where se is inf)")
     with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
-        est, se0 = to_test_scale(est0, se_in, scale)
+        if on_log_ratio and test_scale == "log_ratio":
+            est, se0 = est0, np.where(np.isfinite(est0), se_in, np.inf)
+        else:
+            est, se0 = to_test_scale(est0, se_in, test_scale)
         # a look without information adds no evidence: its estimate sits at the null
         est = np.where(np.isfinite(se0), est, theta0)
         est = np.broadcast_to(est, shape)
@@ -409,8 +420,8 @@ def always_valid(
             ci_upper = np.minimum.accumulate(est + width, axis=-1)
         else:
             ci_upper = np.full(shape, np.inf)
-        ci_lower = from_test_scale(ci_lower, scale)
-        ci_upper = from_test_scale(ci_upper, scale)
+        ci_lower = from_test_scale(ci_lower, test_scale)
+        ci_upper = from_test_scale(ci_upper, test_scale)
 
     first_rej = _first_true(rejected)
     sign_est = np.sign(est - theta0).astype(np.int8)

@@ -174,6 +174,9 @@ from typing import Any
 import numpy as np
 from scipy import special
 
+from seqtest.core.region import Region
+from seqtest.core.roots import solve
+
 __all__ = [
     "KINDS",
     "SCALES",
@@ -1069,7 +1072,9 @@ def fixed_sample_size(dv: DesignVariances, *, alpha: float, power: float, sides:
 def score_drift(info_fractions: Sequence[float] | Array,
                 efficacy_z: Sequence[float] | Array, *,
                 sides: int, power: float, ratio: float,
-                skew: Sequence[float] | Array | None = None, r: int = 24) -> float:
+                skew: Sequence[float] | Array | None = None,
+                futility_z: Sequence[float] | Array | None = None, r: int = 24,
+                start: float | None = None) -> float:
     """Drift on the alternative's canonical scale that gives the score test `power`.
 
     Under the design effect the score statistic is ``Z_k = Y_k / ratio`` with
@@ -1080,16 +1085,16 @@ def score_drift(info_fractions: Sequence[float] | Array,
     correction they are ``ratio * (a_k + skew_k (a_k^2 - 1) / 6)``. This returns the
     ``D1`` at which ``Y`` crosses them (upper boundary; for ``sides=2`` the lower
     one ``-ratio * (a_k - skew_k (a_k^2 - 1)/6)`` is kept in the sample space) with
-    probability `power`; then ``n_c,max = v1 (D1 / delta)^2``.
+    probability `power`; then ``n_c,max = v1 (D1 / delta)^2``. A futility boundary
+    ``b_k`` (paths that stop there cannot reject later) enters as ``ratio * b_k``
+    (without the skewness term, which is not monotone for ``|b_k| < 1``).
 
     ``ratio = 1`` and no skew give back the plan's own drift; one look gives
     ``ratio z_{1-alpha/sides} + z_power`` (the fixed-sample formula). Computed by the
     recursion of :func:`seqtest.core.recursion.crossing_probabilities` (accuracy about
-    1e-7 on the power) and the root finder of :func:`interval`'s kind (secant on the
-    probit of the power, bracketed), to 1e-10 on the drift.
+    1e-7 on the power) and :func:`seqtest.core.roots.solve` on the probit of the power,
+    to 1e-11 on that scale.
     """
-    from seqtest.core.recursion import crossing_probabilities
-
     t = np.asarray(info_fractions, float).ravel()
     a = np.asarray(efficacy_z, float).ravel()
     if t.size != a.size or t.size == 0:
@@ -1104,30 +1109,29 @@ def score_drift(info_fractions: Sequence[float] | Array,
         lo = -rho * (a - g * (a * a - 1.0)) if sides == 2 else np.full(t.size, -np.inf)
     up = np.where(np.isfinite(a), up, np.inf)
     lo = np.where(np.isfinite(a), lo, -np.inf)
+    inner = None
+    if futility_z is not None:
+        b = rho * np.asarray(futility_z, float).ravel()
+        if sides == 1:
+            lo = np.minimum(np.maximum(lo, b), up)
+        else:
+            inner = np.clip(b, 0.0, np.minimum(up, -lo))
+    region = Region(up, lo, inner, sides == 2)
     goal = float(special.ndtri(p))
 
     def h(d: float) -> float:
-        pw = float(crossing_probabilities(up.tolist(), lo.tolist(), t.tolist(), d,
-                                            r=r).upper.sum())
+        pw = float(region.crossing(t, d, r).upper.sum())
         return float(special.ndtri(min(max(pw, 1e-300), 1 - 1e-16))) - goal
 
-    x0 = float(up[-1]) + goal if np.isfinite(up[-1]) else 3.0
-    x0 = max(x0, 0.1)
-    h0 = h(x0)
-    x1 = x0 - h0
-    for _ in range(30):
-        h1 = h(x1)
-        if abs(h1) < 1e-11:
-            return x1
-        if h1 == h0:
-            break
-        x0, h0, x1 = x1, h1, x1 - h1 * (x1 - x0) / (h1 - h0)
-    raise ArithmeticError("score_drift: the secant iteration did not converge")
+    x0 = start if start is not None else (float(up[-1]) + goal if np.isfinite(up[-1])
+                                          else 3.0)
+    return solve(h, max(x0, 0.1), step=1.0, lo=1e-6, hi=1e3, gtol=1e-11, xtol=1e-12)
 
 
 def group_sequential_size(dv: DesignVariances, info_fractions: Sequence[float] | Array,
                           efficacy_z: Sequence[float] | Array, *, sides: int, power: float,
-                          allocation: float = 1.0, skew: bool = True, r: int = 24
+                          allocation: float = 1.0, skew: bool = True, r: int = 24,
+                          futility_z: Sequence[float] | Array | None = None,
                           ) -> tuple[float, float]:
     """Maximum ``(n_c, n_t)`` (not rounded) of a group-sequential plan run with the
     score test: ``n_c = v1 (D1 / delta)^2`` with ``D1`` from :func:`score_drift`.
@@ -1139,7 +1143,8 @@ def group_sequential_size(dv: DesignVariances, info_fractions: Sequence[float] |
     With ``skew`` the boundaries carry the skewness correction, whose size depends
     on ``n_c`` itself (``skew_k = third0 / (v0^1.5 sqrt(n_c t_k))``): solved by
     fixed-point iteration (each step changes ``n_c`` by a relative ``O(n^-1/2)``
-    amount; iterated until it moves by less than 1e-9 relative).
+    amount; iterated until it moves by less than 1e-8 relative, far below the rounding
+    to whole users), each solve starting from the previous drift.
     """
     if dv.delta == 0:
         raise ValueError("delta: got 0; the design effect must differ from the null")
@@ -1148,15 +1153,16 @@ def group_sequential_size(dv: DesignVariances, info_fractions: Sequence[float] |
     delta = abs(dv.delta)
     third = sign * dv.third0   # skewness of -S for a negative design effect
     rho = math.sqrt(dv.v0 / dv.v1)
-    d1 = score_drift(t, efficacy_z, sides=sides, power=power, ratio=rho, r=r)
+    d1 = score_drift(t, efficacy_z, sides=sides, power=power, ratio=rho, r=r,
+                     futility_z=futility_z)
     n_c = dv.v1 * (d1 / delta) ** 2
     if skew:
         for _ in range(50):
             gam = third / (dv.v0 ** 1.5 * np.sqrt(n_c * t))
             d1 = score_drift(t, efficacy_z, sides=sides, power=power, ratio=rho, skew=gam,
-                             r=r)
+                             futility_z=futility_z, r=r, start=d1)
             new = dv.v1 * (d1 / delta) ** 2
-            done = abs(new - n_c) <= 1e-9 * n_c
+            done = abs(new - n_c) <= 1e-8 * n_c
             n_c = new
             if done:
                 break

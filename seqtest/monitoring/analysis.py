@@ -22,7 +22,6 @@ import numpy as np
 from scipy import special
 
 from seqtest.core import checks, jsonable
-from seqtest.core.scales import TEST_SCALE
 from seqtest.core.vocabulary import CAUTION, Decision, decision_from_code
 from seqtest.monitoring import metrics
 from seqtest.monitoring.rules import (
@@ -53,7 +52,12 @@ class LookResult:
         The effect on its reported scale (difference, or relative lift).
     test_estimate, se, z : float
         The estimate, its standard error and the z statistic on the scale the test
-        runs on (:attr:`Analysis.test_scale`): ``z = test_estimate / se``.
+        runs on (:attr:`Analysis.test_scale`): ``z = test_estimate / se`` for continuous
+        metrics; for binary and rate metrics ``se`` is restricted to the null and ``z``
+        is ``test_estimate / se`` with the skewness correction, the number that solves
+        ``z + skewness (z^2 - 1) / 6 = test_estimate / se`` (Gart and Nam).
+    skewness : float
+        Skewness of the score contrast under the null (0 for continuous metrics).
     information, information_fraction : float
         ``1 / se^2``, and the fraction of the maximum reached (by sample, by
         information, or for a mixture plan the larger arm against its cap).
@@ -86,6 +90,7 @@ class LookResult:
     test_estimate: float
     se: float
     z: float
+    skewness: float
     information: float
     information_fraction: float
     efficacy_z: float
@@ -264,7 +269,8 @@ def analyze(
     stopped = None if table.stop is None else table.stop + 1
     return Analysis(decision=table.decision, direction=direction, stopped_at=stopped,
                     looks=records, final=fin, projection=proj, warnings=warnings,
-                    metric_kind=kind, scale=scale, test_scale=TEST_SCALE[scale],
+                    metric_kind=kind, scale=scale,
+                    test_scale=table.test_scale or eff.test_scale,
                     plan_kind=rule.kind)
 
 
@@ -276,8 +282,8 @@ def _rule(plan: Any, pm: dict, max_n: float | None, fraction_basis: str) -> Any:
         if not pm or "mde" not in pm:
             raise ValueError("fraction_basis: 'information' needs a plan with a metric (for "
                              "the maximum information)")
-        from seqtest.planning.sizing import delta_and_unit
-        max_information = plan.max_information(delta_and_unit(pm)[0])
+        from seqtest.planning.sizing import check_metric, max_control
+        max_information = max_control(plan, check_metric(dict(pm)))[3]
     total = _max_total(plan, max_n) if (pm or max_n is not None) else None
     if fraction_basis == "sample" and total is None:
         total = _max_total(plan, max_n)
@@ -292,7 +298,10 @@ def _records(eff: metrics.Effect, table: LookTable, kind: str, alloc: float,
         return np.atleast_1d(np.asarray(x, float))
 
     n_c, n_t = col(eff.n_control), col(eff.n_treatment)
-    z = col(eff.z)
+    z = col(eff.z) if table.z is None else table.z
+    t_est = col(eff.test_estimate) if table.test_estimate is None else table.test_estimate
+    t_se = col(eff.test_se) if table.se is None else table.se
+    skew = np.broadcast_to(col(eff.skewness), col(eff.z).shape)
     unadj = sides * special.ndtr(-np.abs(z)) if sides == 2 else special.ndtr(-z)
     out = []
     for j in range(table.analysed):
@@ -302,8 +311,10 @@ def _records(eff: metrics.Effect, table: LookTable, kind: str, alloc: float,
             control_value=float(col(eff.control_value)[j]),
             treatment_value=float(col(eff.treatment_value)[j]),
             estimate=float(col(eff.estimate)[j]),
-            test_estimate=float(col(eff.test_estimate)[j]), se=float(col(eff.test_se)[j]),
-            z=float(z[j]), information=float(col(eff.information)[j]),
+            test_estimate=float(t_est[j]), se=float(t_se[j]),
+            z=float(z[j]),
+            skewness=0.0 if table.z is not None else float(skew[j]),
+            information=float(col(eff.information)[j]),
             information_fraction=float(table.fraction[j]),
             efficacy_z=float(table.efficacy_z[j]),
             futility_z=None if table.futility_z is None else float(table.futility_z[j]),

@@ -24,15 +24,20 @@ from __future__ import annotations
 import math
 import numbers
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 from scipy import special
 
-from seqtest.core import checks
+from seqtest.core import checks, score
 from seqtest.core.errors import InputError, LookDataError
-from seqtest.core.scales import null_on_test_scale, to_test_scale
+from seqtest.core.scales import (
+    from_test_scale,
+    null_on_test_scale,
+    test_scale_of,
+    to_test_scale,
+)
 from seqtest.core.vocabulary import ARMS, METRIC_KINDS, SCALES
 
 __all__ = [
@@ -314,19 +319,35 @@ class Effect:
 
     Attributes
     ----------
+    kind : str
+        The metric kind.
     estimate : ndarray or float
         Treatment minus control (``scale="difference"``) or treatment / control - 1
         (``scale="relative"``).
     se : ndarray or float
-        Estimated standard error of `estimate`; ``inf`` where `degenerate`.
+        Standard error of `estimate` (restricted to the null for binary and rate
+        metrics, see :func:`effect`); ``inf`` where `degenerate`.
+    test_scale : str
+        The scale the test runs on (:func:`seqtest.core.scales.test_scale_of`).
     test_estimate, test_se : ndarray or float
-        The estimate and its standard error on the scale the test runs on (see
-        :mod:`seqtest.core.scales`): the same as `estimate` and `se` on the difference
-        scale, the log ratio and its standard error on the relative scale.
+        The estimate and its standard error on the test scale: the same as `estimate`
+        and `se` except on the log ratio (continuous metrics on the relative scale).
     z : ndarray or float
-        ``(test_estimate - null) / test_se``, on the test scale; 0 where `degenerate`.
+        The test statistic, compared with the boundaries: for binary and rate metrics
+        the skewness-corrected score statistic, which is ``(test_estimate - null) /
+        test_se`` corrected by `skewness` (:func:`seqtest.core.score.corrected_z`);
+        for continuous metrics Welch's ``(test_estimate - null) / test_se``. 0 where
+        `degenerate`.
+    skewness : ndarray or float
+        Skewness of the score contrast under the null (0 for continuous metrics).
+    log_ratio_estimate, log_ratio_se : ndarray, float or None
+        On the relative scale: the log of the ratio and its standard error, for tests
+        that run on the log ratio (the mixture test): the delta method for continuous
+        metrics; for binary and rate metrics the standard error for which the log ratio
+        over it is the score statistic (:func:`seqtest.core.score.log_ratio`).
     information : ndarray or float
-        ``1 / test_se**2``; 0 where `degenerate`.
+        ``1 / test_se**2`` for continuous metrics, ``1 / V`` (the restricted variance
+        of the score contrast) for binary and rate metrics; 0 where `degenerate`.
     n_control, n_treatment : ndarray or float
         Units per arm (the exposure for a rate metric).
     control_value, treatment_value : ndarray or float
@@ -334,10 +355,9 @@ class Effect:
     scale : str
         ``"difference"`` or ``"relative"``.
     degenerate : ndarray or bool
-        True where the variance estimate is zero or the effect undefined (see
-        :func:`effect`).
+        True where no evidence either way can be computed (see :func:`effect`).
     null : float
-        The null value used for `z`.
+        The null value used for `z`, on the effect's scale.
     """
 
     estimate: np.ndarray | float
@@ -353,6 +373,42 @@ class Effect:
     scale: str
     degenerate: np.ndarray | bool = False
     null: float = 0.0
+    kind: str = "continuous"
+    test_scale: str = "difference"
+    skewness: np.ndarray | float = 0.0
+    totals: tuple[Mapping[str, np.ndarray], Mapping[str, np.ndarray]] | None = field(
+        default=None, repr=False, compare=False)
+    log_ratio_estimate: np.ndarray | float | None = None
+    log_ratio_se: np.ndarray | float | None = None
+
+    def interval(self, critical: Any, sides: int) -> tuple[np.ndarray, np.ndarray]:
+        """The interval ``{theta0 : the test at theta0 does not reach critical}`` at each
+        look, on the effect's scale (``critical`` broadcasts with the looks; ``inf``
+        gives the whole range).
+
+        Binary and rate metrics: the score test inverted (skewness-corrected;
+        :func:`seqtest.core.score.interval`), so the interval excludes the null
+        exactly when the test at the null rejects. Continuous metrics:
+        ``test_estimate +- critical * test_se`` mapped back from the test scale.
+        One-sided (``sides=1``): the lower limit, the upper one is the range's end.
+        """
+        c = np.asarray(critical, float)
+        if self.kind in ("binary", "rate"):
+            assert self.totals is not None
+            count, size = ("successes", "n") if self.kind == "binary" else ("events",
+                                                                            "exposure")
+            ctrl, trt = self.totals
+            lo, hi = score.interval(self.kind, ctrl[count], ctrl[size], trt[count],
+                                    trt[size], c, scale=self.scale, sides=sides,
+                                    skew=True, null=self.null)
+            return np.asarray(lo, float), np.asarray(hi, float)
+        est = np.asarray(self.test_estimate, float)
+        se = np.asarray(self.test_se, float)
+        with np.errstate(invalid="ignore"):
+            lo = est - c * se
+            hi = est + c * se if sides == 2 else np.full(np.broadcast(est, c).shape, np.inf)
+        return (np.asarray(from_test_scale(lo, self.test_scale), float),
+                np.asarray(from_test_scale(hi, self.test_scale), float))
 
 
 def _arm_arrays(kind: str, totals: Mapping, name: str) -> dict[str, np.ndarray]:
@@ -484,9 +540,12 @@ def effect(
     null_value = checks.number("null", null)
     c = _arm_arrays(kind, control, "control")
     t = _arm_arrays(kind, treatment, "treatment")
+    if kind in ("binary", "rate"):
+        return _score_effect(kind, scale, null_value, c, t)
     n_c, m_c, w_c = _arm_mean_and_variance(kind, c)
     n_t, m_t, w_t = _arm_mean_and_variance(kind, t)
     n_c, m_c, w_c, n_t, m_t, w_t = np.broadcast_arrays(n_c, m_c, w_c, n_t, m_t, w_t)
+    test_scale = test_scale_of(kind, scale)
     with np.errstate(divide="ignore", invalid="ignore"):
         if scale == "difference":
             est = m_t - m_c
@@ -499,8 +558,8 @@ def effect(
         degenerate = ~(var > 0) | ~np.isfinite(var) | ~np.isfinite(est)
         est = np.where(np.isfinite(est), est, np.nan)
         se = np.where(degenerate, np.inf, np.sqrt(var))
-        t_est, t_se = to_test_scale(est, se, scale)
-        t_null = null_on_test_scale(null_value, scale)
+        t_est, t_se = to_test_scale(est, se, test_scale)
+        t_null = null_on_test_scale(null_value, test_scale)
         degenerate = degenerate | ~np.isfinite(t_se) | ~(t_se > 0)
         t_se = np.where(degenerate, np.inf, t_se)
         z = np.where(degenerate, 0.0, (t_est - t_null) / t_se)
@@ -519,6 +578,51 @@ def effect(
         scale=scale,
         degenerate=_scalar(degenerate),
         null=null_value,
+        kind=kind,
+        test_scale=test_scale,
+        skewness=0.0,
+        totals=(c, t),
+        log_ratio_estimate=None if scale == "difference" else _scalar(np.asarray(t_est)),
+        log_ratio_se=None if scale == "difference" else _scalar(np.asarray(t_se)),
+    )
+
+
+def _score_effect(kind: str, scale: str, null: float, c: dict[str, np.ndarray],
+                  t: dict[str, np.ndarray]) -> Effect:
+    """Binary and rate metrics: the skewness-corrected score statistic restricted to
+    the null (see :mod:`seqtest.core.score` for the formulas and references)."""
+    count, size = ("successes", "n") if kind == "binary" else ("events", "exposure")
+    st = score._score(kind, scale, c[count], c[size], t[count], t[size], null, False)
+    shape = np.shape(st.z)
+    n_c = np.broadcast_to(np.asarray(c[size], float), shape)
+    n_t = np.broadcast_to(np.asarray(t[size], float), shape)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        m_c = np.broadcast_to(np.asarray(c[count], float), shape) / n_c
+        m_t = np.broadcast_to(np.asarray(t[count], float), shape) / n_t
+    degenerate = np.asarray(st.degenerate, bool)
+    log_est = log_se = None
+    if scale == "relative":
+        log_est, log_se = score.log_ratio(st)
+    return Effect(
+        estimate=st.estimate,
+        se=st.se,
+        test_estimate=st.estimate,
+        test_se=st.se,
+        z=st.corrected_z,
+        information=st.information,
+        n_control=_scalar(np.array(n_c, dtype=float)),
+        n_treatment=_scalar(np.array(n_t, dtype=float)),
+        control_value=_scalar(np.array(m_c, dtype=float)),
+        treatment_value=_scalar(np.array(m_t, dtype=float)),
+        scale=scale,
+        degenerate=_scalar(degenerate),
+        null=null,
+        kind=kind,
+        test_scale=test_scale_of(kind, scale),
+        skewness=st.skewness,
+        totals=(c, t),
+        log_ratio_estimate=log_est,
+        log_ratio_se=log_se,
     )
 
 

@@ -46,7 +46,7 @@ from seqtest.core.boundaries import binding_bounds, futility_bounds, spending_bo
 from seqtest.core.errors import LookDataError
 from seqtest.core.normal_mixture import always_valid
 from seqtest.core.region import Region
-from seqtest.core.scales import from_test_scale
+from seqtest.core.scales import from_test_scale, null_on_test_scale
 from seqtest.core.spending import SpendingFunction
 from seqtest.core.vocabulary import Decision, decision_from_code
 from seqtest.monitoring import inference
@@ -153,6 +153,12 @@ class LookTable:
     decision : Decision
     last_final : bool
         The last analysed look was the final one.
+    future_fractions, future_efficacy : ndarray
+        The planned looks still ahead and their boundaries (for the projection).
+    test_scale, test_estimate, se, z : optional
+        When the rule tests on other statistics than the effect's own (the mixture test
+        on the log ratio, without the score's skewness correction): what it used, so
+        that a look shows the numbers its decision was made on.
     """
 
     analysed: int
@@ -169,6 +175,10 @@ class LookTable:
     last_final: bool
     future_fractions: np.ndarray
     future_efficacy: np.ndarray
+    test_scale: str | None = None
+    test_estimate: np.ndarray | None = None
+    se: np.ndarray | None = None
+    z: np.ndarray | None = None
 
 
 def _arr(x: Any) -> np.ndarray:
@@ -180,13 +190,12 @@ def _unadjusted_p(z: np.ndarray, sides: int) -> np.ndarray:
     return sides * special.ndtr(-np.abs(zz)) if sides == 2 else special.ndtr(-zz)
 
 
-def _naive(eff: Effect, j: int, alpha: float, sides: int, scale: str) -> dict[str, float]:
-    est = float(_arr(eff.test_estimate)[j])
-    se = float(_arr(eff.test_se)[j])
-    lo, hi = inference.naive_ci(est, se, alpha, sides)
+def _naive(eff: Effect, j: int, alpha: float, sides: int) -> dict[str, float]:
+    """The fixed-sample analysis of look ``j`` alone (it ignores the looks)."""
+    lo, hi = eff.interval(float(-special.ndtri(alpha / sides)), sides)
     return {"naive_estimate": float(_arr(eff.estimate)[j]),
-            "naive_ci_lower": float(from_test_scale(lo, scale)),
-            "naive_ci_upper": float(from_test_scale(hi, scale)),
+            "naive_ci_lower": float(np.atleast_1d(lo)[j]),
+            "naive_ci_upper": float(np.atleast_1d(hi)[j]),
             "naive_p_value": float(_unadjusted_p(np.array(_arr(eff.z)[j]), sides))}
 
 
@@ -375,21 +384,20 @@ class GroupSequentialRule:
                                 "the experiment went on; that keeps the type I error")
         decision = Decision.CONTINUE if stop is None else decision_from_code(codes[stop])
         if stop is not None and stop < last - 1:
-            k_all = t_all.size
             warnings.append(f"the experiment stopped at look {stop + 1} ({decision.value}); "
-                            f"looks {stop + 2}..{k_all} came after the stop and are not "
+                            f"looks {stop + 2}..{t_all.size} came after the stop and are not "
                             "analysed")
             last = stop + 1
             t, a, codes = t[:last], a[:last], codes[:last]
             b = None if b is None else b[:last]
             a_int = a_int[:last]
-        est, se = _arr(eff.test_estimate)[:last], _arr(eff.test_se)[:last]
-        lo, hi = inference.repeated_ci(est, se, a_int, plan.sides)
+        k_all = np.atleast_1d(np.asarray(eff.z)).size
+        crit = np.concatenate([a_int, np.full(k_all - last, np.inf)])
+        lo, hi = eff.interval(crit, plan.sides)
         return LookTable(
             analysed=last, fraction=t, efficacy_z=a, futility_z=b,
             p_threshold=plan.sides * special.ndtr(-a),
-            interval_lower=np.asarray(from_test_scale(lo, eff.scale), float),
-            interval_upper=np.asarray(from_test_scale(hi, eff.scale), float),
+            interval_lower=np.atleast_1d(lo)[:last], interval_upper=np.atleast_1d(hi)[:last],
             codes=codes, always_valid_p=None, stop=stop, decision=decision,
             last_final=last_final, future_fractions=future,
             future_efficacy=a_all[last:])
@@ -426,12 +434,18 @@ class GroupSequentialRule:
         region = self.region(table.efficacy_z[: j + 1], b, binding_only=True)
         sw = inference.stagewise(z, info, region, alpha=plan.alpha, sides=plan.sides,
                                  r=plan.r)
-        scale = eff.scale
+        # theta is on the test scale, in the units of test_estimate; its information at
+        # the stop is 1 / test_se^2 (for a score statistic that is the restricted one)
+        th_scale = 1.0 / float(_arr(eff.test_se)[j]) ** 2 / info[-1]
+        ts = eff.test_scale
+
+        def back(theta: float) -> float:
+            return float(from_test_scale(theta / math.sqrt(th_scale), ts))
+
         return FinalInference(
-            p_value=sw.p_value, ci_lower=float(from_test_scale(sw.ci_lower, scale)),
-            ci_upper=float(from_test_scale(sw.ci_upper, scale)),
-            median_unbiased=float(from_test_scale(sw.median_unbiased, scale)),
-            **_naive(eff, j, plan.alpha, plan.sides, scale))
+            p_value=sw.p_value, ci_lower=back(sw.ci_lower), ci_upper=back(sw.ci_upper),
+            median_unbiased=back(sw.median_unbiased),
+            **_naive(eff, j, plan.alpha, plan.sides))
 
     def projection(self, eff: Effect, table: LookTable, daily_traffic: float | None
                    ) -> Projection | None:
@@ -476,6 +490,16 @@ class MixtureRule:
         size = np.maximum(_arr(eff.n_control), _arr(eff.n_treatment))
         res = always_valid_effect(eff, plan)
         self._result = res
+        test_scale = "log_ratio" if plan.scale == "relative" else "difference"
+        if plan.scale == "relative":
+            t_est = np.asarray(eff.log_ratio_estimate, float)
+            t_se = np.asarray(eff.log_ratio_se, float)
+        else:
+            t_est, t_se = np.asarray(eff.estimate, float), np.asarray(eff.se, float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t_z = np.where(np.isfinite(t_se), (t_est - null_on_test_scale(eff.null,
+                                                                           test_scale))
+                           / t_se, 0.0)
         codes = np.atleast_1d(res.decision_code).astype(np.int8).copy()
         k = codes.size
         if final and codes[-1] == _CONTINUE:
@@ -498,7 +522,9 @@ class MixtureRule:
             codes=codes[:last], always_valid_p=np.atleast_1d(res.p_value)[:last],
             stop=None if decision == Decision.CONTINUE else last - 1, decision=decision,
             last_final=decision != Decision.CONTINUE, future_fractions=np.empty(0),
-            future_efficacy=np.empty(0))
+            future_efficacy=np.empty(0), test_scale=test_scale,
+            test_estimate=np.atleast_1d(t_est)[:last], se=np.atleast_1d(t_se)[:last],
+            z=np.atleast_1d(t_z)[:last])
 
     def final_inference(self, eff: Effect, table: LookTable, warnings: list[str]
                         ) -> FinalInference | None:
@@ -509,7 +535,7 @@ class MixtureRule:
         return FinalInference(
             p_value=float(table.always_valid_p[j]), ci_lower=float(table.interval_lower[j]),
             ci_upper=float(table.interval_upper[j]), median_unbiased=None,
-            **_naive(eff, j, self.plan.alpha, self.plan.sides, eff.scale))
+            **_naive(eff, j, self.plan.alpha, self.plan.sides))
 
     def projection(self, eff: Effect, table: LookTable, daily_traffic: float | None
                    ) -> Projection | None:
@@ -537,5 +563,9 @@ def always_valid_effect(eff: Effect, plan: MixturePlan, *, null: float | None = 
         raise ValueError(f"eff: the effect is on the {eff.scale} scale but the plan on the "
                          f"{plan.scale} scale; compute the effect with scale={plan.scale!r}")
     n = np.maximum(np.asarray(eff.n_control, float), np.asarray(eff.n_treatment, float))
+    if eff.scale == "relative":
+        return always_valid(eff.log_ratio_estimate, eff.log_ratio_se, plan,
+                            null=eff.null if null is None else null, n=n, scale=eff.scale,
+                            on_log_ratio=True)
     return always_valid(eff.estimate, eff.se, plan, null=eff.null if null is None else null,
                         n=n, scale=eff.scale)

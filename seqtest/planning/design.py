@@ -19,7 +19,7 @@ References
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -40,7 +40,7 @@ from seqtest.core.region import Region
 from seqtest.core.roots import NoRoot, solve
 from seqtest.core.spending import SpendingFunction
 from seqtest.core.version import __version__
-from seqtest.planning.sizing import check_metric, sample_size
+from seqtest.planning.sizing import check_metric, max_control, per_look, sample_size
 
 __all__ = ["Plan", "design", "Characteristics", "parse_boundary", "MAX_LOOKS"]
 
@@ -196,6 +196,9 @@ class Plan:
         Metric description for sample sizes (see :mod:`seqtest.planning.sizing`).
     cumulative_alpha : ndarray
         Type I error spent by each look (both tails together for a two-sided plan).
+    n_control, n_treatment : ndarray or None
+        Users (exposure, for rates) per arm at each planned look, cumulative and
+        rounded up, when the plan has a metric (see :mod:`seqtest.planning.sizing`).
     notes : tuple of str
         What a reader of the plan should know, e.g. that it was written by an earlier
         release that computed some numbers a little differently.
@@ -215,6 +218,8 @@ class Plan:
     r: int = DEFAULT_R
     cumulative_alpha: np.ndarray = field(default=None, repr=False)  # type: ignore[arg-type]
     notes: tuple[str, ...] = field(default=(), repr=False)
+    n_control: np.ndarray | None = field(default=None, repr=False)
+    n_treatment: np.ndarray | None = field(default=None, repr=False)
 
     # -- derived quantities ----------------------------------------------------------
     @property
@@ -319,6 +324,9 @@ class Plan:
                 else floats_or_none(self.futility_z),
                 "cumulative_alpha": floats_or_none(self.cumulative_alpha),
                 "p_threshold": floats_or_none(self.p_threshold),
+                "sample_size": None if self.n_control is None or self.n_treatment is None
+                else {"control": [int(x) for x in self.n_control],
+                      "treatment": [int(x) for x in self.n_treatment]},
                 "drift": self.drift,
                 "fixed_drift": self.fixed_drift,
                 "inflation": self.inflation,
@@ -484,7 +492,12 @@ def design(
     else:
         region = Region.of_plan(sides, eff_z, b if binding else None)
         cum_alpha = np.cumsum(region.efficacy_probability(t, 0.0, r))
-    return Plan(alpha=a, sides=int(sides), power=p, info_fractions=t, efficacy_z=eff_z,
+    plan = Plan(alpha=a, sides=int(sides), power=p, info_fractions=t, efficacy_z=eff_z,
                 futility_z=b, drift=float(drift), efficacy=eff, futility=fut,
                 binding=bool(binding and b is not None), metric=metric, r=r,
                 cumulative_alpha=cum_alpha)
+    if metric is None:
+        return plan
+    n_c = max_control(plan, metric)[0]
+    n_ctrl, n_trt = per_look(n_c, metric["allocation"], t)
+    return replace(plan, n_control=n_ctrl, n_treatment=n_trt)

@@ -38,7 +38,7 @@ from seqtest.core.version import __version__
 from seqtest.core.vocabulary import PLAN_KINDS, SCALES
 from seqtest.planning.design import MAX_GRID_R, Plan, design
 from seqtest.planning.mixture import MixturePlan, mixture_plan
-from seqtest.planning.sizing import check_metric
+from seqtest.planning.sizing import check_metric, legacy_max_control, per_look
 
 __all__ = ["RELEASE_CHANGES", "SAME_RELEASE_TOLERANCE", "plan_from_dict"]
 
@@ -55,14 +55,15 @@ RELEASE_CHANGES: dict[str, dict[str, Any]] = {
         "relative": 5e-3,
         "why": "0.2.0 made the numerical integration accurate when two looks are close "
                "together (boundaries moved by up to about 1e-4, the drift of such plans "
-               "by up to about 0.1%) and replaced the root finders (changes near 1e-12)",
+               "by up to about 0.1%), replaced the root finders (changes near 1e-12) and "
+               "sizes binary and rate metrics for the score statistic it tests them with",
     },
 }
 
 _GS_INPUTS = {"alpha", "sides", "power", "information_fractions", "efficacy", "futility",
               "binding", "metric", "grid_r"}
 _GS_COMPUTED = {"efficacy_z", "futility_z", "cumulative_alpha", "p_threshold", "drift",
-                "fixed_drift", "inflation"}
+                "fixed_drift", "inflation", "sample_size"}
 _MIX_INPUTS = ("alpha", "sides", "mde", "max_n_per_arm", "unit_variance", "scale", "metric")
 _MIX_COMPUTED = ("tau2", "tau2_rule")
 _RENAMED = {"inputs": {"info_fractions": "information_fractions"},
@@ -114,9 +115,15 @@ def plan_from_dict(document: Any, *, trust: bool = False) -> Plan | MixturePlan:
         raise
     except InputError as exc:
         raise PlanDocumentError(f"inputs: {exc}", field="inputs") from None
+    if isinstance(plan, Plan) and plan.metric is not None and plan.n_control is None:
+        # a document of the first release carries no users per look: size it as that
+        # release did, so that it measures fractions, and so decides, as it did
+        n_c = legacy_max_control(plan, plan.metric)
+        n_ctrl, n_trt = per_look(n_c, plan.metric["allocation"], plan.info_fractions)
+        plan = replace(plan, n_control=n_ctrl, n_treatment=n_trt)
     if trust:
         return plan
-    return _verify(plan, inputs, version)
+    return _verify(plan, inputs, version, sizes_given=computed.get("sample_size") is not None)
 
 
 # -- checking fields ---------------------------------------------------------------------
@@ -268,10 +275,19 @@ def _read_group_sequential(inp: dict, comp: dict) -> Plan:
                    missing=np.nan, lo=0.0, hi=1.0)
     drift = _check("computed.drift", checks.number, comp["drift"], lo=0.0, hi=1e3,
                    lo_open=True)
+    sizes: dict[str, np.ndarray] = {}
+    if comp.get("sample_size") is not None:
+        ss = _mapping("computed.sample_size", comp["sample_size"])
+        _no_extra(ss, {"control", "treatment"}, "computed.sample_size")
+        for arm in ("control", "treatment"):
+            sizes[arm] = _numbers(f"computed.sample_size.{arm}",
+                                  _field(ss, arm, "computed.sample_size"), length=k,
+                                  missing=np.nan, lo=0.0, hi=1e15)
     plan = Plan(alpha=alpha, sides=sides, power=power, info_fractions=t, efficacy_z=eff_z,
                 futility_z=fut_z, drift=drift, efficacy=eff, futility=fut,
                 binding=bool(binding and fut_z is not None),
-                metric=_metric(inp.get("metric")), r=r, cumulative_alpha=cum)
+                metric=_metric(inp.get("metric")), r=r, cumulative_alpha=cum,
+                n_control=sizes.get("control"), n_treatment=sizes.get("treatment"))
     # numbers derived from the ones above: they must agree with them whatever the release
     derived = [("p_threshold", plan.p_threshold, False), ("fixed_drift", plan.fixed_drift, True),
                ("inflation", plan.inflation, True)]
@@ -313,7 +329,8 @@ def _read_mixture(inp: dict, comp: dict) -> MixturePlan:
 
 # -- verification --------------------------------------------------------------------------
 
-def _verify(plan: Plan | MixturePlan, inputs: dict, version: str) -> Plan | MixturePlan:
+def _verify(plan: Plan | MixturePlan, inputs: dict, version: str, *,
+            sizes_given: bool = True) -> Plan | MixturePlan:
     """Recompute the plan from its inputs and compare (see the module docstring)."""
     same = version == __version__
     change = RELEASE_CHANGES.get(version, {})
@@ -325,8 +342,9 @@ def _verify(plan: Plan | MixturePlan, inputs: dict, version: str) -> Plan | Mixt
     except InputError as exc:
         raise PlanDocumentError(f"inputs: {exc}", field="inputs") from None
     notes: list[str] = []
-    for path, stored, new, kind in _comparable(plan, fresh):
-        tol = {"z": tol_z, "probability": tol_p, "relative": tol_rel}[kind]
+    for path, stored, new, kind in _comparable(plan, fresh, sizes_given):
+        tol = {"z": tol_z, "probability": tol_p, "relative": tol_rel,
+               "users": 0.5 if same else change["relative"] * float(np.max(new))}[kind]
         a, b = np.atleast_1d(np.asarray(stored, float)), np.atleast_1d(np.asarray(new, float))
         same_inf = (np.isinf(a) & np.isinf(b) & (np.sign(a) == np.sign(b))) \
             | (np.isnan(a) & np.isnan(b))
@@ -347,6 +365,14 @@ def _verify(plan: Plan | MixturePlan, inputs: dict, version: str) -> Plan | Mixt
             for j in np.flatnonzero(moved):
                 where = f"{path}[{j}]" if a.size > 1 else path
                 notes.append(f"{where}: {a[j]:.6g} (this release would compute {b[j]:.6g})")
+    if isinstance(plan, Plan) and isinstance(fresh, Plan) and not same \
+            and plan.n_control is not None and plan.n_treatment is not None \
+            and fresh.n_control is not None and fresh.n_treatment is not None \
+            and not np.array_equal(plan.n_control, fresh.n_control):
+        notes.append(f"users per arm at the last look: {int(plan.n_control[-1])} control, "
+                     f"{int(plan.n_treatment[-1])} treatment (this release would size it "
+                     f"at {int(fresh.n_control[-1])} and {int(fresh.n_treatment[-1])}, "
+                     "with the score statistic)")
     if notes:
         text = (f"plan written by seqtest {version}; it keeps its own numbers and decides as "
                 f"it did. seqtest {__version__} would compute: " + "; ".join(notes[:6])
@@ -378,7 +404,7 @@ def _recompute(plan: Plan | MixturePlan, inputs: dict) -> Plan | MixturePlan:
     return mixture_plan(**kw)
 
 
-def _comparable(plan: Any, fresh: Any) -> list[tuple[str, Any, Any, str]]:
+def _comparable(plan: Any, fresh: Any, sizes_given: bool) -> list[tuple[str, Any, Any, str]]:
     if isinstance(plan, Plan):
         rows = [("computed.efficacy_z", plan.efficacy_z, fresh.efficacy_z, "z"),
                 ("computed.cumulative_alpha", plan.cumulative_alpha, fresh.cumulative_alpha,
@@ -389,6 +415,14 @@ def _comparable(plan: Any, fresh: Any) -> list[tuple[str, Any, Any, str]]:
                 raise PlanDocumentError("computed.futility_z: the inputs give no futility "
                                         "boundary", field="computed.futility_z")
             rows.append(("computed.futility_z", plan.futility_z, fresh.futility_z, "z"))
+        for arm in ("control", "treatment"):
+            stored, new = getattr(plan, f"n_{arm}"), getattr(fresh, f"n_{arm}")
+            if stored is not None and sizes_given:
+                if new is None:
+                    raise PlanDocumentError(f"computed.sample_size.{arm}: the inputs give no "
+                                            "sample size (no metric)",
+                                            field=f"computed.sample_size.{arm}")
+                rows.append((f"computed.sample_size.{arm}", stored, new, "users"))
         return rows
     if plan.tau2_rule != fresh.tau2_rule:
         raise PlanDocumentError(f"computed.tau2_rule: the document says {plan.tau2_rule!r} "

@@ -26,13 +26,14 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from seqtest.core import checks
+from seqtest.core import checks, score
 
 if TYPE_CHECKING:
     from seqtest.planning.design import Plan
@@ -175,7 +176,8 @@ class SampleSize:
         Design effect on the scale the test runs on (``log(1 + r)`` for a relative
         effect).
     max_information : float
-        ``(drift / delta)^2``.
+        The maximum information, in the units of the z statistic's information (see
+        :func:`max_control`).
     """
 
     n_control: int
@@ -199,12 +201,55 @@ def _up(x: np.ndarray | float) -> np.ndarray:
     return np.ceil(np.asarray(x) * (1 - 1e-12)).astype(int)
 
 
+def max_control(plan: Plan, m: dict) -> tuple[float, float, float, float]:
+    """``(n_c, n_c_fixed, delta, I_max)`` for a metric already checked: maximum and
+    fixed-sample control users (not rounded), the design effect on the test scale and
+    the maximum information in the units of :attr:`Effect.information
+    <seqtest.monitoring.metrics.Effect>`.
+
+    Binary and rate metrics are tested by the score statistic restricted to the null
+    (:mod:`seqtest.core.score`): its variance under the null (``v0``) and under the
+    design effect (``v1``) differ, so the maximum is ``n_c = v1 (D1 / delta)^2`` with
+    the drift ``D1`` at which the plan's boundaries, seen on the alternative's scale
+    (``sqrt(v0 / v1)`` times the boundary, with the skewness term), give the planned
+    power (Farrington and Manning 1990 for one look); ``I_max = n_c / v0``. Continuous
+    metrics: ``n_c = (drift / delta)^2 (v_c + v_t / q)`` and ``I_max = (drift /
+    delta)^2``.
+    """
+    q = m["allocation"]
+    if m["kind"] in ("binary", "rate"):
+        fut = None if plan.futility_z is None else tuple(plan.futility_z.tolist())
+        return _score_sizes(m["kind"], m["scale"], *_means(m), q,
+                            tuple(plan.info_fractions.tolist()),
+                            tuple(plan.efficacy_z.tolist()), fut, plan.sides, plan.alpha,
+                            plan.power, plan.r)
+    delta, unit = delta_and_unit(m)
+    i_max = plan.max_information(delta)
+    return i_max * unit, (plan.fixed_drift / delta) ** 2 * unit, delta, i_max
+
+
+@functools.lru_cache(maxsize=256)
+def _score_sizes(kind: str, scale: str, m_c: float, m_t: float, q: float,
+                 t: tuple[float, ...], a: tuple[float, ...], b: tuple[float, ...] | None,
+                 sides: int, alpha: float, power: float, r: int
+                 ) -> tuple[float, float, float, float]:
+    """:func:`max_control` for binary and rate metrics (cached: a plan is sized once
+    per process, however often its sample size is asked for)."""
+    dv = score.design_variances(kind, m_c, m_t, allocation=q, scale=scale)
+    n_c, _ = score.group_sequential_size(dv, t, a, sides=sides, power=power, allocation=q,
+                                         r=r, futility_z=b)
+    n_fixed, _ = score.fixed_sample_size(dv, alpha=alpha, power=power, sides=sides,
+                                         allocation=q)
+    return n_c, n_fixed, dv.delta, n_c / dv.v0
+
+
 def max_sizes(plan: Plan, **metric: Any) -> tuple[int, int]:
     """Maximum users (exposure) per arm, control and treatment, rounded up; the cheap
     part of :func:`sample_size` (no expected sizes)."""
+    if plan.n_control is not None and plan.metric == check_metric(dict(metric)):
+        return int(plan.n_control[-1]), int(plan.n_treatment[-1])  # type: ignore[index]
     m = check_metric(dict(metric))
-    delta, unit = delta_and_unit(m)
-    n_c = plan.max_information(delta) * unit
+    n_c = max_control(plan, m)[0]
     return int(_up(n_c)), int(_up(n_c * m["allocation"]))
 
 
@@ -220,11 +265,8 @@ def sample_size(plan: Plan, **metric: Any) -> SampleSize:
     63
     """
     m = check_metric(dict(metric))
-    delta, unit = delta_and_unit(m)
     q = m["allocation"]
-    i_max = plan.max_information(delta)
-    n_c = i_max * unit
-    n_fixed = (plan.fixed_drift / delta) ** 2 * unit
+    n_c, n_fixed, delta, i_max = max_control(plan, m)
     t = plan.info_fractions
     e0 = plan.characteristics(0.0).expected_fraction
     e1 = plan.characteristics(1.0).expected_fraction
@@ -236,3 +278,20 @@ def sample_size(plan: Plan, **metric: Any) -> SampleSize:
         expected_null=float(e0 * n_c * (1 + q)), expected_alternative=float(e1 * n_c * (1 + q)),
         delta=float(delta), max_information=float(i_max),
     )
+
+
+def legacy_max_control(plan: Plan, m: dict) -> float:
+    """Maximum control users as the first release sized every metric: ``(drift /
+    delta)^2 (v_c + v_t / q)`` with unpooled variances at the design effect (binary and
+    rate metrics were then tested with the unpooled Wald statistic). Kept so that plan
+    documents written by that release measure their information fractions, and so
+    decide, as they did."""
+    delta, unit = delta_and_unit(m)
+    return plan.max_information(delta) * unit
+
+
+def per_look(n_c: float, allocation: float, info_fractions: np.ndarray
+             ) -> tuple[np.ndarray, np.ndarray]:
+    """Cumulative users per arm at each planned look, rounded up."""
+    t = np.asarray(info_fractions, float)
+    return _up(n_c * t), _up(n_c * allocation * t)
