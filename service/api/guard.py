@@ -97,7 +97,17 @@ def find_problem(value: Any, location: list[Any]) -> tuple[list[Any], str] | Non
 
 
 def _printable(s: str) -> str:
-    return s.encode("utf-8", "backslashreplace").decode("ascii", "backslashreplace")
+    """``s`` with control characters and lone surrogates written as escapes."""
+    out = []
+    for c in s:
+        o = ord(c)
+        if o < 32 or o == 127:
+            out.append(f"\\x{o:02x}")
+        elif 0xD800 <= o <= 0xDFFF:
+            out.append(f"\\u{o:04x}")
+        else:
+            out.append(c)
+    return "".join(out)
 
 
 def _has_control(s: str) -> bool:

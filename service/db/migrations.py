@@ -179,7 +179,20 @@ def current_version(conn: Connection) -> int:
 
 
 def migrate(engine: Engine, target: int = LATEST) -> int:
-    """Apply every pending migration up to ``target``; return the version now in place."""
+    """Apply every pending migration up to ``target``; return the version now in place.
+
+    A database already at ``target`` is only read (so that a read-only database can
+    still be served for reading)."""
+    with engine.connect() as conn:
+        have = current_version(conn)
+        conn.rollback()
+    if have == target:
+        return have
+    if have > LATEST:
+        raise SchemaTooNew(
+            f"the database is at schema version {have}, but this service knows "
+            f"versions up to {LATEST}; upgrade the service before using this database"
+        )
     with engine.connect() as conn:
         conn = conn.execution_options(seqtest_write=True)
         with conn.begin():
