@@ -300,6 +300,8 @@ class Database:
         # (monotonic time, reason) of the last write that failed for storage reasons,
         # cleared by the next write that commits; reported by the health route
         self.last_write_failure: tuple[float, str] | None = None
+        self._probed_at = -1e9
+        self._probe_reason: str | None = None
         self.schema_version = self._migrate() if migrate else 0
 
     def close(self) -> None:
@@ -411,25 +413,49 @@ class Database:
     def check_writable(self) -> str | None:
         """``None`` when a write can be made now, else the reason it cannot.
 
-        Cheap: a write transaction that inserts into the ``health_checks`` table and
-        rolls back (on SQLite it takes the write lock, so a read-only file or a
-        database locked by another writer is found). A disk that filled up is found
-        by the last real write that failed, remembered until one succeeds.
+        Every call reads (``SELECT 1``). At most once a second per process it also
+        writes: a transaction that inserts into ``health_checks`` and rolls back (on
+        SQLite it takes the write lock, waiting at most a second, so a read-only file
+        or a database held by a stuck writer is found). A disk that filled up is
+        found by the last real write that failed, remembered until one succeeds.
         """
+        now = time.monotonic()
         try:
-            with self._guard(writing=False) as st, \
-                    self._connect(st, seqtest_write=True) as conn:
-                trans = conn.begin()
-                try:
-                    conn.execute(text("INSERT INTO health_checks (checked_at) VALUES (:t)"),
-                                 {"t": str(time.time())})
-                finally:
-                    trans.rollback()
+            if now - self._probed_at >= 1.0:
+                self._probed_at = now
+                self._probe_reason = self._probe_write()
+            else:
+                self.ping()
         except Unavailable as exc:
             details = exc.details or [{}]
             return str(details[0].get("message", "unavailable"))
+        if self._probe_reason is not None:
+            return self._probe_reason
         if self.last_write_failure is not None:
             at, reason = self.last_write_failure
-            if time.monotonic() - at < 300:
+            if now - at < 300:
                 return reason
+        return None
+
+    def _probe_write(self) -> str | None:
+        try:
+            with self._guard(writing=False) as st, \
+                    self._connect(st, seqtest_write=True) as conn:
+                raw: Any = conn.connection.dbapi_connection
+                if self.dialect == "sqlite":  # outside any transaction, on the driver
+                    raw.execute("PRAGMA busy_timeout=1000")
+                try:
+                    trans = conn.begin()
+                    try:
+                        conn.execute(text("INSERT INTO health_checks (checked_at) VALUES (:t)"),
+                                     {"t": str(time.time())})
+                    finally:
+                        trans.rollback()
+                finally:
+                    if self.dialect == "sqlite":
+                        busy_ms = int(self.settings.busy_timeout_s * 1000)
+                        raw.execute(f"PRAGMA busy_timeout={busy_ms}")
+        except Unavailable as exc:
+            details = exc.details or [{}]
+            return str(details[0].get("message", "unavailable"))
         return None
