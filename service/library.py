@@ -38,6 +38,13 @@ PLAN_KINDS = ("group_sequential", "mixture")
 FRACTION_BASES = ("sample", "information")
 ROLES = ("control", "treatment")  # the library's names of the two arms in a look
 
+# design inputs per kind of plan (the library's argument names)
+DESIGN_INPUTS = {
+    "group_sequential": ("alpha", "sides", "power", "looks", "info_fractions", "efficacy",
+                         "futility", "binding", "metric"),
+    "mixture": ("alpha", "sides", "mde", "max_n_per_arm", "unit_variance", "tau2", "scale",
+                "metric"),
+}
 MAX_LOOKS = 50  # planned looks a client may ask for
 MAX_GRID_R = 48  # integration grid of a plan document (the library's default is 24)
 
@@ -246,6 +253,15 @@ def design_plan(kind: str, inputs: dict[str, Any], location: list[Any] | None = 
     """A plan designed by the library from ``inputs`` (``kind``: group_sequential or
     mixture)."""
     location = location or ["body", "design"]
+    allowed = DESIGN_INPUTS.get(kind, ())
+    wrong = sorted(k for k in inputs if k not in allowed)
+    if wrong:
+        names = ["information_fractions" if k == "info_fractions" else k for k in allowed]
+        raise InvalidPlan(
+            f"design.{wrong[0]}: does not apply to a {kind} plan; its inputs are "
+            f"{', '.join(names)}",
+            details=[{"location": [*location, k], "message": f"not an input of a {kind} plan"}
+                     for k in wrong])
     plan: Any
     try:
         if kind == "mixture":

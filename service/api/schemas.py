@@ -23,7 +23,13 @@ from pydantic import (
     model_validator,
 )
 
-from service.library import FRACTION_BASES, MAX_LOOKS, METRIC_KINDS, PLAN_KINDS
+from service.library import (
+    DESIGN_INPUTS,
+    FRACTION_BASES,
+    MAX_LOOKS,
+    METRIC_KINDS,
+    PLAN_KINDS,
+)
 
 MetricKind = Literal[METRIC_KINDS]  # type: ignore[valid-type]
 FractionBasis = Literal[FRACTION_BASES]  # type: ignore[valid-type]
@@ -87,13 +93,10 @@ class Arms(_Strict):
         return self
 
 
-_GROUP_SEQUENTIAL_FIELDS = (
-    "alpha", "sides", "power", "looks", "information_fractions", "efficacy", "futility",
-    "binding", "metric",
-)
-_MIXTURE_FIELDS = (
-    "alpha", "sides", "mde", "max_n_per_arm", "unit_variance", "tau2", "scale", "metric",
-)
+_GROUP_SEQUENTIAL_FIELDS = tuple(
+    "information_fractions" if f == "info_fractions" else f
+    for f in DESIGN_INPUTS["group_sequential"])
+_MIXTURE_FIELDS = DESIGN_INPUTS["mixture"]
 
 
 class DesignInputs(_Strict):

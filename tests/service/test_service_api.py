@@ -14,7 +14,6 @@ from fastapi.testclient import TestClient
 from service_helpers import auth, open_db
 
 import seqtest
-from seqtest import monitor
 from service import usecases
 from service.api import create_app
 from service.db.engine import Database
@@ -206,9 +205,9 @@ def test_look_answer_is_the_monitors_analysis(client: TestClient, key):
         assert r.status_code == 201, r.text
         history.append({"control": {"n": c[0], "successes": c[1]},
                          "treatment": {"n": t[0], "successes": t[1]}})
-        plan = seqtest.plans.plan_from_dict(exp["plan"]["document"])
+        plan = seqtest.plan_from_dict(exp["plan"]["document"])
         expected = json_safe(
-            monitor.analyze(plan, history, metric="binary", allocation=1.0).to_dict())
+            seqtest.analyze(plan, history, metric="binary", allocation=1.0).to_dict())
         body = r.json()
         assert body["analysis"] == expected
         assert body["look"] == len(history)
@@ -427,10 +426,10 @@ def test_mixture_plan_is_monitored_by_the_library(client: TestClient, key):
     assert exp["plan"]["kind"] == "mixture" and exp["plan"]["boundaries"] is None
     r = look(client, key, exp["id"], (1000, 100), (1000, 130))
     assert r.status_code == 201, r.text
-    plan = seqtest.plans.plan_from_dict(exp["plan"]["document"])
+    plan = seqtest.plan_from_dict(exp["plan"]["document"])
     history = [{"control": {"n": 1000, "successes": 100},
                 "treatment": {"n": 1000, "successes": 130}}]
-    expected = json_safe(monitor.analyze(plan, history, metric="binary",
+    expected = json_safe(seqtest.analyze(plan, history, metric="binary",
                                          allocation=1.0).to_dict())
     assert r.json()["analysis"] == expected
     assert_error(client.post("/v1/experiments", headers=key, json={

@@ -15,7 +15,7 @@ def test_demo_looks_through_http_agree_with_the_library(tmp_path):
     ]
     expected = "continue"
     for upto in range(1, len(looks) + 1):
-        expected = seqtest.monitor.analyze(plan, looks[:upto], metric="binary").decision
+        expected = seqtest.analyze(plan, looks[:upto], metric="binary").decision
         if expected != "continue":
             break
     assert post_demo_looks(plan.to_dict(), looks, tmp_path / "demo.db") == expected

@@ -911,3 +911,17 @@ def test_10_13_old_request_names_are_accepted_with_a_deprecation_notice(world):
     both = client.post("/v1/experiments", headers=key, json=create_body(
         design={"looks": 4}, metric="binary", metric_kind="binary", max_n=4000))
     error(both, 422, "metric_kind")
+
+
+def test_10_9_an_amendment_names_inputs_that_do_not_fit_the_plans_kind(world):
+    client, key, db = world
+    exp = client.post("/v1/experiments", headers=key, json=create_body(
+        design={"kind": "mixture", "metric": BINARY})).json()
+    r = client.post(f"/v1/experiments/{exp['id']}/amendments", headers=key,
+                    json={"reason": "planned looks", "design": {"looks": 8}})
+    err = error(r, 422, "design.looks", "mixture", "max_n_per_arm")
+    assert err["details"][0]["location"] == ["body", "design", "looks"]
+    ok = client.post(f"/v1/experiments/{exp['id']}/amendments", headers=key,
+                     json={"reason": "stricter error rate", "design": {"alpha": 0.01}})
+    assert ok.status_code == 201, ok.text
+    assert ok.json()["plan"]["source"]["inputs"] == {"metric": BINARY, "alpha": 0.01}
