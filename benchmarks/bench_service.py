@@ -33,19 +33,28 @@ import httpx
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
-from service.storage import Storage  # noqa: E402
+from service import usecases  # noqa: E402
+from service.config import Settings  # noqa: E402
+from service.db.engine import Database  # noqa: E402
 
 RUNNING = re.compile(r"Uvicorn running on http://127\.0\.0\.1:(\d+)")
 
 
-def start_server(database_url: str, log: Path) -> tuple[subprocess.Popen, str]:
-    env = dict(os.environ, PYTHONPATH=str(REPO))
+def start_server(database_url: str, log: Path, plain_uvicorn: bool = False,
+                 extra: tuple[str, ...] = ()) -> tuple[subprocess.Popen, str]:
+    """``python -m service serve`` (or, with ``plain_uvicorn``, the same app under
+    uvicorn's own command line, without the service's header deadline)."""
+    env = dict(os.environ, PYTHONPATH=str(REPO), SEQTEST_DATABASE_URL=database_url,
+               SEQTEST_ACCESS_LOG="false")
+    if plain_uvicorn:
+        cmd = [sys.executable, "-m", "uvicorn", "--factory", "service.api:create_app",
+               "--host", "127.0.0.1", "--port", "0", "--no-access-log", "--http", "h11"]
+    else:
+        cmd = [sys.executable, "-m", "service", "serve", "--host", "127.0.0.1", "--port", "0",
+               "--database-url", database_url, "--no-access-log", *extra]
     with open(log, "w") as out:
-        proc = subprocess.Popen(
-            [sys.executable, "-m", "service", "serve", "--host", "127.0.0.1", "--port", "0",
-             "--database-url", database_url, "--no-access-log"],
-            cwd=REPO, env=env, stdout=out, stderr=subprocess.STDOUT, start_new_session=True,
-        )
+        proc = subprocess.Popen(cmd, cwd=REPO, env=env, stdout=out, stderr=subprocess.STDOUT,
+                                start_new_session=True)
     deadline = time.monotonic() + 60
     while time.monotonic() < deadline:
         if proc.poll() is not None:
@@ -63,6 +72,33 @@ def start_server(database_url: str, log: Path) -> tuple[subprocess.Popen, str]:
     raise SystemExit("server did not start in 60 s")
 
 
+def unfinished_headers(base: str, connections: int = 200, limit_s: float = 15.0
+                       ) -> tuple[int, float]:
+    """Open ``connections`` sockets that send half a request's headers and nothing
+    more; return how many the server closed within ``limit_s`` and when the last of
+    those closed (seconds)."""
+    import socket
+
+    port = int(base.rsplit(":", 1)[1])
+    socks = []
+    for _ in range(connections):
+        s = socket.create_connection(("127.0.0.1", port), timeout=10)
+        s.sendall(b"GET /v1/health HTTP/1.1\r\nHost: x\r\n")
+        socks.append(s)
+    t0 = time.monotonic()
+    closed, last = 0, 0.0
+    for s in socks:
+        s.settimeout(max(0.01, t0 + limit_s - time.monotonic()))
+        try:
+            if s.recv(1024) == b"":
+                closed += 1
+                last = time.monotonic() - t0
+        except OSError:
+            pass
+        s.close()
+    return closed, last
+
+
 def pct(values: list[float], q: float) -> float:
     s = sorted(values)
     return s[min(len(s) - 1, int(round(q * (len(s) - 1))))]
@@ -73,6 +109,11 @@ def main() -> int:
     ap.add_argument("--requests", type=int, default=300, help="per kind (max 5000)")
     ap.add_argument("--seconds", type=float, default=60.0, help="measuring time limit")
     ap.add_argument("--looks-per-experiment", type=int, default=10)
+    ap.add_argument("--unfinished-headers", action="store_true",
+                    help="also hold 200 connections with unfinished headers against this "
+                    "server and against plain uvicorn, and count how many get closed")
+    ap.add_argument("--header-limit", type=float, default=15.0,
+                    help="seconds to wait for those connections to be closed")
     ap.add_argument("--database-url", default=None,
                     help="default: a fresh SQLite file; a PostgreSQL URL must name an "
                     "existing, empty schema (?options=-csearch_path%%3Dname)")
@@ -82,8 +123,8 @@ def main() -> int:
 
     tmp = Path(tempfile.mkdtemp(prefix="seqtest-bench-"))
     url = args.database_url or f"sqlite:///{tmp / 'bench.db'}"
-    store = Storage(url)
-    token = store.create_key("bench-bakery", "benchmark")[1]
+    store = Database(Settings.from_env({"database_url": url}))
+    token = usecases.create_key(store, "bench-bakery", "benchmark")[1]
     store.close()
     proc, base = start_server(url, tmp / "server.log")
     headers = {"Authorization": f"Bearer {token}"}
@@ -93,7 +134,7 @@ def main() -> int:
             experiments = []
             for i in range(n_exp):
                 r = client.post("/v1/experiments", json={
-                    "name": f"bench {i}", "metric": "binary", "max_n": 10**9,
+                    "name": f"bench {i}", "metric_kind": "binary", "max_n": 10**9,
                     "design": {"looks": 5}})
                 r.raise_for_status()
                 experiments.append(r.json()["id"])
@@ -126,7 +167,6 @@ def main() -> int:
     # The library's share: the same analyses, in this process, without HTTP or
     # storage (the service runs exactly this call for each look).
     import seqtest
-    from seqtest import monitor
 
     plan = seqtest.design(looks=5)
     library: list[float] = []
@@ -138,8 +178,36 @@ def main() -> int:
             history.append({"control": {"n": n, "successes": n // 10},
                             "treatment": {"n": n, "successes": n // 10 + kk % 7}})
         t0 = time.perf_counter()
-        monitor.analyze(plan, history, metric="binary", allocation=1.0, max_n=10**9)
+        seqtest.analyze(plan, history, metric="binary", allocation=1.0, max_n=10**9)
         library.append(time.perf_counter() - t0)
+
+    # bytes stored per look: the looks table's text, first and last looks
+    bytes_per_look = ""
+    if url.startswith("sqlite"):
+        import sqlite3
+
+        con = sqlite3.connect(url.split("sqlite:///", 1)[1])
+        rows = con.execute("SELECT number, length(analysis) + length(result) + length(totals) "
+                           "FROM looks ORDER BY number").fetchall()
+        con.close()
+        first = [b for n, b in rows if n == 1]
+        last = [b for n, b in rows if n == max(n for n, _ in rows)]
+        bytes_per_look = (f"stored per look: {statistics.fmean(first):.0f} bytes at look 1, "
+                          f"{statistics.fmean(last):.0f} at look {max(n for n, _ in rows)}")
+
+    # 200 connections that never finish their headers: the service's server against
+    # the same app under uvicorn's own command line (h11), side by side
+    header_rows = []
+    if args.unfinished_headers:
+        for name, plain in (("seqtest serve (10 s header deadline)", False),
+                            ("plain uvicorn, h11", True)):
+            p2, b2 = start_server(url, tmp / f"hdr-{plain}.log", plain_uvicorn=plain)
+            try:
+                closed, last = unfinished_headers(b2, 200, args.header_limit)
+            finally:
+                os.killpg(p2.pid, signal.SIGTERM)
+                p2.wait(timeout=30)
+            header_rows.append((name, closed, last))
 
     sync = os.environ.get("SEQTEST_SQLITE_SYNCHRONOUS", "FULL").upper()
     database = "PostgreSQL" if url.startswith("postgres") else f"SQLite (WAL, synchronous={sync})"
@@ -148,7 +216,7 @@ def main() -> int:
     print(f"{'route':<22}{'p50 ms':>10}{'p99 ms':>10}{'req/s':>10}")
     rows = {}
     for name, xs in (("GET /v1/health", health), ("POST .../looks", looks),
-                     ("(monitor.analyze)", library)):
+                     ("(seqtest.analyze)", library)):
         p50, p99 = pct(xs, 0.50) * 1e3, pct(xs, 0.99) * 1e3
         rate = len(xs) / sum(xs)
         rows[name] = (p50, p99, rate)
@@ -159,6 +227,11 @@ def main() -> int:
     print(f"mean look latency {statistics.fmean(looks) * 1e3:.2f} ms, of which the "
           f"monitor's analysis alone takes {statistics.fmean(library) * 1e3:.2f} ms "
           "(same analyses, in this process)")
+    if bytes_per_look:
+        print(bytes_per_look)
+    for name, closed, last in header_rows:
+        print(f"200 unfinished headers, {name}: {closed} closed within "
+              f"{args.header_limit:g} s (last at {last:.1f} s)")
     print(f"look minus monitor, p50: {(pct(looks, 0.5) - pct(library, 0.5)) * 1e3:.2f} ms "
           f"= {(pct(looks, 0.5) - pct(library, 0.5)) / pct(health, 0.5):.1f}x health")
     return 0

@@ -2,7 +2,7 @@
 
 import sys
 
-from service.commands import main
+from service.cli import main
 
 if __name__ == "__main__":
     sys.exit(main())

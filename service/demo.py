@@ -16,9 +16,11 @@ from typing import Any
 import httpx
 import uvicorn
 
-from service.analysis import json_safe
-from service.app import create_app
-from service.storage import Storage
+from service import usecases
+from service.api.app import create_app
+from service.config import Settings
+from service.db.engine import Database
+from service.library import json_safe
 
 
 def post_demo_looks(
@@ -29,10 +31,12 @@ def post_demo_looks(
 
     Stops posting at the first look whose decision is not ``continue``.
     """
-    store = Storage(f"sqlite:///{Path(database).resolve()}")
-    token = store.create_key("demo-team", "seqtest demo")[1]
+    settings = Settings.from_env({"database_url": f"sqlite:///{Path(database).resolve()}",
+                                  "access_log": False})
+    store = Database(settings)
+    token = usecases.create_key(store, "demo-team", "seqtest demo")[1]
     server = uvicorn.Server(
-        uvicorn.Config(create_app(storage=store), host="127.0.0.1", port=0,
+        uvicorn.Config(create_app(settings=settings, db=store), host="127.0.0.1", port=0,
                        log_level="warning", access_log=False)
     )
     thread = threading.Thread(target=server.run, daemon=True)

@@ -1,11 +1,17 @@
-"""Stored records -> the JSON bodies the routes answer with."""
+"""Stored records -> the JSON bodies the service answers with.
+
+Used by the use cases (an answer is rendered inside the write's transaction, so an
+idempotent retry can get it back) and by the read routes. Field names follow the
+project's glossary; names of the first release are kept for one release where
+noted as deprecated.
+"""
 
 from __future__ import annotations
 
 from typing import Any
 
-from service import analysis
-from service.storage import Experiment, Look, PlanVersion
+from service import library
+from service.db.records import Experiment, Look, PlanVersion
 
 
 def summary(exp: Experiment) -> dict[str, Any]:
@@ -13,14 +19,17 @@ def summary(exp: Experiment) -> dict[str, Any]:
         "id": exp.id,
         "name": exp.name,
         "description": exp.description,
-        "metric": exp.metric,
+        "metric_kind": exp.metric_kind,
+        "metric": exp.metric_kind,  # deprecated: metric_kind
         "arms": {"control": exp.control_arm, "treatment": exp.treatment_arm},
         "allocation": exp.allocation,
         "max_n": exp.max_n,
-        "fraction": exp.fraction,
+        "fraction_basis": exp.fraction_basis,
+        "fraction": exp.fraction_basis,  # deprecated: fraction_basis
         "state": exp.state,
         "decision": exp.decision,
-        "looks": exp.look_count,
+        "look_count": exp.look_count,
+        "looks": exp.look_count,  # deprecated: look_count
         "plan_version": exp.plan_version,
         "created_at": exp.created_at,
         "created_by": exp.created_by,
@@ -29,11 +38,13 @@ def summary(exp: Experiment) -> dict[str, Any]:
 
 
 def plan(pv: PlanVersion) -> dict[str, Any]:
+    boundaries = pv.boundaries if pv.boundaries_stored else \
+        library.stored_boundaries(pv.document)
     return {
         "version": pv.version,
         "kind": pv.kind,
         "document": pv.document,
-        "boundaries": analysis.boundary_table(pv.document),
+        "boundaries": boundaries,
         "source": pv.source,
         "reason": pv.reason,
         "after_look": pv.after_look,
@@ -42,48 +53,69 @@ def plan(pv: PlanVersion) -> dict[str, Any]:
     }
 
 
-def created(exp: Experiment, pv: PlanVersion) -> dict[str, Any]:
-    return {**summary(exp), "plan": plan(pv)}
+def created(exp: Experiment, pv: PlanVersion, deprecations: list[str]) -> dict[str, Any]:
+    body = {**summary(exp), "plan": plan(pv)}
+    if deprecations:
+        body["deprecations"] = deprecations
+    return body
 
 
-def amendment(exp: Experiment, pv: PlanVersion) -> dict[str, Any]:
-    return {"experiment_id": exp.id, "plan": plan(pv)}
+def amendment(exp: Experiment, pv: PlanVersion, deprecations: list[str]) -> dict[str, Any]:
+    body: dict[str, Any] = {"experiment_id": exp.id, "state": exp.state,
+                            "max_n": exp.max_n, "plan": plan(pv)}
+    if deprecations:
+        body["deprecations"] = deprecations
+    return body
 
 
-def look(exp: Experiment, lk: Look) -> dict[str, Any]:
+def look_row(exp: Experiment, lk: Look) -> dict[str, Any]:
+    return {
+        "look": lk.number,
+        "plan_version": lk.plan_version,
+        "final": lk.final,
+        "totals": library.to_names(exp, lk.totals),
+        "decision": lk.decision,
+        "recorded_at": lk.recorded_at,
+        "recorded_by": lk.recorded_by,
+        "result": lk.result,
+    }
+
+
+def look(exp: Experiment, lk: Look, rows: list[Any], state: str) -> dict[str, Any]:
+    """A look's answer: its row, the summary, and the analysis over ``rows`` (the
+    stored rows of looks 1 .. this one)."""
     return {
         "experiment_id": exp.id,
         "look": lk.number,
         "plan_version": lk.plan_version,
         "final": lk.final,
-        "totals": analysis.to_names(exp, lk.totals),
+        "totals": library.to_names(exp, lk.totals),
         "decision": lk.decision,
-        "state": exp.state,
+        "state": state,
         "recorded_at": lk.recorded_at,
         "recorded_by": lk.recorded_by,
-        "result": analysis.look_row(lk.analysis, lk.number),
-        "analysis": lk.analysis,
+        "result": lk.result,
+        "analysis": library.analysis_object(lk.summary, rows),
     }
 
 
-def detail(exp: Experiment, plans: list[PlanVersion], looks: list[Look]) -> dict[str, Any]:
-    current = next(p for p in plans if p.version == exp.plan_version)
+def page(offset: int, limit: int, total: int) -> dict[str, int]:
+    return {"offset": offset, "limit": limit, "total": total}
+
+
+def detail(exp: Experiment, current: PlanVersion, versions: list[PlanVersion],
+           looks: list[Look], latest: Look | None, *, looks_page: dict[str, int],
+           versions_page: dict[str, int]) -> dict[str, Any]:
+    analysis = None
+    if latest is not None:
+        analysis = library.analysis_object(latest.summary, [lk.result for lk in looks])
     return {
         **summary(exp),
         "plan": plan(current),
-        "plan_versions": [plan(p) for p in plans],
-        "looks_recorded": [
-            {
-                "look": lk.number,
-                "plan_version": lk.plan_version,
-                "final": lk.final,
-                "totals": analysis.to_names(exp, lk.totals),
-                "decision": lk.decision,
-                "recorded_at": lk.recorded_at,
-                "recorded_by": lk.recorded_by,
-                "result": analysis.look_row(lk.analysis, lk.number),
-            }
-            for lk in looks
-        ],
-        "current": looks[-1].analysis if looks else None,
+        "plan_versions": [plan(p) for p in versions],
+        "plan_versions_page": versions_page,
+        "looks_recorded": [look_row(exp, lk) for lk in looks],
+        "looks_page": looks_page,
+        "analysis": analysis,
+        "current": analysis,  # deprecated: analysis
     }

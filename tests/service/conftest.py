@@ -16,9 +16,9 @@ from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
-from service_helpers import Server, _libpq, reachable_postgres
+from service_helpers import Server, _libpq, open_db, reachable_postgres
 
-from service.storage import Storage
+from service.db.engine import Database
 
 IN_CI = os.environ.get("CI", "").strip().lower() == "true"
 PG_CANDIDATES = (
@@ -88,8 +88,8 @@ def module_database_url(
 
 
 @pytest.fixture
-def storage(database_url: str) -> Iterator[Storage]:
-    s = Storage(database_url)
+def storage(database_url: str) -> Iterator[Database]:
+    s = open_db(database_url)
     try:
         yield s
     finally:

@@ -12,7 +12,9 @@ from pathlib import Path
 
 import httpx
 
-from service.storage import Storage
+from service import usecases
+from service.config import Settings
+from service.db.engine import Database
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -48,19 +50,25 @@ _RUNNING = re.compile(r"Uvicorn running on http://127\.0\.0\.1:(\d+)")
 class Server:
     """``python -m service serve`` on 127.0.0.1, on a port the OS picks."""
 
-    def __init__(self, database_url: str, log_path: Path, workers: int = 1) -> None:
+    def __init__(self, database_url: str, log_path: Path, workers: int = 1,
+                 env: dict[str, str] | None = None, args: list[str] | None = None) -> None:
         self.database_url = database_url
         self.log_path = log_path
         self.workers = workers
+        self.env = env or {}
+        self.args = args or []
         self.proc: subprocess.Popen | None = None
+        self.log_file: Path | None = None
         self.base_url = ""
         self.starts = 0
 
     def start(self, timeout: float = 30.0) -> Server:
         env = dict(os.environ)
         env["PYTHONPATH"] = str(REPO) + os.pathsep + env.get("PYTHONPATH", "")
+        env.update(self.env)
         self.starts += 1
         log_path = self.log_path.with_suffix(f".{self.starts}.log")
+        self.log_file = log_path
         with open(log_path, "w") as log:
             self.proc = subprocess.Popen(
                 [
@@ -68,7 +76,7 @@ class Server:
                     "--host", "127.0.0.1", "--port", "0",
                     "--workers", str(self.workers),
                     "--database-url", self.database_url,
-                    "--log-level", "info",
+                    "--log-level", "info", *self.args,
                 ],
                 cwd=REPO,
                 env=env,
@@ -112,10 +120,14 @@ class Server:
         self.proc = None
 
 
+def open_db(database_url: str, **settings: object) -> Database:
+    return Database(Settings.from_env({"database_url": database_url, **settings}))
+
+
 def new_key(database_url: str, team: str, label: str = "tests") -> str:
-    s = Storage(database_url)
+    s = open_db(database_url)
     try:
-        return s.create_key(team, label)[1]
+        return usecases.create_key(s, team, label)[1]
     finally:
         s.close()
 

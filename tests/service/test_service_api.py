@@ -11,13 +11,13 @@ import json
 
 import pytest
 from fastapi.testclient import TestClient
-from service_helpers import auth
+from service_helpers import auth, open_db
 
 import seqtest
-from seqtest.monitoring import analysis as monitor
-from service.analysis import json_safe
-from service.app import create_app
-from service.storage import Storage
+from service import usecases
+from service.api import create_app
+from service.db.engine import Database
+from service.library import json_safe
 
 BINARY_METRIC = {"kind": "binary", "baseline": 0.12, "mde": 0.02}
 ARMS = {"control": "classic-button", "treatment": "large-button"}
@@ -25,20 +25,20 @@ ARMS = {"control": "classic-button", "treatment": "large-button"}
 
 @pytest.fixture
 def store(sqlite_url: str):
-    s = Storage(sqlite_url)
+    s = open_db(sqlite_url)
     yield s
     s.close()
 
 
 @pytest.fixture
-def client(store: Storage):
-    with TestClient(create_app(storage=store), raise_server_exceptions=False) as c:
+def client(store: Database):
+    with TestClient(create_app(db=store), raise_server_exceptions=False) as c:
         yield c
 
 
 @pytest.fixture
-def key(store: Storage) -> dict[str, str]:
-    return auth(store.create_key("juniper-bakery", "tests")[1])
+def key(store: Database) -> dict[str, str]:
+    return auth(usecases.create_key(store, "juniper-bakery", "tests")[1])
 
 
 def create(client: TestClient, key: dict, **over) -> dict:
@@ -81,7 +81,7 @@ def test_health_needs_no_key(client: TestClient):
     r = client.get("/v1/health")
     assert r.status_code == 200
     assert r.json() == {
-        "status": "ok", "database": "sqlite", "schema_version": 2,
+        "status": "ok", "database": "sqlite", "writable": True, "schema_version": 3,
         "version": seqtest.__version__,
     }
 
@@ -104,21 +104,21 @@ def test_openapi_lists_routes_with_examples(client: TestClient):
 # ----------------------------------------------------------------- auth and isolation
 
 
-def test_missing_and_wrong_keys_get_401(client: TestClient, store: Storage):
+def test_missing_and_wrong_keys_get_401(client: TestClient, store: Database):
     err = assert_error(client.get("/v1/experiments"), 401, "Authorization: Bearer")
     assert err["code"] == "unauthorized"
     assert_error(client.get("/v1/experiments", headers=auth("sqt_nope")), 401, "not valid")
     assert_error(
         client.get("/v1/experiments", headers={"Authorization": "Basic abc"}), 401
     )
-    record, token = store.create_key("t2")
+    record, token = usecases.create_key(store, "t2")
     assert client.get("/v1/experiments", headers=auth(token)).status_code == 200
-    store.revoke_key(record.id)
+    usecases.revoke_key(store, record.id)
     assert_error(client.get("/v1/experiments", headers=auth(token)), 401, "revoked")
 
 
-def test_a_team_sees_only_its_own_experiments(client: TestClient, store: Storage, key):
-    other = auth(store.create_key("another-shop")[1])
+def test_a_team_sees_only_its_own_experiments(client: TestClient, store: Database, key):
+    other = auth(usecases.create_key(store, "another-shop")[1])
     exp = create(client, key)
     for r in (
         client.get(f"/v1/experiments/{exp['id']}", headers=other),
@@ -207,7 +207,7 @@ def test_look_answer_is_the_monitors_analysis(client: TestClient, key):
                          "treatment": {"n": t[0], "successes": t[1]}})
         plan = seqtest.plan_from_dict(exp["plan"]["document"])
         expected = json_safe(
-            monitor.analyze(plan, history, metric="binary", allocation=1.0).to_dict())
+            seqtest.analyze(plan, history, metric="binary", allocation=1.0).to_dict())
         body = r.json()
         assert body["analysis"] == expected
         assert body["look"] == len(history)
@@ -234,7 +234,7 @@ def test_clear_effect_stops_and_later_looks_are_refused(client: TestClient, key)
     body = r.json()
     assert body["decision"] == "stop_efficacy" and body["state"] == "stopped"
     assert body["analysis"]["direction"] == "treatment_better"
-    assert_error(look(client, key, exp["id"], (1100, 110), (1100, 330)), 409, "no further")
+    assert_error(look(client, key, exp["id"], (1100, 110), (1100, 330)), 409, "no more looks")
     listed = client.get("/v1/experiments?state=stopped", headers=key).json()
     assert [e["id"] for e in listed["experiments"]] == [exp["id"]]
     assert client.get("/v1/experiments?state=running", headers=key).json()["total"] == 0
@@ -310,8 +310,8 @@ def test_unreadable_bodies_get_json_errors(client: TestClient, key, raw):
     assert r.json()["error"]["message"]
 
 
-def test_oversized_bodies_get_413(store: Storage, key):
-    app = create_app(storage=store, max_body_bytes=2000)
+def test_oversized_bodies_get_413(store: Database, key):
+    app = create_app(db=store, max_body_bytes=2000)
     with TestClient(app) as client:
         big = {"name": "x" * 3000, "metric": "binary", "design": {}}
         err = assert_error(client.post("/v1/experiments", json=big, headers=key), 413, "2000")
@@ -355,8 +355,8 @@ def test_retry_with_the_same_key_returns_the_first_answer(client: TestClient, ke
     second = client.post(url, json=body, headers=h)
     assert first.status_code == second.status_code == 201
     assert second.json() == first.json()
-    assert second.headers.get("Idempotent-Replayed") == "true"
-    assert "Idempotent-Replayed" not in first.headers
+    assert second.headers.get("Seqtest-Replayed") == "true"
+    assert "Seqtest-Replayed" not in first.headers
     assert client.get(f"/v1/experiments/{exp['id']}", headers=key).json()["looks"] == 1
     changed = {"totals": {ARMS["control"]: {"n": 1001, "successes": 120},
                           ARMS["treatment"]: {"n": 1000, "successes": 131}}}
@@ -378,8 +378,8 @@ def test_idempotent_creation(client: TestClient, key):
     assert client.get("/v1/experiments", headers=key).json()["total"] == 1
 
 
-def test_keys_of_different_teams_do_not_collide(client: TestClient, store: Storage, key):
-    other = auth(store.create_key("another-shop")[1])
+def test_keys_of_different_teams_do_not_collide(client: TestClient, store: Database, key):
+    other = auth(usecases.create_key(store, "another-shop")[1])
     body = {"name": "checkout", "design": {"metric": BINARY_METRIC}}
     a = client.post("/v1/experiments", json=body, headers={**key, "Idempotency-Key": "k"})
     b = client.post("/v1/experiments", json=body, headers={**other, "Idempotency-Key": "k"})
@@ -429,7 +429,7 @@ def test_mixture_plan_is_monitored_by_the_library(client: TestClient, key):
     plan = seqtest.plan_from_dict(exp["plan"]["document"])
     history = [{"control": {"n": 1000, "successes": 100},
                 "treatment": {"n": 1000, "successes": 130}}]
-    expected = json_safe(monitor.analyze(plan, history, metric="binary",
+    expected = json_safe(seqtest.analyze(plan, history, metric="binary",
                                          allocation=1.0).to_dict())
     assert r.json()["analysis"] == expected
     assert_error(client.post("/v1/experiments", headers=key, json={

@@ -13,12 +13,12 @@ import httpx
 import pytest
 from service_helpers import REPO
 
-from service import commands
+from service import cli as commands
 
 
 def parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="seqtest")
-    commands.add_subcommands(p.add_subparsers(dest="command", required=True))
+    commands.register(p.add_subparsers(dest="command", required=True))
     return p
 
 

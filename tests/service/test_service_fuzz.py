@@ -17,10 +17,10 @@ import pytest
 from fastapi.testclient import TestClient
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from service_helpers import auth
+from service_helpers import auth, open_db
 
-from service.app import create_app
-from service.storage import Storage
+from service import usecases
+from service.api import create_app
 
 SETTINGS = settings(
     max_examples=100,
@@ -92,9 +92,9 @@ create_bodies = st.fixed_dictionaries(
 
 @pytest.fixture(scope="module")
 def world(tmp_path_factory):
-    store = Storage(f"sqlite:///{tmp_path_factory.mktemp('fuzz') / 'fuzz.db'}")
-    key = auth(store.create_key("fuzzers")[1])
-    client = TestClient(create_app(storage=store), raise_server_exceptions=False)
+    store = open_db(f"sqlite:///{tmp_path_factory.mktemp('fuzz') / 'fuzz.db'}")
+    key = auth(usecases.create_key(store, "fuzzers")[1])
+    client = TestClient(create_app(db=store), raise_server_exceptions=False)
     experiments = {}
     for kind, metric in METRICS.items():
         r = client.post("/v1/experiments", headers=key, json={

@@ -185,7 +185,7 @@ def test_concurrent_retries_with_one_key_store_one_look(server: Server, client: 
         t.join()
     assert [r.status_code for r in answers] == [201] * 6
     assert len({r.text for r in answers}) == 1  # every retry got the first answer
-    assert sum(r.headers.get("Idempotent-Replayed") == "true" for r in answers) == 5
+    assert sum(r.headers.get("Seqtest-Replayed") == "true" for r in answers) == 5
     assert client.get(f"/v1/experiments/{exp_id}", headers=h).json()["looks"] == 1
     other = client.post(f"/v1/experiments/{exp_id}/looks", json=totals(6000),
                         headers={**h, "Idempotency-Key": "nightly-2024-05-01"})

@@ -1,9 +1,7 @@
-"""The storage layer on its own, on SQLite and PostgreSQL.
+"""The database layer and the use cases' transactions, on SQLite and PostgreSQL.
 
-The look computations here are plain callables that stand in for the monitor:
-these tests are about transactions, locking, idempotency and the schema, which
-know nothing of statistics. The same properties are checked again through the
-real service and the real monitor in test_server.py.
+Transactions, locking, idempotency and the schema, called in process (no HTTP). The
+same properties are checked again through a real server in test_service_server.py.
 """
 
 from __future__ import annotations
@@ -11,57 +9,43 @@ from __future__ import annotations
 import threading
 
 import pytest
+from service_helpers import open_db
 from sqlalchemy import select, text, update
 from sqlalchemy.exc import DBAPIError
 
-from service import migrations, tables
-from service.errors import Conflict, IdempotencyConflict, NotFound
-from service.storage import (
-    Idempotency,
-    NewExperiment,
-    NewLook,
-    NewPlan,
-    Storage,
-    hash_token,
-    request_hash,
-    resolve_database_url,
+from service import usecases
+from service.db import migrations, tables
+from service.db.engine import Database, resolve_database_url
+from service.db.repository import hash_token, request_hash
+from service.errors import IdempotencyConflict, InvalidTotals, NotFound, StateConflict
+
+CREATE = usecases.CreateRequest(
+    name="checkout button", description="", metric_kind="binary", control_arm="classic",
+    treatment_arm="large", allocation=1.0, max_n=10**9, fraction_basis=None,
+    plan=usecases.PlanRequest(design_kind="group_sequential", design_inputs={"looks": 5}),
 )
 
-EXP = NewExperiment(
-    name="checkout button", description="", metric="binary",
-    control_arm="classic", treatment_arm="large", allocation=1.0,
-)
-PLAN = NewPlan(kind="group_sequential", document={"kind": "group_sequential"}, source={})
+
+def look_of(n: int, extra: int = 0) -> usecases.LookRequest:
+    """Equal arms at 10% (z = 0: continue), unless ``extra`` successes are added."""
+    return usecases.LookRequest(totals={"classic": {"n": n, "successes": n // 10},
+                                        "large": {"n": n, "successes": n // 10 + extra}})
 
 
-def _render_exp(exp, pv):
-    return {"id": exp.id, "plan_version": pv.version}
-
-
-def _render_look(exp, look):
-    return {"id": exp.id, "look": look.number, "n": look.totals["control"]["n"]}
-
-
-def _look_of(n: int, decision: str = "continue", state: str = "running"):
-    def compute(exp, plan, prior):
-        return NewLook(
-            totals={"control": {"n": n}, "treatment": {"n": n}},
-            final=False, decision=decision, state=state,
-            analysis={"decision": decision, "prior_looks": len(prior)},
-        )
-    return compute
-
-
-def _principal(storage: Storage, team: str):
-    _, token = storage.create_key(team)
-    p = storage.authenticate(token)
+def _principal(db: Database, team: str):
+    _, token = usecases.create_key(db, team)
+    p = usecases.authenticate(db, token)
     assert p is not None
     return p
 
 
-def test_schema_is_versioned_and_migration_is_repeatable(storage: Storage, database_url: str):
-    assert storage.schema_version == migrations.LATEST
-    again = Storage(database_url)  # a second start applies nothing new
+def _new(db: Database, p) -> str:
+    return usecases.create_experiment(db, p, CREATE).body["id"]
+
+
+def test_schema_is_versioned_and_migration_is_repeatable(storage: Database, database_url: str):
+    assert storage.schema_version == migrations.LATEST == 3
+    again = open_db(database_url)  # a second start applies nothing new
     try:
         assert again.schema_version == migrations.LATEST
         with again.engine.connect() as conn:
@@ -73,32 +57,34 @@ def test_schema_is_versioned_and_migration_is_repeatable(storage: Storage, datab
         again.close()
 
 
-def test_database_from_a_newer_service_is_refused(storage: Storage, database_url: str):
+def test_database_from_a_newer_service_is_refused(storage: Database, database_url: str):
     with storage.engine.begin() as conn:
         conn.execute(tables.schema_version.insert().values(
             version=migrations.LATEST + 1, description="future", applied_at="x"))
     with pytest.raises(migrations.SchemaTooNew, match="upgrade the service"):
-        Storage(database_url)
+        open_db(database_url)
 
 
-def test_keys_are_hashed_at_rest_and_revocation_is_immediate(storage: Storage):
-    record, token = storage.create_key("juniper-bakery", "pipeline")
+def test_keys_are_hashed_at_rest_and_revocation_is_immediate(storage: Database):
+    record, token = usecases.create_key(storage, "juniper-bakery", "pipeline")
     assert token.startswith("sqt_") and len(token) > 40
     with storage.engine.connect() as conn:
         stored = conn.execute(select(tables.api_keys.c.key_hash)).scalars().all()
     assert stored == [hash_token(token)] and token not in stored[0]
-    assert storage.authenticate(token).team_name == "juniper-bakery"
-    assert storage.authenticate(token + "x") is None
-    assert storage.revoke_key(record.id).revoked_at is not None
-    assert storage.authenticate(token) is None
-    assert storage.revoke_key("key_nonexistent") is None
-    assert [k.id for k in storage.list_keys("juniper-bakery")] == [record.id]
+    principal = usecases.authenticate(storage, token)
+    assert principal is not None and principal.team_name == "juniper-bakery"
+    assert usecases.authenticate(storage, token + "x") is None
+    revoked = usecases.revoke_key(storage, record.id)
+    assert revoked is not None and revoked.revoked_at is not None
+    assert usecases.authenticate(storage, token) is None
+    assert usecases.revoke_key(storage, "key_nonexistent") is None
+    assert [k.id for k in usecases.list_keys(storage, "juniper-bakery")] == [record.id]
 
 
-def test_looks_and_plan_versions_refuse_update_and_delete(storage: Storage):
+def test_looks_and_plan_versions_refuse_update_and_delete(storage: Database):
     p = _principal(storage, "t")
-    exp_id = storage.create_experiment(p, EXP, PLAN, _render_exp).body["id"]
-    storage.append_look(p, exp_id, _look_of(10), _render_look)
+    exp_id = _new(storage, p)
+    usecases.append_look(storage, p, exp_id, look_of(1000))
     for stmt in (
         update(tables.looks).values(decision="stop_efficacy"),
         tables.looks.delete(),
@@ -108,99 +94,109 @@ def test_looks_and_plan_versions_refuse_update_and_delete(storage: Storage):
         with pytest.raises(DBAPIError, match="append-only"):
             with storage.engine.begin() as conn:
                 conn.execute(stmt)
-    _, _, looks = storage.get_experiment(p.team_id, exp_id)
-    assert [lk.decision for lk in looks] == ["continue"]
+    got = usecases.read_experiment(storage, p.team_id, exp_id)
+    assert [lk["decision"] for lk in got["looks_recorded"]] == ["continue"]
 
 
-def test_team_isolation(storage: Storage):
+def test_team_isolation(storage: Database):
     a, b = _principal(storage, "team-a"), _principal(storage, "team-b")
-    exp_id = storage.create_experiment(a, EXP, PLAN, _render_exp).body["id"]
+    exp_id = _new(storage, a)
     with pytest.raises(NotFound):
-        storage.get_experiment(b.team_id, exp_id)
+        usecases.read_experiment(storage, b.team_id, exp_id)
     with pytest.raises(NotFound):
-        storage.append_look(b, exp_id, _look_of(1), _render_look)
-    assert storage.list_experiments(b.team_id) == ([], 0)
-    assert storage.list_experiments(a.team_id)[1] == 1
+        usecases.append_look(storage, b, exp_id, look_of(100))
+    assert usecases.list_experiments(storage, b.team_id, state=None, limit=50,
+                                     offset=0)["total"] == 0
+    assert usecases.list_experiments(storage, a.team_id, state=None, limit=50,
+                                     offset=0)["total"] == 1
 
 
-def test_idempotent_append_replays_and_stores_once(storage: Storage):
+def test_idempotent_append_replays_and_stores_once(storage: Database):
     p = _principal(storage, "t")
-    exp_id = storage.create_experiment(p, EXP, PLAN, _render_exp).body["id"]
-    idem = Idempotency("k-1", request_hash("POST", "/x", {"n": 10}))
-    first = storage.append_look(p, exp_id, _look_of(10), _render_look, idem)
-    again = storage.append_look(p, exp_id, _look_of(10), _render_look, idem)
+    exp_id = _new(storage, p)
+    idem = usecases.Idem("k-1", request_hash("POST", "/x", {"n": 10}))
+    first = usecases.append_look(storage, p, exp_id, look_of(1000), idem)
+    again = usecases.append_look(storage, p, exp_id, look_of(1000), idem)
     assert (first.replayed, again.replayed) == (False, True)
     assert again.body == first.body and again.status_code == 201
-    other = Idempotency("k-1", request_hash("POST", "/x", {"n": 11}))
+    other = usecases.Idem("k-1", request_hash("POST", "/x", {"n": 11}))
     with pytest.raises(IdempotencyConflict):
-        storage.append_look(p, exp_id, _look_of(11), _render_look, other)
-    exp, _, looks = storage.get_experiment(p.team_id, exp_id)
-    assert exp.look_count == 1 and len(looks) == 1
+        usecases.append_look(storage, p, exp_id, look_of(1100), other)
+    assert usecases.read_experiment(storage, p.team_id, exp_id)["look_count"] == 1
 
 
-def test_failed_write_stores_nothing_and_frees_the_key(storage: Storage):
+def test_failed_write_stores_nothing_and_frees_the_key(storage: Database):
     p = _principal(storage, "t")
-    exp_id = storage.create_experiment(p, EXP, PLAN, _render_exp).body["id"]
-    idem = Idempotency("k-2", request_hash("POST", "/x", {}))
-
-    def refuse(exp, plan, prior):
-        raise Conflict("refused on purpose")
-
-    with pytest.raises(Conflict):
-        storage.append_look(p, exp_id, refuse, _render_look, idem)
-    assert storage.get_experiment(p.team_id, exp_id)[0].look_count == 0
-    assert storage.append_look(p, exp_id, _look_of(5), _render_look, idem).body["look"] == 1
+    exp_id = _new(storage, p)
+    idem = usecases.Idem("k-2", request_hash("POST", "/x", {}))
+    bad = usecases.LookRequest(totals={"classic": {"n": 10, "successes": 11},
+                                       "large": {"n": 10, "successes": 1}})
+    with pytest.raises(InvalidTotals):
+        usecases.append_look(storage, p, exp_id, bad, idem)
+    assert usecases.read_experiment(storage, p.team_id, exp_id)["look_count"] == 0
+    assert usecases.append_look(storage, p, exp_id, look_of(500), idem).body["look"] == 1
 
 
-def test_stopped_experiment_takes_no_more_looks(storage: Storage):
+def test_stopped_experiment_takes_no_more_looks(storage: Database):
+    # 10% vs 30% at a fifth of max_n: z far beyond any boundary (fact of the trade)
     p = _principal(storage, "t")
-    exp_id = storage.create_experiment(p, EXP, PLAN, _render_exp).body["id"]
-    storage.append_look(p, exp_id, _look_of(10, "stop_efficacy", "stopped"), _render_look)
-    with pytest.raises(Conflict, match="accepts no further looks"):
-        storage.append_look(p, exp_id, _look_of(20), _render_look)
+    exp_id = _new(storage, p)
+    stop = usecases.append_look(storage, p, exp_id, look_of(10**8, extra=2 * 10**7))
+    assert stop.body["state"] == "stopped"
+    with pytest.raises(StateConflict, match="create a new experiment"):
+        usecases.append_look(storage, p, exp_id, look_of(2 * 10**8))
 
 
-def test_concurrent_appends_are_serialised(storage: Storage):
-    """16 threads x 5 looks on one experiment: numbers 1..80, each seen once,
-    and every computation saw exactly the looks committed before it."""
+def test_concurrent_appends_are_serialised(storage: Database):
+    """16 threads x 5 looks on one experiment: numbers 1..80, each seen once, and every
+    analysis covered exactly the looks committed before it (its stored row's fraction
+    is that of its own totals)."""
     p = _principal(storage, "t")
-    exp_id = storage.create_experiment(p, EXP, PLAN, _render_exp).body["id"]
+    exp_id = _new(storage, p)
     answers: list[dict] = []
     errors: list[BaseException] = []
     lock = threading.Lock()
+    counter = iter(range(1000, 10**7, 1000))
 
-    def worker(w: int) -> None:
-        try:
-            for i in range(5):
-                s = storage.append_look(p, exp_id, _look_of(100 * w + i), _render_look)
-                with lock:
-                    answers.append(s.body)
-        except BaseException as exc:  # noqa: BLE001 - surfaced below
-            errors.append(exc)
+    def worker() -> None:
+        done = 0
+        while done < 5:
+            with lock:
+                n = next(counter)
+            try:
+                a = usecases.append_look(storage, p, exp_id, look_of(n))
+            except InvalidTotals:  # lost a race: our totals are below a stored look
+                continue
+            except BaseException as exc:  # noqa: BLE001 - surfaced below
+                errors.append(exc)
+                return
+            done += 1
+            with lock:
+                answers.append(a.body)
 
-    threads = [threading.Thread(target=worker, args=(w,)) for w in range(16)]
+    threads = [threading.Thread(target=worker) for _ in range(16)]
     for t in threads:
         t.start()
     for t in threads:
         t.join()
     assert not errors
     assert sorted(a["look"] for a in answers) == list(range(1, 81))
-    _, _, looks = storage.get_experiment(p.team_id, exp_id)
-    assert [lk.number for lk in looks] == list(range(1, 81))
-    # each computation saw the looks before it, no more and no fewer
-    assert [lk.analysis["prior_looks"] for lk in looks] == list(range(80))
+    got = usecases.read_experiment(storage, p.team_id, exp_id, looks_limit=1000)
+    assert [lk["look"] for lk in got["looks_recorded"]] == list(range(1, 81))
+    for a in answers:
+        assert len(a["analysis"]["looks"]) == a["look"]
 
 
-def test_concurrent_same_key_stores_once(storage: Storage):
+def test_concurrent_same_key_stores_once(storage: Database):
     p = _principal(storage, "t")
-    exp_id = storage.create_experiment(p, EXP, PLAN, _render_exp).body["id"]
-    idem = Idempotency("same", request_hash("POST", "/x", {"n": 1}))
+    exp_id = _new(storage, p)
+    idem = usecases.Idem("same", request_hash("POST", "/x", {"n": 1}))
     results = []
     barrier = threading.Barrier(8)
 
     def worker() -> None:
         barrier.wait()
-        results.append(storage.append_look(p, exp_id, _look_of(1), _render_look, idem))
+        results.append(usecases.append_look(storage, p, exp_id, look_of(1000), idem))
 
     threads = [threading.Thread(target=worker) for _ in range(8)]
     for t in threads:
@@ -210,11 +206,12 @@ def test_concurrent_same_key_stores_once(storage: Storage):
     assert len(results) == 8
     assert sum(not r.replayed for r in results) == 1
     assert {r.body["look"] for r in results} == {1}
-    assert storage.get_experiment(p.team_id, exp_id)[0].look_count == 1
+    assert len({str(r.body) for r in results}) == 1
+    assert usecases.read_experiment(storage, p.team_id, exp_id)["look_count"] == 1
 
 
 def test_sqlite_runs_in_wal_mode(sqlite_url: str):
-    s = Storage(sqlite_url)
+    s = open_db(sqlite_url)
     try:
         with s.engine.connect() as conn:
             assert conn.execute(text("PRAGMA journal_mode")).scalar() == "wal"
@@ -259,7 +256,7 @@ def test_default_database_url_comes_from_env(monkeypatch, tmp_path):
 @pytest.mark.parametrize("setting", ["FULL", "NORMAL"])
 def test_sqlite_synchronous_setting(monkeypatch, sqlite_url: str, setting: str):
     monkeypatch.setenv("SEQTEST_SQLITE_SYNCHRONOUS", setting.lower())
-    s = Storage(sqlite_url)
+    s = open_db(sqlite_url)
     try:
         with s.engine.connect() as conn:
             # PRAGMA synchronous reads 2 for FULL, 1 for NORMAL (SQLite docs, from memory)
@@ -269,4 +266,4 @@ def test_sqlite_synchronous_setting(monkeypatch, sqlite_url: str, setting: str):
         s.close()
     monkeypatch.setenv("SEQTEST_SQLITE_SYNCHRONOUS", "OFF")
     with pytest.raises(ValueError, match="SEQTEST_SQLITE_SYNCHRONOUS"):
-        Storage(sqlite_url)
+        open_db(sqlite_url)

@@ -1,10 +1,16 @@
-"""Table definitions (SQLAlchemy Core), the same on SQLite and PostgreSQL.
+"""Table definitions (SQLAlchemy Core) at the latest schema version, the same on
+SQLite and PostgreSQL. :mod:`service.db.migrations` builds them step by step.
 
-JSON documents (plans, totals, analyses, stored responses) are kept as text
-written by :func:`service.storage.dump_json`, so both databases store exactly
-the same bytes and a replayed answer is byte-for-byte the first one.
-Timestamps are ISO 8601 text in UTC (``2024-05-01T12:00:00.000000Z``), which
+JSON documents (plans, totals, results, stored responses) are kept as text written
+by :func:`service.db.repository.dump_json`, so both databases store exactly the same
+bytes. Timestamps are ISO 8601 text in UTC (``2024-05-01T12:00:00.000000Z``), which
 sorts in time order on both databases.
+
+Looks (schema version 3 on): ``result`` holds the look's own row of the analysis
+and ``analysis`` the look-level summary (decision, direction, final inference,
+projection, warnings, ...), each stored once. Looks recorded under schema version
+2 have ``result`` NULL and the full analysis of every look up to theirs in
+``analysis``; they are read as they are (looks are append-only).
 """
 
 from __future__ import annotations
@@ -58,12 +64,12 @@ experiments = Table(
     Column("team_id", String(40), ForeignKey("teams.id"), nullable=False),
     Column("name", String(200), nullable=False),
     Column("description", Text, nullable=False),
-    Column("metric", String(20), nullable=False),
+    Column("metric", String(20), nullable=False),  # the metric kind
     Column("control_arm", String(64), nullable=False),
     Column("treatment_arm", String(64), nullable=False),
     Column("allocation", Float, nullable=False),
     Column("max_n", Float, nullable=True),
-    Column("fraction", String(20), nullable=True),
+    Column("fraction", String(20), nullable=True),  # the fraction basis
     Column("plan_version", Integer, nullable=False),
     Column("look_count", Integer, nullable=False),
     Column("state", String(20), nullable=False),
@@ -87,6 +93,8 @@ plan_versions = Table(
     Column("after_look", Integer, nullable=False),
     Column("recorded_at", String(32), nullable=False),
     Column("recorded_by", String(40), nullable=False),
+    # v3: the boundary table, computed once when the version is recorded
+    Column("boundaries", Text, nullable=True),
 )
 
 looks = Table(
@@ -98,9 +106,13 @@ looks = Table(
     Column("totals", Text, nullable=False),
     Column("final", Boolean, nullable=False),
     Column("decision", String(40), nullable=False),
+    # v3 on: the look-level summary; v2 rows: the full analysis
     Column("analysis", Text, nullable=False),
     Column("recorded_at", String(32), nullable=False),
     Column("recorded_by", String(40), nullable=False),
+    # v3: this look's own row of the analysis, and the state it left the experiment in
+    Column("result", Text, nullable=True),
+    Column("state", String(20), nullable=True),
 )
 
 idempotency_keys = Table(
@@ -112,14 +124,14 @@ idempotency_keys = Table(
     Column("status_code", Integer, nullable=False),
     Column("response", Text, nullable=False),
     Column("created_at", String(32), nullable=False),
+    # v3: a look's answer is rebuilt from the stored look instead of kept twice
+    Column("experiment_id", String(40), nullable=True),
+    Column("look_number", Integer, nullable=True),
 )
+Index("idempotency_keys_created", idempotency_keys.c.created_at)
 
-VERSION_1_TABLES = [
-    schema_version,
-    teams,
-    api_keys,
-    experiments,
-    plan_versions,
-    looks,
-    idempotency_keys,
-]
+health_checks = Table(
+    "health_checks",
+    metadata,
+    Column("checked_at", String(40), nullable=False),
+)

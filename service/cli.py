@@ -1,32 +1,22 @@
 """Command-line entry points of the service: ``serve`` and ``keys``.
 
-``add_subcommands(subparsers)`` registers them on an argparse subparsers
-object (the ``seqtest`` command calls it); each sets ``func`` to a handler
-taking the parsed arguments and returning an exit code.
+``register_serve(subparsers)`` and ``register_keys(subparsers)`` add them to an
+argparse subparsers object (the ``seqtest`` command finds them through the entry-point
+group ``seqtest.commands``); each sets ``func`` to a handler
+taking the parsed arguments and returning an exit code. ``python -m service`` runs
+the same subcommands alone.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
-import os
 import sys
 from typing import Any
 
-ENV_HOST = "SEQTEST_HOST"
-ENV_PORT = "SEQTEST_PORT"
-ENV_WORKERS = "SEQTEST_WORKERS"
-ENV_DATABASE_URL = "SEQTEST_DATABASE_URL"
+from service.config import LOG_LEVELS, SETTINGS, Settings
 
-
-def _env_int(name: str, default: int) -> int:
-    raw = os.environ.get(name)
-    if raw is None or raw == "":
-        return default
-    try:
-        return int(raw)
-    except ValueError:
-        raise SystemExit(f"{name}={raw!r}: give a whole number") from None
+_ENV = {s.name: s.env for s in SETTINGS}
 
 
 def _database_option(p: argparse.ArgumentParser) -> None:
@@ -34,31 +24,50 @@ def _database_option(p: argparse.ArgumentParser) -> None:
         "--database-url",
         default=None,
         help=f"sqlite:///file.db, a file path, or postgresql://user@host/db "
-        f"(env {ENV_DATABASE_URL}; default ./seqtest.db)",
+        f"(env {_ENV['database_url']}; default ./seqtest.db)",
     )
 
 
-def add_subcommands(subparsers: Any) -> None:
+def register(subparsers: Any) -> None:
     """Register ``serve`` and ``keys`` on ``subparsers``."""
+    register_serve(subparsers)
+    register_keys(subparsers)
+
+
+def register_serve(subparsers: Any) -> None:
+    """Register ``serve`` (the ``seqtest`` command's entry point of that name)."""
     serve = subparsers.add_parser(
         "serve",
         help="run the HTTP service",
-        description="Run the HTTP service with uvicorn. Options fall back to the "
-        f"environment: {ENV_HOST}, {ENV_PORT}, {ENV_WORKERS}, {ENV_DATABASE_URL}.",
+        description="Run the HTTP service with uvicorn. Every option falls back to its "
+        "environment variable, then to its default: "
+        + "; ".join(f"{s.env} ({s.help}, default {s.default})" for s in SETTINGS),
     )
-    serve.add_argument("--host", default=None, help=f"address to bind (env {ENV_HOST}; "
+    serve.add_argument("--host", default=None, help=f"address to bind (env {_ENV['host']}; "
                        "default 127.0.0.1)")
     serve.add_argument("--port", type=int, default=None,
-                       help=f"port (env {ENV_PORT}; default 8000)")
+                       help=f"port (env {_ENV['port']}; default 8000; 0: any free port)")
     serve.add_argument("--workers", type=int, default=None,
-                       help=f"worker processes (env {ENV_WORKERS}; default 1)")
+                       help=f"worker processes (env {_ENV['workers']}; default 1)")
     _database_option(serve)
-    serve.add_argument("--log-level", default="info",
-                       choices=["critical", "error", "warning", "info", "debug"])
+    serve.add_argument("--log-level", default=None, choices=LOG_LEVELS,
+                       help=f"env {_ENV['log_level']}; default info")
     serve.add_argument("--no-access-log", action="store_true",
                        help="do not log one line per request")
+    serve.add_argument("--header-timeout", default=None, dest="header_timeout_s",
+                       help=f"seconds for a request's headers (env {_ENV['header_timeout_s']};"
+                       " default 10)")
+    serve.add_argument("--body-timeout", default=None, dest="body_timeout_s",
+                       help=f"seconds for a request's body (env {_ENV['body_timeout_s']}; "
+                       "default 30)")
+    serve.add_argument("--statement-timeout", default=None, dest="statement_timeout_s",
+                       help=f"seconds a database transaction may take (env "
+                       f"{_ENV['statement_timeout_s']}; default 30)")
     serve.set_defaults(func=run_serve)
 
+
+def register_keys(subparsers: Any) -> None:
+    """Register ``keys`` (the ``seqtest`` command's entry point of that name)."""
     keys = subparsers.add_parser(
         "keys", help="create, revoke and list API keys", description="Manage team API keys."
     )
@@ -87,72 +96,60 @@ def add_subcommands(subparsers: Any) -> None:
 
 
 def run_serve(args: argparse.Namespace) -> int:
-    import uvicorn
+    from sqlalchemy.exc import SQLAlchemyError
 
-    from service.storage import resolve_database_url
+    from service import server
+    from service.db.engine import resolve_database_url
 
-    host = args.host or os.environ.get(ENV_HOST) or "127.0.0.1"
-    port = args.port if args.port is not None else _env_int(ENV_PORT, 8000)
-    workers = args.workers if args.workers is not None else _env_int(ENV_WORKERS, 1)
-    if not 0 <= port <= 65535:
-        print(f"port: got {port}; allowed is 0 to 65535", file=sys.stderr)
-        return 2
-    if workers < 1:
-        print(f"workers: got {workers}; allowed is 1 or more", file=sys.stderr)
-        return 2
     try:
-        url = resolve_database_url(args.database_url)
+        settings = Settings.from_env({
+            "host": args.host, "port": args.port, "workers": args.workers,
+            "database_url": args.database_url, "log_level": args.log_level,
+            "access_log": False if args.no_access_log else None,
+            "header_timeout_s": args.header_timeout_s, "body_timeout_s": args.body_timeout_s,
+            "statement_timeout_s": args.statement_timeout_s,
+        })
+        settings = settings.with_(database_url=resolve_database_url(settings.database_url))
     except ValueError as exc:
         print(str(exc), file=sys.stderr)
         return 2
-    # The workers build the app from the environment (uvicorn's factory mode).
-    os.environ[ENV_DATABASE_URL] = url
-    if workers == 1:
-        from sqlalchemy.exc import SQLAlchemyError
-
-        from service.app import create_app
+    if settings.workers == 1:
+        # open (and migrate) the database once here, to fail early with a message
+        from service.db.engine import Database
 
         try:
-            app = create_app(url)
+            Database(settings).close()
         except (SQLAlchemyError, ValueError, RuntimeError) as exc:
-            print(f"cannot start: {str(exc).splitlines()[0]}", file=sys.stderr)
+            print(f"cannot start: {type(exc).__name__}: {str(exc).splitlines()[0]}",
+                  file=sys.stderr)
             return 1
-        uvicorn.run(app, host=host, port=port, log_level=args.log_level,
-                    access_log=not args.no_access_log)
-    else:
-        uvicorn.run(
-            "service.app:create_app",
-            factory=True,
-            host=host,
-            port=port,
-            workers=workers,
-            log_level=args.log_level,
-            access_log=not args.no_access_log,
-        )
+    server.run(settings)
     return 0
 
 
-def _storage(args: argparse.Namespace) -> Any:
-    """Open the storage; ValueError with a readable message when that fails."""
+def _database(args: argparse.Namespace) -> Any:
+    """Open the database; ValueError with a readable message when that fails."""
     from sqlalchemy.exc import SQLAlchemyError
 
-    from service.storage import Storage
+    from service.db.engine import Database
 
     try:
-        return Storage(args.database_url)
+        return Database(Settings.from_env({"database_url": args.database_url}))
     except SQLAlchemyError as exc:
         raise ValueError(f"cannot open the database: {exc.__class__.__name__}: "
                          f"{str(exc).splitlines()[0]}") from None
 
 
 def run_keys_create(args: argparse.Namespace) -> int:
+    from service import usecases
+
     try:
-        storage = _storage(args)
-        record, token = storage.create_key(args.team, args.label)
+        db = _database(args)
+        record, token = usecases.create_key(db, args.team, args.label)
     except ValueError as exc:
         print(str(exc), file=sys.stderr)
         return 2
-    storage.close()
+    db.close()
     if args.json:
         print(json.dumps({"id": record.id, "team": record.team_name, "label": record.label,
                           "created_at": record.created_at, "key": token}))
@@ -165,13 +162,15 @@ def run_keys_create(args: argparse.Namespace) -> int:
 
 
 def run_keys_revoke(args: argparse.Namespace) -> int:
+    from service import usecases
+
     try:
-        storage = _storage(args)
+        db = _database(args)
     except ValueError as exc:
         print(str(exc), file=sys.stderr)
         return 2
-    record = storage.revoke_key(args.key_id)
-    storage.close()
+    record = usecases.revoke_key(db, args.key_id)
+    db.close()
     if record is None:
         print(f"no key with id {args.key_id!r}; see 'keys list'", file=sys.stderr)
         return 1
@@ -180,13 +179,15 @@ def run_keys_revoke(args: argparse.Namespace) -> int:
 
 
 def run_keys_list(args: argparse.Namespace) -> int:
+    from service import usecases
+
     try:
-        storage = _storage(args)
+        db = _database(args)
     except ValueError as exc:
         print(str(exc), file=sys.stderr)
         return 2
-    records = storage.list_keys(args.team)
-    storage.close()
+    records = usecases.list_keys(db, args.team)
+    db.close()
     if args.json:
         print(json.dumps([
             {"id": r.id, "team": r.team_name, "label": r.label, "created_at": r.created_at,
@@ -207,6 +208,6 @@ def main(argv: list[str] | None = None) -> int:
     """``python -m service``: the same subcommands without the rest of the CLI."""
     parser = argparse.ArgumentParser(prog="python -m service", description="seqtest service")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    add_subcommands(sub)
+    register(sub)
     args = parser.parse_args(argv)
     return int(args.func(args))

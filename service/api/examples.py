@@ -12,7 +12,7 @@ CREATE_WITH_DESIGN = {
     "value": {
         "name": "Checkout: larger 'Place order' button",
         "description": "Juniper Street Bakery web shop; visitors who reach checkout.",
-        "metric": "binary",
+        "metric_kind": "binary",
         "arms": {"control": "classic-button", "treatment": "large-button"},
         "allocation": 1.0,
         "design": {
@@ -31,7 +31,7 @@ CREATE_WITH_PLAN = {
     "summary": "Use a plan document written by `seqtest plan --json`",
     "value": {
         "name": "Checkout: larger 'Place order' button",
-        "metric": "binary",
+        "metric_kind": "binary",
         "arms": {"control": "classic-button", "treatment": "large-button"},
         "plan": {"kind": "group_sequential", "...": "the document as written by seqtest"},
     },
@@ -59,10 +59,10 @@ LOOK_CONTINUOUS = {
 }
 
 AMENDMENT = {
-    "summary": "Add a fifth look after a holiday week slowed traffic",
+    "summary": "Add a fifth look after a holiday week slowed traffic (other inputs kept)",
     "value": {
         "reason": "Holiday closure halved traffic; one more look planned, agreed by the "
         "shop's analytics lead on the weekly call.",
-        "design": {"alpha": 0.05, "sides": 2, "power": 0.9, "looks": 5},
+        "design": {"looks": 5},
     },
 }

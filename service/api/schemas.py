@@ -23,9 +23,17 @@ from pydantic import (
     model_validator,
 )
 
-from seqtest.core.vocabulary import METRIC_KINDS
+from service.library import (
+    DESIGN_INPUTS,
+    FRACTION_BASES,
+    MAX_LOOKS,
+    METRIC_KINDS,
+    PLAN_KINDS,
+)
 
 MetricKind = Literal[METRIC_KINDS]  # type: ignore[valid-type]
+FractionBasis = Literal[FRACTION_BASES]  # type: ignore[valid-type]
+PlanKind = Literal[PLAN_KINDS]  # type: ignore[valid-type]
 
 ArmName = Annotated[
     str,
@@ -85,13 +93,8 @@ class Arms(_Strict):
         return self
 
 
-_GROUP_SEQUENTIAL_FIELDS = (
-    "alpha", "sides", "power", "looks", "info_fractions", "efficacy", "futility", "binding",
-    "metric",
-)
-_MIXTURE_FIELDS = (
-    "alpha", "sides", "mde", "max_n_per_arm", "unit_variance", "tau2", "scale", "metric",
-)
+_GROUP_SEQUENTIAL_FIELDS = DESIGN_INPUTS["group_sequential"]
+_MIXTURE_FIELDS = DESIGN_INPUTS["mixture"]
 
 
 class DesignInputs(_Strict):
@@ -101,12 +104,19 @@ class DesignInputs(_Strict):
     ``seqtest.mixture.mixture_plan`` (continuous monitoring by the mixture SPRT).
     """
 
-    kind: Literal["group_sequential", "mixture"] = "group_sequential"
+    kind: PlanKind | None = Field(
+        default=None, description="group_sequential (default; for an amendment: the "
+        "current version's kind) or mixture")
     alpha: Number | None = None
     sides: Annotated[int, Strict()] | None = None
     power: Number | None = None
-    looks: Annotated[int, Strict()] | None = None
-    info_fractions: Annotated[list[Number], Field(max_length=50)] | None = None
+    looks: Annotated[int, Strict(), Field(ge=1, le=MAX_LOOKS)] | None = Field(
+        default=None, description=f"number of equally spaced looks, 1 to {MAX_LOOKS}")
+    information_fractions: Annotated[list[Number], Field(min_length=1,
+                                                         max_length=MAX_LOOKS)] | None = None
+    info_fractions: Annotated[list[Number], Field(min_length=1, max_length=MAX_LOOKS)] | None = \
+        Field(default=None, deprecated=True,
+              description="deprecated name of information_fractions (one release)")
     efficacy: Annotated[str, StringConstraints(max_length=100)] | dict[str, Any] | None = Field(
         default=None,
         description="spending function or boundary name, e.g. 'obrien-fleming-type', "
@@ -134,8 +144,16 @@ class DesignInputs(_Strict):
 
     @model_validator(mode="after")
     def _fields_of_kind(self) -> DesignInputs:
+        if "info_fractions" in self.model_fields_set:
+            if "information_fractions" in self.model_fields_set:
+                raise ValueError("design: give information_fractions only (info_fractions "
+                                 "is its deprecated name)")
+        if self.kind is None:
+            return self  # checked against the kind it ends up with, by the library
         allowed = _MIXTURE_FIELDS if self.kind == "mixture" else _GROUP_SEQUENTIAL_FIELDS
-        wrong = [f for f in self.model_fields_set if f != "kind" and f not in allowed]
+        given = {"information_fractions" if f == "info_fractions" else f
+                 for f in self.model_fields_set}
+        wrong = [f for f in given if f != "kind" and f not in allowed]
         if wrong:
             raise ValueError(
                 f"design: {', '.join(sorted(wrong))} does not apply to a {self.kind} plan; "
@@ -144,8 +162,18 @@ class DesignInputs(_Strict):
         return self
 
     def arguments(self) -> dict[str, Any]:
-        """Keyword arguments for the design function (only the fields given)."""
-        return self.model_dump(exclude_unset=True, exclude={"kind"})
+        """Keyword arguments for the library's design function (only the fields given;
+        the deprecated ``info_fractions`` under its new name)."""
+        args = self.model_dump(exclude_unset=True, exclude={"kind"})
+        if "info_fractions" in args:
+            args["information_fractions"] = args.pop("info_fractions")
+        return args
+
+    def deprecations(self) -> list[str]:
+        if "info_fractions" in self.model_fields_set:
+            return ["design.info_fractions: deprecated name; use design.information_fractions "
+                    "(the old name is accepted for one release)"]
+        return []
 
 
 class _PlanChoice(_Strict):
@@ -168,9 +196,15 @@ class _PlanChoice(_Strict):
 class ExperimentCreate(_PlanChoice):
     name: Annotated[str, StringConstraints(min_length=1, max_length=200, strip_whitespace=True)]
     description: Annotated[str, StringConstraints(max_length=2000)] = ""
-    metric: MetricKind | None = Field(
+    metric_kind: MetricKind | None = Field(
         default=None,
-        description="kind of metric the totals describe (default: the plan's metric kind)",
+        description="kind of metric the totals describe: binary, continuous or rate "
+        "(default: the plan's metric kind)",
+    )
+    metric: MetricKind | None = Field(
+        default=None, deprecated=True,
+        description="deprecated name of metric_kind (accepted for one release; the answer "
+        "then carries a Deprecation header and a note in 'deprecations')",
     )
     arms: Arms = Field(default_factory=Arms)
     allocation: Number = Field(
@@ -185,15 +219,44 @@ class ExperimentCreate(_PlanChoice):
         description="maximum total sample over both arms (exposure for rates); needed "
         "when the plan has no metric to size it",
     )
-    fraction: Literal["sample", "information"] | None = Field(
+    fraction_basis: FractionBasis | None = Field(
         default=None,
         description="how information fractions are measured: by sample (default) or by "
         "statistical information",
     )
+    fraction: FractionBasis | None = Field(
+        default=None, deprecated=True,
+        description="deprecated name of fraction_basis (accepted for one release)")
+
+    @model_validator(mode="after")
+    def _old_names(self) -> ExperimentCreate:
+        for old, new in (("metric", "metric_kind"), ("fraction", "fraction_basis")):
+            if old in self.model_fields_set and new in self.model_fields_set:
+                raise ValueError(f"give {new} only ({old} is its deprecated name)")
+        return self
+
+    def deprecations(self) -> list[str]:
+        notes = []
+        for old, new in (("metric", "metric_kind"), ("fraction", "fraction_basis")):
+            if old in self.model_fields_set:
+                notes.append(f"{old}: deprecated name; use {new} (the old name is accepted "
+                             "for one release)")
+        if self.design is not None:
+            notes += self.design.deprecations()
+        return notes
 
 
 class AmendmentCreate(_PlanChoice):
     reason: Annotated[str, StringConstraints(min_length=1, max_length=2000, strip_whitespace=True)]
+    max_n: Number | None = Field(
+        default=None,
+        gt=0,
+        description="a new maximum total sample over both arms (exposure for rates), for "
+        "plans without a metric to size them; default: the experiment's",
+    )
+
+    def deprecations(self) -> list[str]:
+        return self.design.deprecations() if self.design is not None else []
 
 
 class LookCreate(_Strict):
@@ -227,8 +290,15 @@ class BoundaryRow(BaseModel):
     information_fraction: float | None = None
     efficacy_z: float | None = None
     futility_z: float | None = None
-    nominal_p: float | None = None
+    p_threshold: float | None = Field(
+        default=None, description="the p-value a look must reach to stop for efficacy "
+        "(the efficacy boundary on the p scale)")
+    nominal_p: float | None = Field(default=None, deprecated=True,
+                                    description="deprecated name of p_threshold")
     cumulative_alpha: float | None = None
+    n_control: int | None = Field(default=None, description="users (exposure for rates) "
+                                  "in the control arm the plan expects by this look")
+    n_treatment: int | None = Field(default=None, description="the same for the treatment")
 
 
 class PlanOut(BaseModel):
@@ -247,14 +317,18 @@ class ExperimentSummary(BaseModel):
     id: str
     name: str
     description: str
-    metric: str
+    metric_kind: str
+    metric: str = Field(deprecated=True, description="deprecated name of metric_kind")
     arms: Arms
     allocation: float
     max_n: float | None
-    fraction: str | None
+    fraction_basis: str | None
+    fraction: str | None = Field(deprecated=True,
+                                 description="deprecated name of fraction_basis")
     state: State
     decision: str | None
-    looks: int
+    look_count: int = Field(description="number of looks recorded")
+    looks: int = Field(deprecated=True, description="deprecated name of look_count")
     plan_version: int
     created_at: str
     created_by: str
@@ -286,20 +360,34 @@ class LookSummary(BaseModel):
     result: dict[str, Any] | None
 
 
+class Page(BaseModel):
+    offset: int
+    limit: int
+    total: int
+
+
 class ExperimentOut(ExperimentSummary):
-    plan: PlanOut
+    plan: PlanOut = Field(description="the plan version in force")
     plan_versions: list[PlanOut] = Field(
-        description="every version of the plan, oldest first; versions after the first are "
-        "amendments, each with its reason, who recorded it and when"
+        description="the versions of the plan on this page (versions_offset, versions_limit), "
+        "oldest first; versions after the first are amendments, each with its reason, who "
+        "recorded it and when"
     )
-    looks_recorded: list[LookSummary]
+    plan_versions_page: Page
+    looks_recorded: list[LookSummary] = Field(
+        description="the looks on this page (looks_offset, looks_limit), in order")
+    looks_page: Page
+    analysis: dict[str, Any] | None = Field(
+        description="the analysis at the latest look (null before the first): the library's "
+        "fields as they are, its 'looks' holding the stored rows of the looks on this page"
+    )
     current: dict[str, Any] | None = Field(
-        description="the monitor's full analysis at the latest look (null before the first)"
-    )
+        deprecated=True, description="deprecated name of analysis (kept one release)")
 
 
 class ExperimentCreated(ExperimentSummary):
     plan: PlanOut
+    deprecations: list[str] | None = None
 
 
 class ExperimentList(BaseModel):
@@ -311,12 +399,16 @@ class ExperimentList(BaseModel):
 
 class AmendmentOut(BaseModel):
     experiment_id: str
+    state: State
+    max_n: float | None
     plan: PlanOut
+    deprecations: list[str] | None = None
 
 
 class Health(BaseModel):
     status: Literal["ok"]
     database: str
+    writable: bool
     schema_version: int
     version: str
 

@@ -1,0 +1,121 @@
+"""Dependencies of the routes: the database, the caller's team, the idempotency key,
+and how a write's answer becomes a response."""
+
+from __future__ import annotations
+
+import re
+from typing import Annotated, Any
+
+from fastapi import Depends, Header, Path, Request
+from fastapi.responses import JSONResponse
+from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
+from pydantic import BaseModel
+
+from service import usecases
+from service.db.engine import Database
+from service.db.records import Principal
+from service.db.repository import request_hash
+from service.errors import Unauthorized, Unprocessable
+
+REPLAYED_HEADER = "Seqtest-Replayed"
+
+bearer = HTTPBearer(
+    auto_error=False,
+    scheme_name="api_key",
+    description="A team's API key, made with `seqtest keys create --team NAME`.",
+)
+_CHALLENGE = {"WWW-Authenticate": 'Bearer realm="seqtest"'}
+_KEY = re.compile(r"^[\x21-\x7e]{1,200}$")
+_ID = re.compile(r"^[\x21-\x7e]{1,200}$")
+
+
+def get_db(request: Request) -> Database:
+    """The app's database (dependency)."""
+    db: Database = request.app.state.db
+    return db
+
+
+DatabaseDep = Annotated[Database, Depends(get_db)]
+
+
+def get_principal(
+    request: Request,
+    credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(bearer)],
+    db: DatabaseDep,
+) -> Principal:
+    """The team calling, from its API key (dependency); 401 when missing or wrong."""
+    if credentials is None:
+        raise Unauthorized(
+            "An API key is required: send the header 'Authorization: Bearer <key>'. "
+            "An administrator makes keys with `seqtest keys create --team NAME`.",
+            headers=_CHALLENGE,
+        )
+    token = credentials.credentials.strip()
+    principal = usecases.authenticate(db, token) if 0 < len(token) <= 200 else None
+    if principal is None:
+        raise Unauthorized(
+            "The API key is not valid (unknown or revoked). Check it, or ask an "
+            "administrator for a new one.",
+            headers=_CHALLENGE,
+        )
+    request.state.team = principal.team_name  # for the access log
+    return principal
+
+
+PrincipalDep = Annotated[Principal, Depends(get_principal)]
+
+
+def experiment_id(
+    experiment_id: Annotated[str, Path(description="the experiment's id (exp_...)")],
+) -> str:
+    """The path's experiment id (dependency): printable ASCII, else 422."""
+    if not _ID.match(experiment_id):
+        raise Unprocessable(
+            "experiment_id: got an id with spaces, control or non-ASCII characters; ids look "
+            "like 'exp_' followed by 24 hexadecimal digits",
+            details=[{"location": ["path", "experiment_id"], "message": "invalid id"}],
+        )
+    return experiment_id
+
+
+ExperimentIdDep = Annotated[str, Depends(experiment_id)]
+
+
+def idempotency_key(
+    idempotency_key: Annotated[
+        str | None,
+        Header(
+            description="unique key for this request (1 to 200 visible ASCII characters); a "
+            "retry with the same key returns the first answer and stores nothing"
+        ),
+    ] = None,
+) -> str | None:
+    """The header's value (dependency), checked."""
+    if idempotency_key is None:
+        return None
+    if not _KEY.match(idempotency_key):
+        raise Unprocessable(
+            "The Idempotency-Key header must be 1 to 200 visible ASCII characters "
+            "(no spaces), for example a UUID.",
+            details=[{"location": ["header", "Idempotency-Key"], "message": "invalid key"}],
+        )
+    return idempotency_key
+
+
+IdempotencyKeyDep = Annotated[str | None, Depends(idempotency_key)]
+
+
+def idem_for(key: str | None, request: Request, body: BaseModel) -> usecases.Idem | None:
+    if key is None:
+        return None
+    return usecases.Idem(key, request_hash("POST", request.url.path,
+                                           body.model_dump(mode="json", exclude_unset=True)))
+
+
+def respond(answer: usecases.Answer, headers: dict[str, str] | None = None) -> JSONResponse:
+    h: dict[str, Any] = dict(headers or {})
+    if answer.replayed:
+        h[REPLAYED_HEADER] = "true"
+    if answer.body.get("deprecations"):
+        h["Deprecation"] = "true"
+    return JSONResponse(answer.body, status_code=answer.status_code, headers=h)

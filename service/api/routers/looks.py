@@ -1,0 +1,70 @@
+"""Looks: post cumulative per-arm totals, get the monitor's answer (stored once)."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Body, Path, Request
+from fastapi.responses import JSONResponse
+
+from service import usecases
+from service.api import examples
+from service.api.deps import (
+    DatabaseDep,
+    ExperimentIdDep,
+    IdempotencyKeyDep,
+    PrincipalDep,
+    idem_for,
+    respond,
+)
+from service.api.routers.experiments import ERRORS
+from service.api.schemas import LookCreate, LookOut
+
+router = APIRouter(prefix="/v1/experiments/{experiment_id}/looks", tags=["looks"])
+
+
+@router.post(
+    "",
+    status_code=201,
+    response_model=LookOut,
+    responses=ERRORS,
+    summary="Record a look: cumulative totals per arm",
+)
+def post_look(
+    principal: PrincipalDep,
+    db: DatabaseDep,
+    key: IdempotencyKeyDep,
+    request: Request,
+    experiment_id: ExperimentIdDep,
+    body: Annotated[
+        LookCreate,
+        Body(openapi_examples={"binary": examples.LOOK_BINARY,
+                               "continuous": examples.LOOK_CONTINUOUS}),
+    ],
+) -> JSONResponse:
+    """Totals are cumulative since the start and keyed by the experiment's arm names.
+    The look is numbered (1, 2, ...), analysed by the monitor over every look so far,
+    and its own result stored once, in one transaction. Totals that go backwards,
+    unknown arms and fields that do not fit the metric are refused with 422 naming the
+    field. A stopped or completed experiment refuses looks with 409."""
+    req = usecases.LookRequest(totals=body.totals, final=body.final,
+                               daily_traffic=body.daily_traffic)
+    answer = usecases.append_look(db, principal, experiment_id, req,
+                                  idem_for(key, request, body))
+    return respond(answer, {
+        "Location": f"/v1/experiments/{experiment_id}/looks/{answer.body['look']}"})
+
+
+@router.get(
+    "/{number}",
+    response_model=LookOut,
+    responses={401: ERRORS[401], 404: ERRORS[404], 422: ERRORS[422], 503: ERRORS[503]},
+    summary="Read one stored look and the analysis at it",
+)
+def get_look(
+    principal: PrincipalDep,
+    db: DatabaseDep,
+    experiment_id: ExperimentIdDep,
+    number: Annotated[int, Path(ge=1, le=10**9)],
+) -> dict[str, Any]:
+    return usecases.read_look(db, principal.team_id, experiment_id, number)

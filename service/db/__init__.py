@@ -1,0 +1,1 @@
+"""The service's database: engine and timeouts, tables, migrations, repository."""

@@ -1,0 +1,488 @@
+"""What the service does, one function per action, each in ONE transaction it opens.
+
+The write path of a look: open the write transaction (the experiment locked), check
+the idempotency key, read the stored looks' totals and the current plan version,
+read the plan once, ask the library for the analysis, store the new look's own
+result once, update the experiment, render the answer, remember the key, commit.
+No callbacks go into storage; storage knows no statistics.
+
+Requests arrive here as plain dataclasses (the HTTP layer's schemas are above this
+module and are not imported by it).
+"""
+
+from __future__ import annotations
+
+import json
+import secrets
+import threading
+import time
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+from sqlalchemy import Connection
+from sqlalchemy.exc import IntegrityError
+
+from service import library, views
+from service.db import repository as repo
+from service.db.engine import Database
+from service.db.records import Experiment, KeyRecord, Look, PlanVersion, Principal
+from service.errors import (
+    IdempotencyConflict,
+    NotFound,
+    StateConflict,
+    Unavailable,
+    Unprocessable,
+)
+
+# ----------------------------------------------------------------------- requests
+
+
+@dataclass(frozen=True)
+class Idem:
+    """An ``Idempotency-Key`` and the fingerprint of the request it came with."""
+
+    key: str
+    request_hash: str
+
+
+@dataclass(frozen=True)
+class PlanRequest:
+    """A plan as posted: a document, or inputs to design it."""
+
+    document: dict[str, Any] | None = None
+    design_kind: str | None = None  # None: the previous version's kind (amendments)
+    design_inputs: dict[str, Any] | None = None
+
+
+@dataclass(frozen=True)
+class CreateRequest:
+    name: str
+    description: str
+    metric_kind: str | None
+    control_arm: str
+    treatment_arm: str
+    allocation: float
+    max_n: float | None
+    fraction_basis: str | None
+    plan: PlanRequest
+    deprecations: list[str] = field(default_factory=list)
+
+
+@dataclass(frozen=True)
+class AmendRequest:
+    reason: str
+    plan: PlanRequest
+    max_n: float | None = None
+    deprecations: list[str] = field(default_factory=list)
+
+
+@dataclass(frozen=True)
+class LookRequest:
+    totals: dict[str, dict[str, Any]]
+    final: bool = False
+    daily_traffic: float | None = None
+
+
+@dataclass(frozen=True)
+class Answer:
+    """The answer of a write: status, JSON body, and whether it is a replay."""
+
+    status_code: int
+    body: dict[str, Any]
+    replayed: bool = False
+
+
+# ----------------------------------------------------------------------- idempotency
+
+_PURGE_EVERY_S = 60.0
+_purge_lock = threading.Lock()
+_last_purge = 0.0
+
+
+def _maybe_purge(conn: Connection, ttl_s: float) -> None:
+    """Delete expired idempotency keys, at most once a minute per process (indexed by
+    age, at most 1000 rows at a time, inside a write that holds the lock anyway)."""
+    global _last_purge
+    now = time.monotonic()
+    with _purge_lock:
+        if now - _last_purge < _PURGE_EVERY_S:
+            return
+        _last_purge = now
+    repo.purge_keys(conn, repo.ago(ttl_s))
+
+
+def _replay(db: Database, conn: Connection, team_id: str, idem: Idem) -> Answer | None:
+    """The stored answer for ``idem``, or None (never used, or expired and forgotten)."""
+    stored = repo.find_replay(conn, team_id, idem.key)
+    if stored is None:
+        return None
+    if stored.created_at < repo.ago(db.settings.idempotency_ttl_s):
+        return None  # expired: the caller forgets it in its write
+    if stored.request_hash != idem.request_hash:
+        raise IdempotencyConflict(
+            f"The Idempotency-Key {idem.key!r} was already used for a different request "
+            "(another body or route). Use a new key for a new request, or resend the "
+            "original request unchanged to get its answer again."
+        )
+    if stored.body is not None:
+        return Answer(stored.status_code, stored.body, replayed=True)
+    assert stored.experiment_id is not None and stored.look_number is not None
+    exp = repo.get_experiment(conn, team_id, stored.experiment_id)
+    lk = repo.look(conn, stored.experiment_id, stored.look_number)
+    if exp is None or lk is None:  # pragma: no cover - looks are append-only
+        return None
+    rows = repo.look_results(conn, exp.id, lk.number)
+    return Answer(stored.status_code, views.look(exp, lk, rows, lk.state or exp.state),
+                  replayed=True)
+
+
+def _replay_before(db: Database, team_id: str, idem: Idem | None) -> Answer | None:
+    """A cheap check before taking any lock."""
+    if idem is None:
+        return None
+    with db.read() as conn:
+        return _replay(db, conn, team_id, idem)
+
+
+def _claim(db: Database, conn: Connection, team_id: str, idem: Idem | None
+           ) -> Answer | None:
+    """Inside the write, after the lock: a retry that waited behind its own first
+    attempt gets that attempt's answer; an expired key is forgotten."""
+    if idem is None:
+        return None
+    prior = _replay(db, conn, team_id, idem)
+    if prior is not None:
+        return prior
+    repo.forget_key(conn, team_id, idem.key)  # expired, if present at all
+    _maybe_purge(conn, db.settings.idempotency_ttl_s)
+    return None
+
+
+def _after_race(db: Database, team_id: str, idem: Idem | None, exc: IntegrityError
+                ) -> Answer:
+    """Another request with the same key committed between our check and our insert
+    (possible on PostgreSQL, where writers to different experiments run side by
+    side); ours was rolled back: answer with what the first one stored."""
+    if idem is None:
+        raise exc
+    prior = _replay_before(db, team_id, idem)
+    if prior is None:
+        raise exc
+    return prior
+
+
+# ----------------------------------------------------------------------- plans
+
+
+def _build_plan(req: PlanRequest, previous: PlanVersion | None, location: str
+                ) -> tuple[library.PlanInfo, dict[str, Any]]:
+    """The plan of a request, read or designed once; and its ``source`` record."""
+    if req.document is not None:
+        return library.read_plan(req.document, ["body", "plan"]), {"from": "document"}
+    assert req.design_inputs is not None
+    inputs = dict(req.design_inputs)
+    kind = req.design_kind
+    if previous is not None:
+        base_kind, base = library_defaults(previous)
+        if kind is None or kind == base_kind:
+            kind = base_kind
+            inputs = merge_inputs(base, inputs)
+    kind = kind or "group_sequential"
+    info = library.design_plan(kind, inputs, ["body", "design"])
+    return info, {"from": "design", "kind": kind, "inputs": library.json_safe(inputs)}
+
+
+def library_defaults(pv: PlanVersion) -> tuple[str, dict[str, Any]]:
+    """The design inputs a version was made from (an amendment starts from them)."""
+    if pv.source.get("from") == "design" and isinstance(pv.source.get("inputs"), dict):
+        inputs = dict(pv.source["inputs"])
+        if "info_fractions" in inputs:  # stored by the first release of the service
+            inputs["information_fractions"] = inputs.pop("info_fractions")
+        return str(pv.source.get("kind", pv.kind)), inputs
+    return pv.kind, library.inputs_of_document(pv.document)
+
+
+def merge_inputs(base: dict[str, Any], given: dict[str, Any]) -> dict[str, Any]:
+    """``given`` over ``base``; a new number of looks drops inherited fractions and new
+    fractions drop an inherited number of looks (the two must agree)."""
+    merged = {**base, **given}
+    if "looks" in given and "information_fractions" not in given:
+        merged.pop("information_fractions", None)
+    if "information_fractions" in given and "looks" not in given:
+        merged.pop("looks", None)
+    return merged
+
+
+def _metric_kind(given: str | None, plan: library.PlanInfo, field_name: str) -> str:
+    """The experiment's metric kind: as given, else the plan's; the two must agree."""
+    planned = plan.metric_kind
+    if given is None:
+        if planned is None:
+            raise Unprocessable(
+                f"{field_name}: give the metric kind of the totals (binary, continuous or "
+                "rate); the plan does not name one",
+                details=[{"location": ["body", field_name], "message": "missing"}],
+            )
+        return planned
+    if planned is not None and planned != given:
+        raise Unprocessable(
+            f"{field_name}: got {given!r} but the plan was sized for a {planned!r} metric; "
+            f"give the same kind, or leave {field_name} out",
+            details=[{"location": ["body", field_name], "message": "differs from the plan"}],
+        )
+    return given
+
+
+def _check_sizing(plan: library.PlanInfo, max_n: float | None) -> None:
+    """A group-sequential plan is monitored on sample fractions: it needs a size,
+    from the plan's metric or from ``max_n``."""
+    if plan.kind != "group_sequential" or max_n is not None or plan.metric_kind is not None:
+        return
+    raise Unprocessable(
+        "max_n: the plan has no metric to size it, so give max_n, the maximum total "
+        "sample over both arms (exposure for rates), or design the plan with a metric",
+        details=[{"location": ["body", "max_n"], "message": "missing"}],
+    )
+
+
+def _closed(exp: Experiment, what: str) -> StateConflict:
+    decision = f"decision {exp.decision!r} at look {exp.look_count}" if exp.decision \
+        else "no decision"
+    return StateConflict(
+        f"Experiment {exp.id!r} is {exp.state} ({decision}), so it takes no more {what}. "
+        f"Its record stays readable at GET /v1/experiments/{exp.id}; to go on testing, "
+        "create a new experiment with POST /v1/experiments.",
+        details=[{"location": ["path", "experiment_id"], "message": exp.state,
+                  "state": exp.state, "decision": exp.decision}],
+    )
+
+
+def _not_found(exp_id: str) -> NotFound:
+    return NotFound(
+        f"No experiment {exp_id!r} for your team; list yours with GET /v1/experiments.")
+
+
+# ----------------------------------------------------------------------- writes
+
+
+def create_experiment(db: Database, principal: Principal, req: CreateRequest,
+                      idem: Idem | None = None) -> Answer:
+    prior = _replay_before(db, principal.team_id, idem)
+    if prior is not None:
+        return prior
+    plan, source = _build_plan(req.plan, None, "plan")
+    _check_sizing(plan, req.max_n)
+    metric_kind = _metric_kind(req.metric_kind, plan, "metric_kind")
+    try:
+        with db.write() as conn:
+            prior = _claim(db, conn, principal.team_id, idem)
+            if prior is not None:
+                return prior
+            ts = repo.now()
+            exp = Experiment(
+                id=repo.new_id("exp"), team_id=principal.team_id, name=req.name,
+                description=req.description, metric_kind=metric_kind,
+                control_arm=req.control_arm, treatment_arm=req.treatment_arm,
+                allocation=req.allocation, max_n=req.max_n,
+                fraction_basis=req.fraction_basis, plan_version=1, look_count=0,
+                state="planned", decision=None, created_at=ts, created_by=principal.key_id,
+                updated_at=ts,
+            )
+            pv = PlanVersion(
+                version=1, kind=plan.kind, document=plan.document, source=source,
+                reason=None, after_look=0, recorded_at=ts, recorded_by=principal.key_id,
+                boundaries=plan.boundaries, boundaries_stored=True,
+            )
+            repo.insert_experiment(conn, exp)
+            repo.insert_plan_version(conn, exp.id, pv)
+            body = views.created(exp, pv, req.deprecations)
+            if idem is not None:
+                repo.remember_key(conn, principal.team_id, idem.key, idem.request_hash, 201,
+                                  body)
+        return Answer(201, body)
+    except IntegrityError as exc:
+        return _after_race(db, principal.team_id, idem, exc)
+
+
+def append_look(db: Database, principal: Principal, exp_id: str, req: LookRequest,
+                idem: Idem | None = None) -> Answer:
+    prior = _replay_before(db, principal.team_id, idem)
+    if prior is not None:
+        return prior
+    try:
+        with db.write() as conn:
+            exp = repo.lock_experiment(conn, principal.team_id, exp_id)
+            if exp is None:
+                raise _not_found(exp_id)
+            prior = _claim(db, conn, principal.team_id, idem)
+            if prior is not None:
+                return prior
+            if exp.state in ("stopped", "completed"):
+                raise _closed(exp, "looks")
+            roles = library.to_roles(exp, req.totals)
+            totals, results = repo.look_history(conn, exp_id)
+            if len(totals) != exp.look_count:  # pragma: no cover - guarded by the lock
+                raise RuntimeError("look count out of step with stored looks")
+            pv = repo.plan_version(conn, exp_id, exp.plan_version)
+            plan = library.read_plan(pv.document, ["plan"], trust=True)
+            outcome = library.analyze_look(exp, plan, totals, roles, req.final,
+                                           req.daily_traffic)
+            ts = repo.now()
+            number = exp.look_count + 1
+            lk = Look(
+                number=number, plan_version=pv.version, totals=roles, final=req.final,
+                decision=outcome.decision, state=outcome.state,
+                result=_canonical(outcome.result), summary=_canonical(outcome.summary),
+                recorded_at=ts, recorded_by=principal.key_id,
+            )
+            repo.insert_look(conn, exp_id, lk)
+            repo.update_after_look(conn, exp_id, number, outcome.state, outcome.decision, ts)
+            exp_after = replace(exp, look_count=number, state=outcome.state,
+                                decision=outcome.decision, updated_at=ts)
+            body = views.look(exp_after, lk, [*results, lk.result], outcome.state)
+            if idem is not None:
+                repo.remember_key(conn, principal.team_id, idem.key, idem.request_hash, 201,
+                                  None, experiment_id=exp_id, look_number=number)
+        return Answer(201, body)
+    except IntegrityError as exc:
+        return _after_race(db, principal.team_id, idem, exc)
+
+
+def _canonical(value: Any) -> Any:
+    """As it reads back from storage (sorted keys), so a rebuilt answer is identical."""
+    return json.loads(repo.dump_json(value))
+
+
+def amend_plan(db: Database, principal: Principal, exp_id: str, req: AmendRequest,
+               idem: Idem | None = None) -> Answer:
+    """A new plan version. The plan is read or designed before the write lock is taken
+    (designing can take a while); the write checks that no other amendment came in
+    meanwhile, else designs again from the newer version."""
+    prior = _replay_before(db, principal.team_id, idem)
+    if prior is not None:
+        return prior
+    for _attempt in range(3):
+        with db.read() as conn:
+            exp = repo.get_experiment(conn, principal.team_id, exp_id)
+            if exp is None:
+                raise _not_found(exp_id)
+            previous = repo.plan_version(conn, exp_id, exp.plan_version)
+        if exp.state in ("stopped", "completed"):
+            raise _closed(exp, "amendments")
+        plan, source = _build_plan(req.plan, previous, "plan")
+        max_n = req.max_n if req.max_n is not None else exp.max_n
+        if req.max_n is not None:
+            source["max_n"] = req.max_n
+        _metric_kind(exp.metric_kind, plan, "metric_kind")
+        _check_sizing(plan, max_n)
+        try:
+            with db.write() as conn:
+                locked = repo.lock_experiment(conn, principal.team_id, exp_id)
+                if locked is None:  # pragma: no cover - experiments are never deleted
+                    raise _not_found(exp_id)
+                prior = _claim(db, conn, principal.team_id, idem)
+                if prior is not None:
+                    return prior
+                if locked.state in ("stopped", "completed"):
+                    raise _closed(locked, "amendments")
+                if locked.plan_version != exp.plan_version:
+                    continue  # another amendment came first: start from it
+                ts = repo.now()
+                pv = PlanVersion(
+                    version=locked.plan_version + 1, kind=plan.kind, document=plan.document,
+                    source=source, reason=req.reason, after_look=locked.look_count,
+                    recorded_at=ts, recorded_by=principal.key_id,
+                    boundaries=plan.boundaries, boundaries_stored=True,
+                )
+                repo.insert_plan_version(conn, exp_id, pv)
+                repo.update_after_amendment(conn, exp_id, pv.version, max_n, ts)
+                exp_after = replace(locked, plan_version=pv.version, max_n=max_n,
+                                    updated_at=ts)
+                body = views.amendment(exp_after, pv, req.deprecations)
+                if idem is not None:
+                    repo.remember_key(conn, principal.team_id, idem.key, idem.request_hash,
+                                      201, body)
+            return Answer(201, body)
+        except IntegrityError as exc:
+            return _after_race(db, principal.team_id, idem, exc)
+    raise Unavailable("Other amendments to this experiment kept arriving; nothing was "
+                      "stored. Retry the request.", retry_after=1)
+
+
+# ----------------------------------------------------------------------- reads
+
+
+def read_experiment(db: Database, team_id: str, exp_id: str, *, looks_offset: int = 0,
+                    looks_limit: int = 100, versions_offset: int = 0,
+                    versions_limit: int = 20) -> dict[str, Any]:
+    with db.read() as conn:
+        exp = repo.get_experiment(conn, team_id, exp_id)
+        if exp is None:
+            raise _not_found(exp_id)
+        current = repo.plan_version(conn, exp_id, exp.plan_version)
+        versions = repo.plan_versions(conn, exp_id, offset=versions_offset,
+                                      limit=versions_limit)
+        looks = repo.looks(conn, exp_id, offset=looks_offset, limit=looks_limit)
+        latest = None
+        if exp.look_count:
+            latest = looks[-1] if looks and looks[-1].number == exp.look_count else \
+                repo.look(conn, exp_id, exp.look_count)
+    return views.detail(
+        exp, current, versions, looks, latest,
+        looks_page=views.page(looks_offset, looks_limit, exp.look_count),
+        versions_page=views.page(versions_offset, versions_limit, exp.plan_version),
+    )
+
+
+def read_look(db: Database, team_id: str, exp_id: str, number: int) -> dict[str, Any]:
+    with db.read() as conn:
+        exp = repo.get_experiment(conn, team_id, exp_id)
+        if exp is None:
+            raise _not_found(exp_id)
+        lk = repo.look(conn, exp_id, number) if number <= exp.look_count else None
+        if lk is None:
+            raise NotFound(f"Experiment {exp_id!r} has {exp.look_count} look(s); there is "
+                           f"no look {number}.")
+        rows = repo.look_results(conn, exp_id, number)
+    return views.look(exp, lk, rows, lk.state or exp.state)
+
+
+def list_experiments(db: Database, team_id: str, *, state: str | None, limit: int,
+                     offset: int) -> dict[str, Any]:
+    with db.read() as conn:
+        rows, total = repo.list_experiments(conn, team_id, state=state, limit=limit,
+                                            offset=offset)
+    return {"experiments": [views.summary(e) for e in rows], "total": total,
+            "limit": limit, "offset": offset}
+
+
+# ----------------------------------------------------------------------- keys
+
+
+def authenticate(db: Database, token: str) -> Principal | None:
+    with db.read() as conn:
+        return repo.authenticate(conn, token)
+
+
+def create_key(db: Database, team_name: str, label: str = "") -> tuple[KeyRecord, str]:
+    """An API key for ``team_name`` (the team is created if new); the token is shown
+    only here, the database keeps its hash."""
+    team_name = team_name.strip()
+    if not team_name or len(team_name) > 200 or "\x00" in team_name:
+        raise ValueError(f"team name {team_name!r}: give 1 to 200 characters")
+    if len(label) > 200 or "\x00" in label:
+        raise ValueError("label: give at most 200 characters")
+    token = "sqt_" + secrets.token_urlsafe(32)
+    with db.write() as conn:
+        record = repo.create_key(conn, team_name, label, token)
+    return record, token
+
+
+def revoke_key(db: Database, key_id: str) -> KeyRecord | None:
+    with db.write() as conn:
+        return repo.revoke_key(conn, key_id)
+
+
+def list_keys(db: Database, team_name: str | None = None) -> list[KeyRecord]:
+    with db.read() as conn:
+        return repo.list_keys(conn, team_name=team_name)
