@@ -503,3 +503,11 @@ def test_column_mapping_options():
             column_mapping(bad)
     with pytest.raises(ValueError, match="twice"):
         column_mapping(["a=control.n", "a=control.successes"])
+
+
+def test_treatments_keep_the_data_s_order_whatever_the_mapping():
+    frame = pd.DataFrame({"control_n": [10], "control_successes": [1], "b_n": [10],
+                          "b_successes": [2], "clicks_c": [10], "buys_c": [3]})
+    table = read_arm_looks(frame, "binary", columns={"clicks_c": "c_arm.n",
+                                                     "buys_c": "c_arm.successes"})
+    assert table.arms == ("control", "b", "c_arm")

@@ -342,7 +342,7 @@ def _roles(columns: Sequence[str], mapping: Mapping[str, Any], control: str | No
             f"expected {exp}; name other columns with columns={{NAME: TARGET}} "
             "(--column NAME=TARGET) or ignore them with the target '-'",
             field=unknown[0])
-    return layout, roles
+    return layout, {c: roles[c] for c in names if c in roles}   # in the data's order
 
 
 # ---------------------------------------------------------------------------
