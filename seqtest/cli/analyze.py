@@ -6,16 +6,54 @@ import argparse
 import json
 from typing import Any
 
-from seqtest.cli.common import fmt, read_plan, table, write
+from seqtest.cli.common import UsageError, fmt, read_plan, table, write
 from seqtest.core.vocabulary import CAUTION
 
-__all__ = ["analysis_text", "register"]
+__all__ = ["analysis_text", "read_looks", "register"]
+
+
+#: The epilog of ``seqtest analyze --help``: the accepted columns, generated from the
+#: library's metric field table when the help is shown (not at start-up).
+_COLUMNS_EPILOG = "(the accepted columns)"
+
+#: Environment variable read when --database-url is not given (keeps a password out of
+#: the command line).
+DATABASE_URL_ENV = "SEQTEST_LOOKS_DATABASE_URL"
+
+
+class _HelpWithColumns(argparse.RawDescriptionHelpFormatter):
+    """Help formatter that writes the accepted columns in place of the epilog marker."""
+
+    def add_text(self, text: str | None) -> None:
+        if text is _COLUMNS_EPILOG:
+            from seqtest.monitoring.lookfile import columns_help
+            text = columns_help()
+        super().add_text(text)
 
 
 def register(sub: Any) -> None:
     """Add the ``analyze`` subcommand."""
-    a = sub.add_parser("analyze", help="analyse the looks so far and give the decision")
-    a.add_argument("looks", help="CSV file, one row per look (see 'seqtest analyze --help')")
+    a = sub.add_parser("analyze", help="analyse the looks so far and give the decision",
+                       description="Analyse the looks so far under a plan and give the "
+                                   "decision.\nThe looks come from a CSV file or from a "
+                                   "database query (--sql).",
+                       epilog=_COLUMNS_EPILOG, formatter_class=_HelpWithColumns)
+    a.add_argument("looks", nargs="?", default=None,
+                   help="CSV file of looks (layouts below); or give --sql")
+    a.add_argument("--column", action="append", default=[], metavar="NAME=TARGET",
+                   dest="columns",
+                   help="read column NAME as TARGET: ARM.TOTAL (wide layout), TOTAL (long "
+                        "layout), look, arm, date, note, or - to ignore it; repeatable")
+    a.add_argument("--control", metavar="ARM", default=None,
+                   help="name of the control arm (default: the arm named 'control')")
+    a.add_argument("--sql", metavar="QUERY", default=None,
+                   help="read the looks from a database: a SELECT returning the looks in "
+                        "either layout (needs --database-url)")
+    a.add_argument("--sql-file", metavar="FILE", default=None, dest="sql_file",
+                   help="like --sql, the query read from FILE")
+    a.add_argument("--database-url", metavar="URL", default=None, dest="database_url",
+                   help="database for --sql, e.g. postgresql://user@host/db or "
+                        f"sqlite:///looks.db (default: ${DATABASE_URL_ENV})")
     a.add_argument("--plan", required=True, help="plan document from 'seqtest plan --json'")
     a.add_argument("--trust-plan", action="store_true", dest="trust_plan",
                    help="skip checking the plan's computed numbers against its inputs")
@@ -90,12 +128,46 @@ def analysis_text(analysis: Any) -> str:
     return "\n".join(out)
 
 
+def read_looks(args: argparse.Namespace, kind: str | None) -> list[dict]:
+    """The looks the options name (a CSV file or a query), keyed by role for the
+    two-arm analysis."""
+    import os
+    from pathlib import Path
+
+    from seqtest.monitoring.lookfile import column_mapping, frame_from_csv, read_arm_looks
+    sources = [s for s, given in (("a looks file", args.looks), ("--sql", args.sql),
+                                  ("--sql-file", args.sql_file)) if given is not None]
+    if len(sources) != 1:
+        raise UsageError(f"looks: got {' and '.join(sources) or 'none'}; allowed is one of "
+                         "a looks file, --sql QUERY or --sql-file FILE")
+    url = args.database_url or os.environ.get(DATABASE_URL_ENV)
+    if args.looks is not None:
+        if args.database_url:
+            raise UsageError("--database-url: given with a looks file; allowed only with "
+                             "--sql or --sql-file")
+        frame = frame_from_csv(args.looks)
+    else:
+        if not url:
+            raise UsageError(f"--database-url: missing; --sql needs the database (or set "
+                             f"{DATABASE_URL_ENV})")
+        query = args.sql
+        if args.sql_file is not None:
+            path = Path(args.sql_file)
+            if not path.is_file():
+                raise UsageError(f"--sql-file: {path} does not exist")
+            query = path.read_text()
+        from seqtest.monitoring.sqllooks import frame_from_sql
+        frame = frame_from_sql(query, url)
+    table = read_arm_looks(frame, kind, columns=column_mapping(args.columns),
+                           control=args.control)
+    return table.two_arm()
+
+
 def cmd_analyze(args: argparse.Namespace) -> int:
     from seqtest.monitoring.analysis import analyze
-    from seqtest.monitoring.lookfile import read_looks_csv
     plan = read_plan(args.plan, trust=args.trust_plan)
     kind = (getattr(plan, "metric", None) or {}).get("kind") or args.metric
-    looks = read_looks_csv(args.looks, kind)
+    looks = read_looks(args, kind)
     analysis = analyze(plan, looks, metric=args.metric, final=args.final, max_n=args.max_n,
                        daily_traffic=args.daily_traffic, fraction_basis=args.fraction_basis)
     if args.json:
