@@ -28,6 +28,8 @@ if TYPE_CHECKING:  # the names below, for type checkers and readers
     from seqtest.planning.design import Plan, design
     from seqtest.planning.documents import plan_from_dict
     from seqtest.planning.mixture import MixturePlan, mixture_plan
+    from seqtest.plotting import plot_analysis, plot_simulation
+    from seqtest.reporting import ExitStatus, Summary, report_html, report_markdown, summarize
 
 #: public name -> the module that defines it
 _WHERE = {
@@ -46,6 +48,13 @@ _WHERE = {
     "plan_from_dict": "seqtest.planning.documents",
     "MixturePlan": "seqtest.planning.mixture",
     "mixture_plan": "seqtest.planning.mixture",
+    "plot_analysis": "seqtest.plotting",
+    "plot_simulation": "seqtest.plotting",
+    "ExitStatus": "seqtest.reporting",
+    "Summary": "seqtest.reporting",
+    "report_html": "seqtest.reporting",
+    "report_markdown": "seqtest.reporting",
+    "summarize": "seqtest.reporting",
 }
 _MODULES = {"mixture", "spending"}
 
@@ -54,6 +63,7 @@ __all__ = [
     "DECISIONS",
     "Analysis",
     "Decision",
+    "ExitStatus",
     "InputError",
     "LookDataError",
     "LookResult",
@@ -61,13 +71,19 @@ __all__ = [
     "Plan",
     "PlanDocumentError",
     "SeqtestError",
+    "Summary",
     "__version__",
     "analyze",
     "design",
     "mixture",
     "mixture_plan",
     "plan_from_dict",
+    "plot_analysis",
+    "plot_simulation",
+    "report_html",
+    "report_markdown",
     "spending",
+    "summarize",
 ]
 assert set(__all__) == {"__version__", *_WHERE, *_MODULES}
 
