@@ -30,8 +30,13 @@ Z_CAP = 8.0
 
 
 def _figure(width: float, height: float) -> Figure:
+    """A figure on the Agg canvas (no display, no pyplot), laid out by the constrained
+    layout engine, which keeps titles, labels and outside legends in the figure."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
-    return Figure(figsize=(width, height), dpi=100, layout="constrained")
+    fig = Figure(figsize=(width, height), dpi=100, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
 
 
 def _save(fig: Figure, path: str | Path | None) -> None:
@@ -147,6 +152,7 @@ def _z_panel(ax: Axes, r: dict, plan: Any, mixture: bool, sides: int) -> None:
     word = decision_words(r.get("decision"), r.get("direction"))
     ax.plot([float(t[-1])], [float(np.clip(z[-1], low, top))], linestyle="none",
             marker="o", ms=15, mfc="none", mec=SERIES["observed_z"].color, mew=1.5,
+            color=SERIES["observed_z"].color,
             zorder=6, gid="decision-marker")
     ax.set_title(f"Looks against the stopping boundaries; look {len(looks)}: {word}",
                  fontsize=11)
@@ -261,7 +267,7 @@ def plot_simulation(result: Any, path: str | Path | None = None, *,
     ax1.bar(x, rates, color=colours, width=0.6, hatch=["", "//"][: len(names)],
             edgecolor="#333333", linewidth=0.5)
     ax1.errorbar(x, rates, yerr=[np.subtract(rates, lows), np.subtract(highs, rates)],
-                 fmt="none", ecolor="black", capsize=4, lw=1)
+                 fmt="none", ecolor="black", color="black", capsize=4, lw=1)
     ref = r["plan"]["alpha"] if r.get("null") else r.get("design_rate")
     ref_line = []
     if ref is not None:

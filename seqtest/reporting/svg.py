@@ -133,8 +133,12 @@ class _Canvas:
     def text(self, x: float, y: float, s: str, *, size: float = 12.0, anchor: str = "start",
              weight: str = "normal", cls: str = "label", color: str = "#000000",
              rotate: bool = False) -> None:
-        """A label, moved inside the view box if it would stick out."""
+        """A label, moved inside the view box if it would stick out (and made smaller
+        if it is longer than the view box is wide)."""
         w = text_width(s, size)
+        room = (self.height if rotate else self.width) - 2 * _MARGIN
+        if w > room:
+            size, w = size * room / w, room
         if rotate:  # vertical, reading upwards: the width runs along y
             y = min(max(y, _MARGIN + w / 2), self.height - _MARGIN - w / 2)
             x = min(max(x, _MARGIN + size), self.width - _MARGIN)
