@@ -13,7 +13,7 @@ from typing import Any
 
 import matplotlib
 import pytest
-from matplotlib.colors import to_hex
+from matplotlib.colors import to_hex, to_rgba
 from matplotlib.figure import Figure
 from matplotlib.legend import Legend
 from matplotlib.text import Text
@@ -72,9 +72,9 @@ def colours(fig: Figure) -> set[str]:
         for line in ax.get_lines():
             out.add(to_hex(line.get_color()))
         for patch in ax.patches:
-            rgba = tuple(patch.get_facecolor())
-            if patch.get_visible() and float(rgba[3]) > 0:
-                out.add(to_hex(rgba, keep_alpha=False))
+            r, g, b, a = to_rgba(patch.get_facecolor())
+            if patch.get_visible() and a > 0:
+                out.add(to_hex((r, g, b)))
     return out
 
 
