@@ -10,11 +10,13 @@ label inside the figure; the title names the experiment.
 
 from __future__ import annotations
 
+import textwrap
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from seqtest.core.vocabulary import CAUTION
 from seqtest.reporting import numbers as num
 from seqtest.reporting.style import OUTCOME_STYLES, SERIES, Series, decision_words
 from seqtest.reporting.summary import analysis_record, effect_units
@@ -91,6 +93,9 @@ def plot_analysis(analysis: Any, plan: Any = None, path: str | Path | None = Non
     fig = _figure(9.0, 7.2)
     ax, bx = fig.subplots(2, 1, height_ratios=[3, 2])
     fig.suptitle(name, fontsize=13, fontweight="bold")
+    # the figure shows a decision, so it carries the caution (at the foot, laid out
+    # by the layout engine with everything else)
+    fig.supxlabel("\n".join(textwrap.wrap(CAUTION, 140)), fontsize=7, color="#555555")
     _z_panel(ax, r, plan, mixture, sides)
     _effect_panel(bx, r, mixture, sides)
     _save(fig, path)

@@ -94,6 +94,7 @@ def test_plot_analysis_returns_a_readable_figure(analyses, name, tmp_path):
     check_layout(fig)
     assert_palette(fig)
     assert fig.get_suptitle() == f"Invented shop {name}"
+    assert fig.get_supxlabel().replace("\n", " ") == seqtest.CAUTION
     z_ax, e_ax = fig.axes
     # the decision is in the z panel's title, with the look it was taken at
     assert f"look {len(a.looks)}:" in z_ax.get_title()

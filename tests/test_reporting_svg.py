@@ -130,8 +130,11 @@ def test_z_path_has_a_point_per_look_and_stays_in_its_box(analyses, name):
     title = root.find(f"{SVG}title").text
     assert f"Invented shop test {name}" in title
     label = by_class(root, "decision-label")
-    assert len(label) == 1 and f"look {n}" in label[0].text
-    assert float(label[0].get("y")) < top
+    assert len(label) == 1 and f"look {n}" in (label[0].text or "")
+    assert num(label[0], "y") < top
+    # a chart that shows a decision carries the caution
+    caution = " ".join(t.text or "" for t in by_class(root, "caution"))
+    assert caution == seqtest.CAUTION
 
 
 @pytest.mark.parametrize("name", list(CASES_BY_NAME))

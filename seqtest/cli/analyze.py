@@ -62,6 +62,7 @@ def analysis_text(analysis: Any) -> str:
     words (:func:`seqtest.reporting.summarize`), the adjusted inference, the other
     warnings and the caution."""
     from seqtest.reporting import final_rows, look_rows, summarize
+    from seqtest.reporting.summary import analysis_record
     s = summarize(analysis)
     out: list[str] = []
     if s.alerts:
@@ -69,7 +70,7 @@ def analysis_text(analysis: Any) -> str:
         out += [_wrap(w) for w in s.alerts]
         out.append("")
     out += [table(*look_rows(analysis)), ""]
-    d = analysis.to_dict() if hasattr(analysis, "to_dict") else dict(analysis)
+    d = analysis_record(analysis)
     line = f"Decision at look {d['looks'][-1]['look']}: {_HEADS.get(s.decision, s.decision)}"
     if d.get("direction"):
         line += f" ({d['direction'].replace('_', ' ')})"

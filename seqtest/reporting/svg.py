@@ -25,11 +25,13 @@ from __future__ import annotations
 
 import hashlib
 import math
+import textwrap
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 from xml.sax.saxutils import escape, quoteattr
 
+from seqtest.core.vocabulary import CAUTION
 from seqtest.reporting import numbers as num
 from seqtest.reporting.style import OUTCOME_STYLES, SERIES, Series, decision_words
 from seqtest.reporting.summary import analysis_record, effect_units
@@ -447,7 +449,13 @@ def z_path_svg(analysis: Any, plan: Any = None, *, title: str | None = None,
         items.append((SERIES["planned_efficacy"], "line"))
         if planned[2] is not None:
             items.append((SERIES["planned_futility"], "line"))
-    c.height = c.legend(items, box.bottom + 46) + 6
+    bottom = c.legend(items, box.bottom + 46)
+    # the chart shows a decision, so it carries the caution
+    per_line = max(20, int((width - 2 * _MARGIN - 16) / (CHAR_WIDTH * 10)))
+    for line in textwrap.wrap(CAUTION, per_line):
+        bottom += 13
+        c.text(12, bottom, line, size=10, cls="caution", color="#555555")
+    c.height = bottom + 8
     desc = (f"z statistic of {len(looks)} look(s) against the efficacy boundaries"
             + (" and the futility band" if has_fut else "") + f"; decision: {word}.")
     return c.to_svg(desc)
