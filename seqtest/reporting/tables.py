@@ -141,8 +141,7 @@ def plan_table_rows(plan: Any) -> tuple[list[str], list[list[str]]] | None:
         a = float(plan.efficacy_z[k])
         row += [num.fixed(a, 3) if num.is_number(a) else "none",
                 num.p_value(plan.p_threshold[k], exact=True),
-                num.fixed(float(plan.cumulative_alpha[k]),
-                          num.decimals_for([float(plan.cumulative_alpha[k])], 2))]
+                num.p_value(float(plan.cumulative_alpha[k]), exact=True)]
         if plan.futility_z is not None:
             row.append(num.fixed(float(plan.futility_z[k]), 3))
         rows.append(row)
