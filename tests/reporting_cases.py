@@ -97,6 +97,11 @@ def cases() -> dict[str, Case]:
                             "treatment": {"n": 1200, "mean": 10.05, "sd": 1.0}}], cont),
         "small_sample": Case(seqtest.design(looks=3), [binary_look(40, 0.05, 0.1)],
                              {"metric": "binary", "max_n": 2000}),
+        "rate_past_the_last_interim": Case(
+            seqtest.design(looks=3, futility="pocock-type",
+                           metric={"kind": "rate", "baseline": 0.5, "mde": 0.1}),
+            [{"control": {"exposure": 1000, "events": 500},
+              "treatment": {"exposure": 1000, "events": 560}}], {"daily_traffic": 300.0}),
     }
 
 
@@ -115,6 +120,7 @@ EXPECTED_DECISION = {
     "mixture_complete": "complete_not_significant",
     "sample_ratio_mismatch": "continue",
     "small_sample": "continue",
+    "rate_past_the_last_interim": "continue",
 }
 
 

@@ -190,6 +190,36 @@ def test_a_continuing_plan_gives_conditional_power_and_the_next_look(analyses, n
     assert_shown(m.group(4), proj.days_to_end, "days to the end")
 
 
+def test_when_only_the_last_look_is_left_the_sentence_says_so(analyses):
+    # the first look is past the last interim fraction: the next look is the end
+    a = analyses["rate_past_the_last_interim"]
+    proj = a.projection
+    assert a.looks[0].information_fraction > CASES["rate_past_the_last_interim"].plan \
+        .info_fractions[-2]
+    assert proj.more_units_to_next_look == pytest.approx(proj.more_units_to_end)
+    s = summarize(a)
+    m = re.search(rf"The last planned look comes after about ({NUM}) more units of "
+                  rf"exposure \(about ({NUM}) days?\)\.", s.outlook)
+    assert m, s.outlook
+    assert value(m.group(1)) == math.ceil(proj.more_units_to_end - 1e-9)
+    assert "the end after" not in s.outlook
+
+
+def test_a_look_without_variation_is_still_summarised_and_drawn():
+    from seqtest.plotting import plot_analysis
+    from seqtest.reporting import effect_svg, report_html, z_path_svg
+    plan = seqtest.design(looks=5)
+    a = seqtest.analyze(plan, [{"control": {"n": 500, "mean": 1.0, "sd": 0.0},
+                                "treatment": {"n": 500, "mean": 1.0, "sd": 0.0}}],
+                        metric="continuous", max_n=10_000)
+    s = summarize(a)
+    assert "about the same in both arms" in s.text and "cannot be computed" in s.text
+    assert any("variance estimate is zero" in w for w in s.notes)
+    for svg in (z_path_svg(a, plan), effect_svg(a)):
+        assert svg.startswith("<svg")
+    assert "<table" in report_html(a, plan) and plot_analysis(a, plan) is not None
+
+
 def test_a_sample_ratio_mismatch_comes_before_the_decision(analyses):
     a = analyses["sample_ratio_mismatch"]
     # Source: scipy.stats.chisquare (Pearson's test) of 1000 vs 1200 against an even
