@@ -479,13 +479,13 @@ def _outlook(decision: str, units: EffectUnits, proj: Mapping | None, mixture: b
     more = _f(proj.get("more_units_to_next_look"))
     if more is not None:
         end = _f(proj.get("more_units_to_end"))
-        last = end is not None and num.count(end) == num.count(more)
-        s = (f"The {'last' if last else 'next'} planned look comes after about "
+        only_end = end is not None and num.count(end) == num.count(more)
+        s = (f"The {'last' if only_end else 'next'} planned look comes after about "
              f"{num.count(more)} more {units.people}")
         dn = _f(proj.get("days_to_next_look"))
         if dn is not None:
             s += f" (about {num.days(dn)})"
-        if end is not None and not last:
+        if end is not None and not only_end:
             s += f", the end after about {num.count(end)}"
             de = _f(proj.get("days_to_end"))
             if de is not None:
