@@ -25,9 +25,13 @@ if TYPE_CHECKING:  # the names below, for type checkers and readers
     from seqtest.core.errors import InputError, LookDataError, PlanDocumentError, SeqtestError
     from seqtest.core.vocabulary import CAUTION, DECISIONS, Decision
     from seqtest.monitoring.analysis import Analysis, LookResult, analyze
+    from seqtest.monitoring.lookfile import ArmLooks, read_arm_looks, read_looks_csv
+    from seqtest.monitoring.sqllooks import arm_looks_from_sql, looks_from_sql
     from seqtest.planning.design import Plan, design
     from seqtest.planning.documents import plan_from_dict
     from seqtest.planning.mixture import MixturePlan, mixture_plan
+    from seqtest.plotting import plot_analysis, plot_simulation
+    from seqtest.reporting import ExitStatus, Summary, report_html, report_markdown, summarize
 
 #: public name -> the module that defines it
 _WHERE = {
@@ -41,11 +45,23 @@ _WHERE = {
     "Analysis": "seqtest.monitoring.analysis",
     "LookResult": "seqtest.monitoring.analysis",
     "analyze": "seqtest.monitoring.analysis",
+    "ArmLooks": "seqtest.monitoring.lookfile",
+    "read_arm_looks": "seqtest.monitoring.lookfile",
+    "read_looks_csv": "seqtest.monitoring.lookfile",
+    "arm_looks_from_sql": "seqtest.monitoring.sqllooks",
+    "looks_from_sql": "seqtest.monitoring.sqllooks",
     "Plan": "seqtest.planning.design",
     "design": "seqtest.planning.design",
     "plan_from_dict": "seqtest.planning.documents",
     "MixturePlan": "seqtest.planning.mixture",
     "mixture_plan": "seqtest.planning.mixture",
+    "plot_analysis": "seqtest.plotting",
+    "plot_simulation": "seqtest.plotting",
+    "ExitStatus": "seqtest.reporting",
+    "Summary": "seqtest.reporting",
+    "report_html": "seqtest.reporting",
+    "report_markdown": "seqtest.reporting",
+    "summarize": "seqtest.reporting",
 }
 _MODULES = {"mixture", "spending"}
 
@@ -53,7 +69,9 @@ __all__ = [
     "CAUTION",
     "DECISIONS",
     "Analysis",
+    "ArmLooks",
     "Decision",
+    "ExitStatus",
     "InputError",
     "LookDataError",
     "LookResult",
@@ -61,13 +79,23 @@ __all__ = [
     "Plan",
     "PlanDocumentError",
     "SeqtestError",
+    "Summary",
     "__version__",
     "analyze",
+    "arm_looks_from_sql",
     "design",
+    "looks_from_sql",
     "mixture",
     "mixture_plan",
     "plan_from_dict",
+    "plot_analysis",
+    "plot_simulation",
+    "read_arm_looks",
+    "read_looks_csv",
+    "report_html",
+    "report_markdown",
     "spending",
+    "summarize",
 ]
 assert set(__all__) == {"__version__", *_WHERE, *_MODULES}
 

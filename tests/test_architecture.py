@@ -1,6 +1,7 @@
 """The shape of the code: imports point downward, no cycles, the library stands alone.
 
-Layers, lowest first (DEVELOPERS.md, "Map"): ``seqtest.core`` < ``seqtest.planning`` <
+Layers, lowest first (DEVELOPERS.md, "Map"): ``seqtest.core`` < ``seqtest.reporting`` <
+``seqtest.planning`` <
 ``seqtest.monitoring`` < ``seqtest.simulation`` and ``seqtest.plotting`` <
 ``seqtest.cli`` < the public surface (``seqtest``, ``seqtest.spending``,
 ``seqtest.mixture``) < ``service``. A module may import its own layer and the layers
@@ -24,6 +25,8 @@ PACKAGES = ("seqtest", "service")
 
 LAYERS = [
     ("seqtest.core", 0),
+    ("seqtest.reporting", 0.5),  # reads results by field name; planning and monitoring
+                                 # delegate their displays to it
     ("seqtest.planning", 1),
     ("seqtest.monitoring", 2),
     ("seqtest.simulation", 3),

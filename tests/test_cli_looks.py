@@ -18,6 +18,7 @@ from seqtest.cli import main
 from seqtest.cli.demo import DEMO_PLAN
 from seqtest.monitoring.lookfile import FIELD_ALIASES, read_looks_csv
 from seqtest.monitoring.metrics import ALTERNATIVE_FIELDS, METRIC_FIELDS
+from seqtest.reporting.status import exit_status
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLE = ROOT / "examples" / "checkout_looks.csv"
@@ -48,9 +49,11 @@ def _example_rows() -> list[list[int]]:
 
 
 def _analysis_json(argv: list[str], capsys: pytest.CaptureFixture[str]) -> dict:
+    # the command exits with the decision's documented status (seqtest.reporting.status)
     rc, out, err = run([*argv, "--json", "-"], capsys)
-    assert rc == 0, err
-    return dict(json.loads(out))
+    doc = dict(json.loads(out))
+    assert rc == exit_status(doc), err
+    return doc
 
 
 def test_help_lists_the_columns_of_every_kind_from_the_field_table(capsys):

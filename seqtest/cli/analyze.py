@@ -1,13 +1,18 @@
-"""``seqtest analyze``: the decision on the looks so far, with adjusted inference."""
+"""``seqtest analyze``: the decision on the looks so far, with adjusted inference.
+
+The exit status tells a pipeline what was decided (:mod:`seqtest.reporting.status`):
+0 continue, 3 stop (efficacy or futility), 4 sample-ratio mismatch, 5 complete without
+significance, 2 usage or input error.
+"""
 
 from __future__ import annotations
 
 import argparse
 import json
+import textwrap
 from typing import Any
 
-from seqtest.cli.common import UsageError, fmt, read_plan, table, write
-from seqtest.core.vocabulary import CAUTION
+from seqtest.cli.common import UsageError, read_plan, table, write
 
 __all__ = ["analysis_text", "read_looks", "register"]
 
@@ -76,55 +81,46 @@ def register(sub: Any) -> None:
     a.set_defaults(func=cmd_analyze)
 
 
+_HEADS = {
+    "continue": "CONTINUE",
+    "stop_efficacy": "STOP for efficacy",
+    "stop_futility": "STOP for futility",
+    "complete_not_significant": "COMPLETE without significance",
+}
+
+
+def _wrap(text: str, indent: str = "  ") -> str:
+    return textwrap.fill(text, width=88, initial_indent=indent, subsequent_indent=indent,
+                         break_on_hyphens=False)
+
+
 def analysis_text(analysis: Any) -> str:
-    d = analysis.to_dict()
-    looks = d["looks"]
-    headers = ["look", "n_control", "n_treatment", "estimate", "test_estimate", "se", "z",
-               "information_fraction", "efficacy_z", "futility_z", "interval_lower",
-               "interval_upper", "decision"]
-    rows = [[x["look"], x["n_control"], x["n_treatment"], x["estimate"], x["test_estimate"],
-             x["se"], x["z"], x["information_fraction"], x["efficacy_z"], x.get("futility_z"),
-             x.get("interval_lower"), x.get("interval_upper"), x["decision"]] for x in looks]
-    out = [table(headers, rows), ""]
-    dec = d["decision"]
-    words = {
-        "continue": "CONTINUE: no boundary crossed; keep collecting data",
-        "stop_efficacy": "STOP for efficacy",
-        "stop_futility": "STOP for futility: the effect is unlikely to reach significance",
-        "complete_not_significant": "COMPLETE: final look reached without significance",
-    }
-    line = f"Decision at look {looks[-1]['look']}: {words.get(dec, dec)}"
+    """What ``seqtest analyze`` prints: a sample-ratio mismatch first, the looks table
+    (relative effects in percent, beside the arms' own values), the decision in plain
+    words (:func:`seqtest.reporting.summarize`), the adjusted inference, the other
+    warnings and the caution."""
+    from seqtest.reporting import final_rows, look_rows, summarize
+    from seqtest.reporting.summary import analysis_record
+    s = summarize(analysis)
+    out: list[str] = []
+    if s.alerts:
+        out.append("SAMPLE-RATIO MISMATCH: read this before the decision")
+        out += [_wrap(w) for w in s.alerts]
+        out.append("")
+    out += [table(*look_rows(analysis)), ""]
+    d = analysis_record(analysis)
+    line = f"Decision at look {d['looks'][-1]['look']}: {_HEADS.get(s.decision, s.decision)}"
     if d.get("direction"):
         line += f" ({d['direction'].replace('_', ' ')})"
     out.append(line)
-    fin = d.get("final")
-    mixture = d.get("plan_kind") == "mixture"
+    out.append(_wrap(" ".join(x for x in (s.headline, s.effect, s.outlook, s.caveat) if x)))
+    fin = final_rows(analysis)
     if fin:
-        p_label = "always-valid p-value" if mixture else "adjusted p-value (stage-wise ordering)"
-        ci_label = "confidence sequence" if mixture else "adjusted interval"
-        out.append(f"  {p_label}: {fmt(fin['p_value'])}   "
-                   f"unadjusted: {fmt(fin['naive_p_value'])}")
-        out.append(f"  {ci_label}: [{fmt(fin['ci_lower'])}, {fmt(fin['ci_upper'])}]"
-                   f"   unadjusted: [{fmt(fin['naive_ci_lower'])}, "
-                   f"{fmt(fin['naive_ci_upper'])}]")
-        if not mixture:
-            out.append(f"  median-unbiased estimate: {fmt(fin['median_unbiased'])}   "
-                       f"naive estimate: {fmt(fin['naive_estimate'])}")
-    proj = d.get("projection")
-    if proj:
-        out.append(f"  conditional power: {fmt(proj['conditional_power_planned'], 3)} at the "
-                   f"planned effect, {fmt(proj['conditional_power_current'], 3)} at the "
-                   "current estimate")
-        if proj.get("more_units_to_next_look") is not None:
-            msg = (f"  next planned look at fraction {proj['next_look_fraction']:.2f}: "
-                   f"{proj['more_units_to_next_look']:,.0f} more units over both arms")
-            if proj.get("days_to_next_look") is not None:
-                msg += f" (about {proj['days_to_next_look']:.1f} days)"
-            out.append(msg)
-    for w in d.get("warnings", []):
-        out.append(f"warning: {w}")
-    out.append("")
-    out.append(f"Note: {CAUTION}")
+        out += ["", table(*fin)]
+    if s.notes:
+        out.append("")
+        out += [_wrap(f"warning: {w}", "") for w in s.notes]
+    out += ["", _wrap(f"Note: {s.caution}", "")]
     return "\n".join(out)
 
 
@@ -179,4 +175,5 @@ def cmd_analyze(args: argparse.Namespace) -> int:
         plot_analysis(analysis, plan, args.plot)
         if args.json != "-":
             print(f"plot written to {args.plot}")
-    return 0
+    from seqtest.reporting.status import exit_status
+    return int(exit_status(analysis))

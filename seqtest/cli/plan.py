@@ -124,23 +124,9 @@ def plan_rows(plan: Any) -> tuple[list[str], list[list[Any]]]:
 
 
 def plan_summary(plan: Any) -> str:
-    side = "two-sided" if plan.sides == 2 else "one-sided"
-    lines = [f"Plan: {plan.looks} look(s), {side} alpha {plan.alpha:g}, power {plan.power:g}",
-             f"  efficacy: {plan.efficacy.label}",
-             (f"  futility: {plan.futility.label} "
-              f"({'binding' if plan.binding else 'non-binding'})")
-             if plan.futility is not None else "  futility: none",
-             f"  inflation over the fixed design: {plan.inflation:.4f}"]
-    if plan.metric:
-        ss = plan.sample_size()
-        e0 = plan.characteristics(0.0).expected_fraction
-        e1 = plan.characteristics(1.0).expected_fraction
-        lines.append(f"  maximum per arm: control {ss.n_control}, treatment {ss.n_treatment} "
-                     f"(fixed design: {ss.fixed_control}, {ss.fixed_treatment})")
-        lines.append(f"  expected total: {ss.expected_null:,.0f} if no effect "
-                     f"({e0:.0%} of max), {ss.expected_alternative:,.0f} at the design "
-                     f"effect ({e1:.0%} of max)")
-    return "\n".join(lines)
+    """The plan in a few plain lines (:func:`seqtest.reporting.plan_summary`)."""
+    from seqtest.reporting.summary import plan_summary as summary
+    return summary(plan)
 
 
 def make_mixture_plan(args: argparse.Namespace) -> Any:
@@ -154,15 +140,8 @@ def make_mixture_plan(args: argparse.Namespace) -> Any:
 
 
 def mixture_summary(plan: Any) -> str:
-    side = "two-sided" if plan.sides == 2 else "one-sided"
-    lines = [f"Plan: mixture SPRT (look at any time), {side} alpha {plan.alpha:g}",
-             f"  mixing variance tau^2 = {plan.tau2:.6g} (chosen by rule: {plan.tau2_rule})"]
-    if plan.mde is not None:
-        lines.append(f"  tuned to the minimum detectable effect {plan.mde:g} "
-                     f"({plan.scale} scale)")
-    if plan.max_n_per_arm:
-        lines.append(f"  complete at {plan.max_n_per_arm} per arm without a rejection")
-    return "\n".join(lines)
+    """A mixture plan in a few plain lines (the same function as :func:`plan_summary`)."""
+    return plan_summary(plan)
 
 
 def cmd_plan(args: argparse.Namespace) -> int:

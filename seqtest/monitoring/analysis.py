@@ -138,6 +138,14 @@ class Analysis:
         Present while the experiment continues.
     warnings : list of str
     metric_kind, scale, test_scale, plan_kind : str
+    sides : int
+        The plan's sides (1 or 2).
+    alpha : float or None
+        The plan's type I error (the intervals have level ``1 - alpha``).
+    binding : bool or None
+        Whether the plan's futility boundary is binding (None: no futility boundary).
+    srm_threshold : float
+        p-value below which a look's sample-ratio check is a mismatch.
     """
 
     decision: Decision
@@ -152,15 +160,43 @@ class Analysis:
     test_scale: str = "difference"
     plan_kind: str = "group_sequential"
     caution: str = CAUTION
+    sides: int = 2
+    alpha: float | None = None
+    binding: bool | None = None
+    srm_threshold: float = 0.001
 
     @property
     def metric(self) -> str:
         """The metric kind (name of the first release)."""
         return self.metric_kind
 
+    @property
+    def sample_ratio_mismatch(self) -> list[int]:
+        """Looks (1-based) whose arm sizes fail the sample-ratio check."""
+        return [x.look for x in self.looks
+                if x.srm_p_value is not None and x.srm_p_value < self.srm_threshold]
+
     def to_dict(self) -> dict:
-        """Plain JSON types (``inf`` and ``nan`` become ``None``)."""
-        return jsonable.plain(self)
+        """Plain JSON types (``inf`` and ``nan`` become ``None``), with the looks that
+        fail the sample-ratio check (``sample_ratio_mismatch``) and the plain-language
+        summary (``summary``: the text of :func:`seqtest.reporting.summarize`)."""
+        from seqtest.reporting.summary import summarize
+        out = jsonable.plain(self)
+        out["sample_ratio_mismatch"] = self.sample_ratio_mismatch
+        out["summary"] = summarize(out).text
+        return out
+
+    def summary(self, *, noun: str | None = None) -> str:
+        """The decision in plain language, with the warnings and the caution (see
+        :func:`seqtest.reporting.summarize`; ``noun`` names the metric, e.g.
+        ``"the conversion rate"``)."""
+        from seqtest.reporting.summary import summarize
+        return summarize(self, noun=noun).full_text()
+
+    def _repr_html_(self) -> str:
+        """The notebook display: the summary, the looks table and the caution."""
+        from seqtest.reporting.html import analysis_html
+        return analysis_html(self)
 
     def table(self) -> Any:
         """The look-by-look table as a pandas DataFrame."""
@@ -231,6 +267,7 @@ def analyze(
     if fraction is not None:
         fraction_basis = fraction
     checks.choice("fraction_basis", fraction_basis, FRACTION_BASES)
+    srm_threshold = checks.probability("srm_threshold", srm_threshold)
     if daily_traffic is not None:
         daily_traffic = checks.number("daily_traffic", daily_traffic, lo=0.0, lo_open=True,
                                       allowed="a positive number of users per day")
@@ -271,7 +308,15 @@ def analyze(
                     looks=records, final=fin, projection=proj, warnings=warnings,
                     metric_kind=kind, scale=scale,
                     test_scale=table.test_scale or eff.test_scale,
-                    plan_kind=rule.kind)
+                    plan_kind=rule.kind, sides=int(plan.sides), alpha=float(plan.alpha),
+                    binding=_binding(plan), srm_threshold=srm_threshold)
+
+
+def _binding(plan: Any) -> bool | None:
+    """Whether the plan's futility boundary binds (None: it has none)."""
+    if getattr(plan, "futility", None) is None:
+        return None
+    return bool(plan.binding)
 
 
 def _rule(plan: Any, pm: dict, max_n: float | None, fraction_basis: str) -> Any:

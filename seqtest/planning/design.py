@@ -300,6 +300,17 @@ class Plan:
 
     __hash__ = None  # type: ignore[assignment]
 
+    # -- display ---------------------------------------------------------------------
+    def summary(self) -> str:
+        """The plan in a few plain lines (see :func:`seqtest.reporting.plan_summary`)."""
+        from seqtest.reporting.summary import plan_summary
+        return plan_summary(self)
+
+    def _repr_html_(self) -> str:
+        """The notebook display: the summary and the table of looks with users per arm."""
+        from seqtest.reporting.html import plan_html
+        return plan_html(self)
+
     # -- documents -------------------------------------------------------------------
     def to_dict(self) -> dict:
         """The plan document: plain JSON types; :func:`seqtest.plan_from_dict` reads it

@@ -127,6 +127,16 @@ class MixturePlan:
     def kind(self) -> str:
         return PLAN_KIND
 
+    def summary(self) -> str:
+        """The plan in a few plain lines (see :func:`seqtest.reporting.plan_summary`)."""
+        from seqtest.reporting.summary import plan_summary
+        return plan_summary(self)
+
+    def _repr_html_(self) -> str:
+        """The notebook display: the plan's summary and the caution."""
+        from seqtest.reporting.html import plan_html
+        return plan_html(self)
+
     def to_dict(self) -> dict:
         """The plan as plain JSON types; :func:`seqtest.plan_from_dict` reads it back."""
         return {
