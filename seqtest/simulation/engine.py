@@ -88,6 +88,7 @@ from seqtest.planning.design import Plan
 from seqtest.planning.documents import plan_from_dict
 from seqtest.simulation import DEFAULT_CHUNK
 from seqtest.simulation.scenarios import Scenario
+from seqtest.simulation.screen import settle
 
 __all__ = [
     "OUTCOMES",
@@ -254,8 +255,13 @@ class SimulationResult:
         The maximum total sample (denominator of the information fraction).
     naive : NaiveSummary or None
     boundary_calls : int
-        Boundary computations (distinct fraction patterns; see
+        Distinct fraction patterns among the replicates (one per chunk for fixed
+        traffic): the boundary computations of a run without the screen (see
         :meth:`seqtest.monitoring.rules.GroupSequentialRule.boundaries`).
+    boundaries_computed : int
+        Boundary computations actually made: fewer than `boundary_calls` when the
+        exact screen (:mod:`seqtest.simulation.screen`) settled replicates without
+        their boundaries. The only number that depends on the screen.
     paths : dict or None
         Per-replicate arrays when ``keep_paths=True`` (not in :meth:`to_dict`).
     """
@@ -294,6 +300,7 @@ class SimulationResult:
     max_total: float
     naive: NaiveSummary | None
     boundary_calls: int
+    boundaries_computed: int
     paths: dict | None = field(default=None, repr=False, compare=False)
 
     @property
@@ -355,6 +362,7 @@ class SimulationResult:
             "max_total": num(self.max_total),
             "expected_fraction": num(self.expected_total / self.max_total),
             "boundary_calls": self.boundary_calls,
+            "boundaries_computed": self.boundaries_computed,
             "looks": looks,
             "naive": None,
         }
@@ -446,6 +454,7 @@ class _Job:
     seed: int
     chunk: int
     keep_paths: bool
+    screen: bool = False  # settle replicates by the exact screen (random traffic)
 
 
 def _plan_metric(plan: Any) -> dict | None:
@@ -585,7 +594,8 @@ def _schedule(plan: Any, sc: Scenario) -> np.ndarray:
     return times
 
 
-def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool) -> _Job:
+def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool,
+         screen: bool = True) -> _Job:
     if isinstance(plan, dict):
         plan = plan_from_dict(plan)
     mixture = not isinstance(plan, Plan)
@@ -620,6 +630,10 @@ def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool) -> _J
                          "its efficacy boundaries are valid only when futility stops are "
                          "obeyed; use futility = \"obey\"")
     sides = int(plan.sides)
+    # the screen needs per-replicate boundaries to save (random traffic) and no
+    # futility boundary in play (a futility stop needs the boundary itself)
+    use_screen = bool(screen and not mixture and fixed is None
+                      and (plan.futility_z is None or not fut_obey))
     return _Job(
         plan=plan, mixture=mixture, kind=kind, scale=scale, sides=sides,
         alpha=float(plan.alpha), data_kind=sc.data_kind, control=ctrl, treatment=trt,
@@ -627,7 +641,7 @@ def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool) -> _J
         mode=sc.traffic.mode, fixed_counts=fixed, days=sc.traffic.days, cv=sc.traffic.cv,
         cap=sc.traffic.cap, at_max=sc.traffic.final == "at_max", obey=fut_obey,
         naive_z=float(-special.ndtri(plan.alpha / sides)), seed=int(seed), chunk=chunk,
-        keep_paths=keep_paths)
+        keep_paths=keep_paths, screen=use_screen)
 
 
 # ---------------------------------------------------------------------------
@@ -772,6 +786,7 @@ class _Chunk:
     frac_sum: np.ndarray
     frac_count: np.ndarray
     calls: int
+    computed: int
     paths: dict | None = None
 
 
@@ -815,15 +830,47 @@ def _never(sides: int) -> float:
     return 0.0 if sides == 2 else -np.inf
 
 
-def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray
+def _pattern_keys(valid: np.ndarray, frac: np.ndarray, end: np.ndarray) -> np.ndarray:
+    """One row per replicate naming its boundary computation: the fractions of its
+    analysed looks, -1 at looks not analysed, -2 after its last look."""
+    look = np.arange(frac.shape[1])[None, :]
+    key = np.where(valid, frac, -1.0)
+    return np.where(look < end[:, None], key, -2.0)
+
+
+def _distinct_rows(key: np.ndarray) -> int:
+    """Number of distinct rows (exact): rows are hashed, sorted by hash, and rows with
+    equal hashes compared in full; a collision falls back to ``np.unique``."""
+    n = key.shape[0]
+    if n <= 1:
+        return n
+    bits = np.ascontiguousarray(key, dtype=np.float64).view(np.uint64)
+    h = np.zeros(n, dtype=np.uint64)
+    mult = np.uint64(0x9E3779B97F4A7C15)
+    with np.errstate(over="ignore"):
+        for j in range(bits.shape[1]):
+            h = (h ^ bits[:, j]) * mult
+            h ^= h >> np.uint64(29)
+    order = np.argsort(h, kind="stable")
+    same_hash = h[order[1:]] == h[order[:-1]]
+    if not same_hash.any():
+        return n
+    sorted_rows = key[order]
+    same_row = np.all(sorted_rows[1:] == sorted_rows[:-1], axis=1)
+    if np.any(same_hash & ~same_row):
+        return int(np.unique(key, axis=0).shape[0])
+    return int(n - np.count_nonzero(same_row))
+
+
+def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray,
+                tick: Callable[[int, int], None] | None = None
                 ) -> tuple[np.ndarray, np.ndarray | None, int]:
-    """Per-replicate boundaries from bounds_at, once per distinct fraction pattern."""
+    """Per-replicate boundaries from the rule, once per distinct fraction pattern;
+    ``tick(done, patterns)`` after each computation."""
     n, k = frac.shape
     plan = job.plan
     rule = GroupSequentialRule(plan)
-    look = np.arange(k)[None, :]
-    key = np.where(valid, frac, -1.0)
-    key = np.where(look < end[:, None], key, -2.0)
+    key = _pattern_keys(valid, frac, end)
     if job.fixed_counts is not None:
         uniq, inv = key[:1], np.zeros(n, dtype=np.intp)
     else:
@@ -834,13 +881,41 @@ def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray
     b_u = np.full(uniq.shape, _never(job.sides)) if has_fut else None
     for i, row in enumerate(uniq):
         v = row >= 0
-        if not v.any():
-            continue
-        a, b = rule.boundaries(row[v], final=True)
-        a_u[i, v] = a
-        if b_u is not None and b is not None:
-            b_u[i, v] = b
+        if v.any():
+            a, b = rule.boundaries(row[v], final=True)
+            a_u[i, v] = a
+            if b_u is not None and b is not None:
+                b_u[i, v] = b
+        if tick is not None:
+            tick(i + 1, len(uniq))
     return a_u[inv], (None if b_u is None else b_u[inv]), len(uniq)
+
+
+def _screened(job: _Job, z: np.ndarray, valid: np.ndarray, frac: np.ndarray,
+              end: np.ndarray, tick: Callable[[int, int], None] | None = None
+              ) -> tuple[np.ndarray, np.ndarray, int]:
+    """Decisions through the exact screen: replicates it settles need no boundaries,
+    the rest get theirs from the rule (see :mod:`seqtest.simulation.screen`)."""
+    rule = GroupSequentialRule(job.plan)
+    k = frac.shape[1]
+    a_tail = job.alpha / job.sides
+    # the rule's own spending (a classical plan's: its design's cumulative alpha)
+    cum = np.asarray(rule._spending(np.minimum(frac, 1.0), a_tail), float).reshape(frac.shape)
+    look = np.arange(k)[None, :]
+    seen = valid & (look < end[:, None])
+    last = np.where(seen.any(axis=1), k - 1 - np.argmax(seen[:, ::-1], axis=1), -1)
+    cum = np.where(look == last[:, None], a_tail, cum)    # the final look spends the rest
+    stat = np.abs(z) if job.sides == 2 else z
+    res = settle(stat, seen, frac, cum, end, job.sides)
+    stop, code = res.stop.copy(), res.code.copy()
+    rest = np.flatnonzero(~res.settled)
+    computed = 0
+    if rest.size:
+        a, b, computed = _boundaries(job, valid[rest], frac[rest], end[rest], tick)
+        s_, c_ = _decide_groups(z[rest], a, b, end[rest], job.sides, job.obey)
+        stop[rest] = s_
+        code[rest] = c_
+    return stop, code, computed
 
 
 def _decide_groups(z: np.ndarray, a: np.ndarray, b: np.ndarray | None, end: np.ndarray,
@@ -879,7 +954,7 @@ def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
     z = np.where(valid, eff.z, 0.0)
     rows = np.arange(n)
     last = end - 1
-    calls = 0
+    calls = computed = 0
     if job.mixture:
         se = np.where(valid, eff.se, np.inf)
         est = np.where(valid & np.isfinite(se), eff.estimate, 0.0)
@@ -891,8 +966,13 @@ def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
         code = np.where((first >= 0) & (first == stop), Decision.STOP_EFFICACY.code,
                         Decision.COMPLETE.code).astype(np.int8)
         up = np.asarray(res.direction_sign) > 0
+    elif job.screen:
+        stop, code, computed = _screened(job, z, valid, frac, end)
+        calls = _distinct_rows(_pattern_keys(valid, frac, end))
+        up = z[rows, stop] > 0
     else:
         a, b, calls = _boundaries(job, valid, frac, end)
+        computed = calls
         stop, code = _decide_groups(z, a, b, end, job.sides, job.obey)
         up = z[rows, stop] > 0
     stops = _tally(k, stop, code, up)
@@ -912,7 +992,8 @@ def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
     return _Chunk(stops=stops, naive_stops=naive_stops, total=int(total.sum()),
                   total_sq=int((total * total).sum()), naive_total=int(naive_total.sum()),
                   frac_sum=np.where(seen, frac, 0.0).sum(axis=0),
-                  frac_count=seen.sum(axis=0), calls=calls, paths=paths)
+                  frac_count=seen.sum(axis=0), calls=calls, computed=computed,
+                  paths=paths)
 
 
 # ---------------------------------------------------------------------------
@@ -984,6 +1065,7 @@ def simulate(
     progress: Callable[[int, int], None] | None = None,
     executor: Executor | None = None,
     keep_paths: bool = False,
+    screen: bool = True,
 ) -> SimulationResult:
     """Simulate ``reps`` experiments of a scenario under a plan.
 
@@ -1013,6 +1095,12 @@ def simulate(
     keep_paths : bool
         Keep the per-replicate arrays in :attr:`SimulationResult.paths` (for
         checks on small runs).
+    screen : bool
+        Settle replicates whose decision is certain without their own boundaries
+        (random traffic, futility absent or ignored; see
+        :mod:`seqtest.simulation.screen`). The decisions and every number except
+        :attr:`SimulationResult.boundaries_computed` are the same either way; False
+        computes every boundary (for checks).
 
     Returns
     -------
@@ -1046,7 +1134,7 @@ def simulate(
         raise ValueError(f"confidence: got {confidence!r}; allowed is a level in (0, 1)")
     if isinstance(plan, dict):
         plan = plan_from_dict(plan)
-    job0 = _job(plan, scenario, int(seed), 0, keep_paths)
+    job0 = _job(plan, scenario, int(seed), 0, keep_paths, bool(screen))
     k = job0.times.size
     chunk = _chunk_size(k, int(chunk_size))
     job = replace(job0, chunk=chunk)
@@ -1087,7 +1175,7 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
     naive = np.zeros((k, 4), dtype=np.int64)
     frac_sum = np.zeros(k)
     frac_count = np.zeros(k, dtype=np.int64)
-    total = total_sq = naive_total = calls = 0
+    total = total_sq = naive_total = calls = computed = 0
     for c in chunks:                      # in chunk order: bit-for-bit reproducible
         stops += c.stops
         naive += c.naive_stops
@@ -1097,6 +1185,7 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
         total_sq += c.total_sq
         naive_total += c.naive_total
         calls += c.calls
+        computed += c.computed
     rej_up, rej_down = int(stops[:, 0].sum()), int(stops[:, 1].sum())
     rej = rej_up + rej_down
     lo, hi = clopper_pearson(rej, reps, confidence)
@@ -1130,7 +1219,7 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
         look_times=job.times.copy(),
         mean_fraction=mean_frac, stops=stops, expected_total=mean_total,
         expected_total_se=math.sqrt(var / reps), max_total=float(job.n_max), naive=nv,
-        boundary_calls=calls, paths=paths)
+        boundary_calls=calls, boundaries_computed=computed, paths=paths)
 
 
 def _join_paths(parts: list[dict | None]) -> dict:
