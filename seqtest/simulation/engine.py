@@ -72,7 +72,7 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Callable
-from concurrent.futures import Executor, ProcessPoolExecutor
+from concurrent.futures import Executor
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -87,15 +87,18 @@ from seqtest.monitoring.rules import GroupSequentialRule
 from seqtest.planning.design import Plan
 from seqtest.planning.documents import plan_from_dict
 from seqtest.simulation import DEFAULT_CHUNK
+from seqtest.simulation.runner import Batch, Runner
 from seqtest.simulation.scenarios import Scenario
 from seqtest.simulation.screen import settle
 
 __all__ = [
     "OUTCOMES",
     "NaiveSummary",
+    "Prepared",
     "SimulationResult",
     "clopper_pearson",
     "plot_result",
+    "prepare",
     "simulate",
 ]
 
@@ -707,9 +710,11 @@ def _increments(cum: np.ndarray) -> np.ndarray:
     return np.diff(cum, axis=1, prepend=0)
 
 
-def _lognormal_sums(rng: np.random.Generator, m: np.ndarray, p: dict
+def _lognormal_sums(rng: np.random.Generator, m: np.ndarray, p: dict,
+                    tick: Callable[[float], None] | None = None
                     ) -> tuple[np.ndarray, np.ndarray]:
-    """Sums of values and of squares of ``m`` zero-inflated log-normal values each."""
+    """Sums of values and of squares of ``m`` zero-inflated log-normal values each
+    (``tick(share)`` after each block of values)."""
     z = p["zero_share"]
     b = m if z == 0 else rng.binomial(m, 1.0 - z)
     b = np.ascontiguousarray(b, dtype=np.int64).ravel()
@@ -733,10 +738,13 @@ def _lognormal_sums(rng: np.random.Generator, m: np.ndarray, p: dict
             np.multiply(x, x, out=x)
             s2[i:stop][nz] = np.add.reduceat(x, offs)
         i = stop
+        if tick is not None:
+            tick(i / b.size)
     return s1.reshape(m.shape), s2.reshape(m.shape)
 
 
-def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict) -> dict:
+def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict,
+                tick: Callable[[float], None] | None = None) -> dict:
     m = np.ascontiguousarray(np.broadcast_to(_increments(cum), cum.shape))
     kind = job.data_kind
     if kind == "binary":
@@ -758,16 +766,27 @@ def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict) -
         s1 = m * mean
         s2 = ss + m * mean * mean
     else:
-        s1, s2 = _lognormal_sums(rng, m, p)
+        s1, s2 = _lognormal_sums(rng, m, p, tick)
     return {"n": cum, "sum": np.cumsum(s1, axis=1), "sum_sq": np.cumsum(s2, axis=1)}
 
 
-def _draw_chunk(job: _Job, index: int, n: int) -> tuple:
-    """The random part of a chunk: per-arm counts, totals and the looks that happen."""
+def _draw_chunk(job: _Job, index: int, n: int,
+                report: Callable[[float], None] | None = None) -> tuple:
+    """The random part of a chunk: per-arm counts, totals and the looks that happen;
+    ``report(share)`` of the chunk's work as the draws go (up to 0.45)."""
     rng = _rng(job, index)
     n_c, n_t, end = _draw_counts(job, rng, n)
-    ctrl = _arm_totals(job, rng, n_c, job.control)
-    trt = _arm_totals(job, rng, n_t, job.treatment)
+    tick_c = tick_t = None
+    if report is not None:
+        report(0.05)
+        tick_c = lambda f: report(0.05 + 0.2 * f)          # noqa: E731
+        tick_t = lambda f: report(0.25 + 0.2 * f)          # noqa: E731
+    ctrl = _arm_totals(job, rng, n_c, job.control, tick_c)
+    if report is not None:
+        report(0.25)
+    trt = _arm_totals(job, rng, n_t, job.treatment, tick_t)
+    if report is not None:
+        report(0.45)
     return n_c, n_t, end, ctrl, trt
 
 
@@ -945,8 +964,14 @@ def _tally(k: int, stop: np.ndarray, code: np.ndarray, up: np.ndarray) -> np.nda
     return out
 
 
-def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
-    n_c, n_t, end, ctrl, trt = _draw_chunk(job, index, n)
+def _run_chunk(job: _Job, index: int, n: int,
+               report: Callable[[float], None] | None = None) -> _Chunk:
+    """Simulate chunk ``index`` of ``n`` replicates; ``report(share)`` tells how far it
+    got (never touching the random numbers)."""
+    n_c, n_t, end, ctrl, trt = _draw_chunk(job, index, n, report)
+    tick = None
+    if report is not None:
+        tick = lambda i, m: report(0.5 + 0.45 * i / max(m, 1))   # noqa: E731
     k = job.times.size
     valid, frac, end = _valid_looks(job, n_c, n_t, end)
     eff = metrics.effect(job.kind, _safe_totals(job, ctrl, valid),
@@ -967,11 +992,11 @@ def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
                         Decision.COMPLETE.code).astype(np.int8)
         up = np.asarray(res.direction_sign) > 0
     elif job.screen:
-        stop, code, computed = _screened(job, z, valid, frac, end)
+        stop, code, computed = _screened(job, z, valid, frac, end, tick)
         calls = _distinct_rows(_pattern_keys(valid, frac, end))
         up = z[rows, stop] > 0
     else:
-        a, b, calls = _boundaries(job, valid, frac, end)
+        a, b, calls = _boundaries(job, valid, frac, end, tick)
         computed = calls
         stop, code = _decide_groups(z, a, b, end, job.sides, job.obey)
         up = z[rows, stop] > 0
@@ -1066,6 +1091,7 @@ def simulate(
     executor: Executor | None = None,
     keep_paths: bool = False,
     screen: bool = True,
+    client: Any = None,
 ) -> SimulationResult:
     """Simulate ``reps`` experiments of a scenario under a plan.
 
@@ -1082,16 +1108,22 @@ def simulate(
     seed : int
         Seed (>= 0) of the whole run.
     workers : int or None
-        Processes to use; ``None`` or 0: all cores. Results do not depend on it.
+        Local processes to use; ``None`` or 0: all cores. Results do not depend on it.
     chunk_size : int
         Replicates per chunk (capped so a chunk holds at most 1e6 replicate-looks);
         part of what makes a run reproducible.
     confidence : float
         Level of the Clopper-Pearson intervals.
     progress : callable, optional
-        Called as ``progress(done, total)`` (replicates) after each chunk.
+        Called as ``progress(done, total)`` (replicates) after each chunk and, within
+        a chunk, at most every quarter second of its running time (draws, boundary
+        computations); how often it is called never changes the result.
     executor : concurrent.futures.Executor, optional
-        Run the chunks on this executor (overrides `workers`).
+        Run the chunks on this executor (overrides `workers`; progress per chunk).
+    client : distributed.Client, optional
+        Run the chunks as tasks on this Dask cluster (overrides `workers` and
+        `executor`; see :func:`seqtest.simulation.runner.dask_client`). The result is
+        the same, bit for bit.
     keep_paths : bool
         Keep the per-replicate arrays in :attr:`SimulationResult.paths` (for
         checks on small runs).
@@ -1119,6 +1151,51 @@ def simulate(
     (Clopper-Pearson) interval; the expected total its standard error
     ``sqrt(var / reps)`` with the sample variance of the totals.
     """
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
+                                or workers < 0):
+        raise ValueError(f"workers: got {workers!r}; allowed is a whole number >= 0 "
+                         "(0 or None: all cores)")
+    prep = prepare(plan, scenario, reps, seed=seed, chunk_size=chunk_size,
+                   confidence=confidence, keep_paths=keep_paths, screen=screen)
+    n_workers = workers if workers else (os.cpu_count() or 1)
+    runner = Runner(workers=n_workers, executor=executor, client=client)
+    total = prep.reps
+    moved = None if progress is None else (lambda _b, done: progress(done, total))
+    chunks = runner.run([prep.batch], progress=moved)[0]
+    assert chunks is not None
+    return prep.result(chunks)
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """A checked simulation ready to run: its chunks (:attr:`batch`, for
+    :class:`~seqtest.simulation.runner.Runner`) and how their results combine
+    (:meth:`result`). Several prepared simulations can share one runner, so the chunks
+    of many (a validation grid) keep every worker busy."""
+
+    plan: Any
+    scenario: Scenario
+    job: _Job
+    reps: int
+    confidence: float
+
+    @property
+    def batch(self) -> Batch:
+        chunk = self.job.chunk
+        return Batch(self.job, tuple(min(chunk, self.reps - s)
+                                     for s in range(0, self.reps, chunk)))
+
+    def result(self, chunks: list) -> SimulationResult:
+        """The result from the chunks' results in chunk order."""
+        return _combine(self.plan, self.scenario, self.job, self.reps, self.confidence,
+                        chunks)
+
+
+def prepare(plan: Any, scenario: Scenario, reps: int, *, seed: int = 0,
+            chunk_size: int = DEFAULT_CHUNK, confidence: float = 0.95,
+            keep_paths: bool = False, screen: bool = True) -> Prepared:
+    """Check the arguments of :func:`simulate` and set the run up without running it
+    (the same arguments; raises the same errors)."""
     if isinstance(reps, bool) or not isinstance(reps, (int, np.integer)) or reps < 1:
         raise ValueError(f"reps: got {reps!r}; allowed is a whole number >= 1")
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
@@ -1126,46 +1203,13 @@ def simulate(
     if isinstance(chunk_size, bool) or not isinstance(chunk_size, (int, np.integer)) \
             or chunk_size < 1:
         raise ValueError(f"chunk_size: got {chunk_size!r}; allowed is a whole number >= 1")
-    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
-                                or workers < 0):
-        raise ValueError(f"workers: got {workers!r}; allowed is a whole number >= 0 "
-                         "(0 or None: all cores)")
     if not 0 < float(confidence) < 1:
         raise ValueError(f"confidence: got {confidence!r}; allowed is a level in (0, 1)")
     if isinstance(plan, dict):
         plan = plan_from_dict(plan)
     job0 = _job(plan, scenario, int(seed), 0, keep_paths, bool(screen))
-    k = job0.times.size
-    chunk = _chunk_size(k, int(chunk_size))
-    job = replace(job0, chunk=chunk)
-    reps = int(reps)
-    sizes = [min(chunk, reps - s) for s in range(0, reps, chunk)]
-    results: list[_Chunk | None] = [None] * len(sizes)
-    done = 0
-    n_workers = workers if workers else (os.cpu_count() or 1)
-    own = None
-    if executor is None and n_workers > 1 and len(sizes) > 1:
-        own = executor = ProcessPoolExecutor(max_workers=min(n_workers, len(sizes)))
-    try:
-        if executor is None:
-            for i, n in enumerate(sizes):
-                results[i] = _run_chunk(job, i, n)
-                done += n
-                if progress is not None:
-                    progress(done, reps)
-        else:
-            from concurrent.futures import as_completed
-            futures = {executor.submit(_run_chunk, job, i, n): i for i, n in enumerate(sizes)}
-            for fut in as_completed(futures):
-                i = futures[fut]
-                results[i] = fut.result()
-                done += sizes[i]
-                if progress is not None:
-                    progress(done, reps)
-    finally:
-        if own is not None:
-            own.shutdown(cancel_futures=True)
-    return _combine(plan, scenario, job, reps, float(confidence), results)  # type: ignore[arg-type]
+    chunk = _chunk_size(job0.times.size, int(chunk_size))
+    return Prepared(plan, scenario, replace(job0, chunk=chunk), int(reps), float(confidence))
 
 
 def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
