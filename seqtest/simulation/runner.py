@@ -218,6 +218,7 @@ class Runner:
         remaining = [len(b.sizes) for b in batches]
         finished_units = [0] * len(batches)
         partial: dict[str, int] = {}
+        finished: set[str] = set()
         where: dict[str, tuple[int, int]] = {}
         pending = [(b, i) for b, batch in enumerate(batches) for i in range(len(batch.sizes))]
         pending.reverse()
@@ -241,13 +242,16 @@ class Runner:
                     where[token_of(b, i)] = (b, i)
                 moved = set()
                 for token, units in drain(_POLL):
-                    if token in where and units > partial.get(token, 0):
+                    # a report can arrive after its chunk finished: ignore it then
+                    if token in where and token not in finished \
+                            and units > partial.get(token, 0):
                         partial[token] = units
                         moved.add(where[token][0])
                 for fut in [f for f in inflight if f.done()]:
                     b, i = inflight.pop(fut)
                     results[b][i] = fut.result()
                     partial.pop(token_of(b, i), None)
+                    finished.add(token_of(b, i))
                     finished_units[b] += batches[b].sizes[i]
                     remaining[b] -= 1
                     moved.add(b)
