@@ -34,8 +34,9 @@ RANDOM = {"mode": "random", "days": 21, "cv": 0.4, "cap": True, "final": "at_max
 
 # The bounds must hold against the computed boundaries to well within the screen's
 # margin at each look (a fifth of it): the margin has to cover the error of the
-# computed boundaries, measured against quadrature at about 1e-4 while consecutive
-# looks keep t_{k-1} / t_k <= 0.95 and up to about 6e-3 after a closer pair.
+# computed boundaries, measured against the exact two-look boundary at up to 7e-5
+# while consecutive looks keep t_{k-1} / t_k <= 0.95 (margin 5e-4), 1.3e-3 up to 0.99
+# (margin 0.01) and 5e-3 beyond (margin 0.05).
 TOL_SHARE = 0.2
 
 

@@ -13,9 +13,13 @@ n_treatment) / max_n`` exactly as :func:`seqtest.monitoring.analysis.analyze` me
 it; the boundaries come from
 :meth:`seqtest.monitoring.rules.GroupSequentialRule.boundaries` on those observed
 fractions, computed exactly once per distinct pattern of fractions in each chunk (one
-call per chunk for fixed traffic; one per replicate, less the repeats, for random
-traffic; fractions are never rounded to share boundaries); the stop is
-:meth:`seqtest.core.region.Region.classify` and :func:`seqtest.core.region.first_stop`.
+call per chunk for fixed traffic; fractions are never rounded to share boundaries);
+the stop is :meth:`seqtest.core.region.Region.classify` and
+:func:`seqtest.core.region.first_stop`. With random traffic every replicate has its own
+fractions; the exact screen of :mod:`seqtest.simulation.screen` settles the replicates
+whose decision provable bounds on their boundaries make certain (nearly all of them
+when futility is absent or ignored), and only the rest get their boundaries, so the
+decisions are those of the exact boundaries at a fraction of the cost.
 Mixture (continuous-monitoring) plans go through
 :func:`seqtest.core.normal_mixture.always_valid`, with the looks that are not analysed
 masked.
@@ -51,7 +55,9 @@ fraction reaches 1 is the final one; the last analysed look is declared final
 Reproducibility: replicates are simulated in chunks of a fixed size; chunk ``i``
 draws from ``numpy.random.default_rng(SeedSequence(seed, spawn_key=(i,)))``, so a
 run is reproducible bit for bit from ``(plan, scenario, reps, seed, chunk_size)``
-whatever the number of workers, and totals are summed in chunk order in integers.
+whatever runs the chunks (this process, local processes, a Dask cluster: see
+:mod:`seqtest.simulation.runner`) and however many workers, and totals are summed in
+chunk order in integers.
 
 Monte Carlo accuracy: the rejection count is binomial, so its exact (Clopper-Pearson)
 interval is reported (``scipy.stats.binomtest(k, n).proportion_ci(method="exact")``);

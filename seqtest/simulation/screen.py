@@ -59,13 +59,13 @@ lower bound until one is above an upper bound (it stops for efficacy there) or n
 (it completes at its last look). Decisions keep a margin ``MARGIN`` on the z scale,
 which covers the accuracy of the computed boundaries and rounding, so that a settled
 decision is the one the computed boundaries give as well as the exact one. Measured
-against independent quadrature (``tests/test_simulate_screen.py``), the computed
-boundaries are within about 1e-4 while consecutive looks keep ``t_{k-1} / t_k <=
-0.95`` (``MARGIN`` = 5e-4), but off by up to about 6e-3 at a look that follows the
-previous one closely and at the looks after it (``MARGIN_CLOSE`` = 0.05 from the first
-such pair on). Statistics beyond ``Z_CAP`` are never settled (there a boundary depends
-on alpha spent below 1e-13, where rounding of the spending could decide). Everything
-else gets its exact boundaries.
+against the exact two-look boundary (Owen's formula below, checked against quadrature),
+the computed boundaries are within 7e-5 while consecutive looks keep ``t_{k-1} / t_k
+<= 0.95`` (``MARGIN`` = 5e-4), within 1.3e-3 up to a ratio of 0.99 and 5e-3 beyond,
+at the close look and (less) at the looks after it; ``CLOSE_MARGINS`` widens the
+margin to 0.01 and 0.05 from the first such pair on. Statistics beyond ``Z_CAP`` are
+never settled (there a boundary depends on alpha spent below 1e-13, where rounding of
+the spending could decide). Everything else gets its exact boundaries.
 
 Futility: a futility stop needs the futility boundary itself, and a binding futility
 boundary lowers the efficacy boundary below these bounds (paths stopped at futility no
@@ -99,10 +99,9 @@ __all__ = ["MARGIN", "Z_CAP", "Settled", "bvn_upper", "chain_upper", "settle", "
 
 #: Margin on the z scale between a statistic and a bound before a look is settled.
 MARGIN = 5e-4
-#: The margin from the first pair of analysed looks closer than CLOSE_RATIO on.
-MARGIN_CLOSE = 0.05
-#: Looks with ``t_{k-1} / t_k`` above this are "close".
-CLOSE_RATIO = 0.95
+#: Wider margins from the first pair of analysed looks closer than a ratio on:
+#: ``(ratio of t_{k-1} / t_k above which, margin)``, the closest pair so far counts.
+CLOSE_MARGINS = ((0.95, 0.01), (0.99, 0.05))
 #: Statistics at or beyond this are never settled by the screen.
 Z_CAP = 7.5
 # a threshold beyond this is replaced by infinity in the upper chain (loses < 1e-16)
@@ -221,8 +220,8 @@ def settle(stat: np.ndarray, valid: np.ndarray, frac: np.ndarray, cum: np.ndarra
         Number of looks of each replicate; its last look is ``end - 1``.
     sides : {1, 2}
     margin : float
-        Distance kept from each bound on the z scale (``MARGIN_CLOSE`` after close
-        looks, if larger).
+        Distance kept from each bound on the z scale (wider after close looks:
+        ``CLOSE_MARGINS``).
 
     Returns
     -------
@@ -265,17 +264,19 @@ def settle(stat: np.ndarray, valid: np.ndarray, frac: np.ndarray, cum: np.ndarra
 
 
 def _margins(frac: np.ndarray, valid: np.ndarray, margin: float) -> np.ndarray:
-    """Per look: ``margin``, or ``MARGIN_CLOSE`` (if larger) from the first analysed look
-    that follows the previous analysed one closely (``t_{k-1} / t_k > CLOSE_RATIO``)."""
+    """Per look: ``margin``, widened by ``CLOSE_MARGINS`` from the first analysed look
+    that follows the previous analysed one closely (the closest pair so far counts)."""
     n, k = frac.shape
     out = np.full((n, k), float(margin))
     prev = np.full(n, np.nan)
-    close = np.zeros(n, bool)
+    closest = np.zeros(n)
     for j in range(k):
         v = valid[:, j]
         with np.errstate(invalid="ignore"):
-            close |= v & (prev / frac[:, j] > CLOSE_RATIO)
-        out[close, j] = max(float(margin), MARGIN_CLOSE)
+            ratio = np.where(v & np.isfinite(prev), prev / frac[:, j], 0.0)
+        closest = np.maximum(closest, ratio)
+        for above, wide in CLOSE_MARGINS:
+            out[closest > above, j] = max(float(margin), wide)
         prev = np.where(v, frac[:, j], prev)
     return out
 
