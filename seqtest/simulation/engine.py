@@ -1188,8 +1188,8 @@ class Prepared:
     @property
     def batch(self) -> Batch:
         chunk = self.job.chunk
-        return Batch(self.job, tuple(min(chunk, self.reps - s)
-                                     for s in range(0, self.reps, chunk)))
+        return Batch(_run_chunk, self.job, tuple(min(chunk, self.reps - s)
+                                                 for s in range(0, self.reps, chunk)))
 
     def result(self, chunks: list) -> SimulationResult:
         """The result from the chunks' results in chunk order."""

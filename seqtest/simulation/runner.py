@@ -1,11 +1,12 @@
 """Where the chunks of simulations run: in this process, on local processes, or as
 tasks on a Dask cluster, with progress from inside the chunks.
 
-A *batch* is one simulation: a job (everything a worker needs) and the sizes of its
-chunks. :class:`Runner` runs the chunks of one or more batches on its backend and
-hands back each batch's chunk results in chunk order, so a simulation's totals are
-summed in the same order whatever the backend, the number of workers or the order in
-which chunks finish: results are identical bit for bit.
+A *batch* is one simulation: the function that runs a chunk, its job (everything a
+worker needs) and the sizes of its chunks. :class:`Runner` runs the chunks of one or
+more batches on its backend and hands back each batch's chunk results in chunk order,
+so a simulation's totals are summed in the same order whatever the backend, the
+number of workers or the order in which chunks finish: results are identical bit for
+bit.
 
 Backends
 --------
@@ -46,8 +47,11 @@ _POLL = 0.05
 
 @dataclass(frozen=True)
 class Batch:
-    """The chunks of one simulation: its job and the replicates of each chunk."""
+    """The chunks of one simulation: ``run(job, index, size, report)`` runs chunk
+    ``index`` (a module-level function, so that it travels to workers by name), the
+    job, and the replicates of each chunk."""
 
+    run: Callable[..., Any]
     job: Any
     sizes: tuple[int, ...]
 
@@ -85,24 +89,21 @@ def _set_queue(q: Any) -> None:            # process-pool initializer
     _QUEUE = q
 
 
-def _chunk_local(job: Any, index: int, size: int, token: str | None) -> Any:
-    from seqtest.simulation.engine import _run_chunk
-
+def _chunk_local(run: Callable[..., Any], job: Any, index: int, size: int,
+                 token: str | None) -> Any:
     report = None
     if token is not None and _QUEUE is not None:
         q = _QUEUE
         report = _Reporter(lambda units: q.put((token, units)), size)
-    return _run_chunk(job, index, size, report)
+    return run(job, index, size, report)
 
 
-def _chunk_dask(job: Any, index: int, size: int, token: str) -> Any:
+def _chunk_dask(run: Callable[..., Any], job: Any, index: int, size: int, token: str) -> Any:
     from distributed import get_worker
-
-    from seqtest.simulation.engine import _run_chunk
 
     worker = get_worker()
     report = _Reporter(lambda units: worker.log_event(_TOPIC, (token, units)), size)
-    return _run_chunk(job, index, size, report)
+    return run(job, index, size, report)
 
 
 def _shifted(progress: Callable[[int, int], None], b: int, base: int
@@ -187,8 +188,6 @@ class Runner:
     # -- in this process ---------------------------------------------------------------
     def _run_serial(self, batches: Sequence[Batch], progress: Any, done: Any, start: Any
                     ) -> list[list | None]:
-        from seqtest.simulation.engine import _run_chunk
-
         out: list[list | None] = [None] * len(batches)
         for b, batch in enumerate(batches):
             if start is not None and not start(b):
@@ -199,7 +198,7 @@ class Runner:
                 report = None
                 if progress is not None:
                     report = _Reporter(_shifted(progress, b, base), n)
-                chunks.append(_run_chunk(batch.job, i, n, report))
+                chunks.append(batch.run(batch.job, i, n, report))
                 base += n
                 if progress is not None:
                     progress(b, base)
@@ -279,7 +278,8 @@ class Runner:
 
         def submit(b: int, i: int) -> Any:
             tok = token_of(b, i) if q is not None else None
-            return pool.submit(_chunk_local, batches[b].job, i, batches[b].sizes[i], tok)
+            return pool.submit(_chunk_local, batches[b].run, batches[b].job, i,
+                               batches[b].sizes[i], tok)
 
         def drain(wait: float) -> list[tuple[str, int]]:
             if q is None:
@@ -315,9 +315,9 @@ class Runner:
             with lock:
                 if b not in jobs:       # the job travels once per batch
                     jobs[b] = client.scatter(batches[b].job, broadcast=True, hash=False)
-            return client.submit(_chunk_dask, jobs[b], i, batches[b].sizes[i],
-                                 token_of(b, i), key=f"seqtest-chunk-{token_of(b, i)}",
-                                 pure=False)
+            return client.submit(_chunk_dask, batches[b].run, jobs[b], i,
+                                 batches[b].sizes[i], token_of(b, i),
+                                 key=f"seqtest-chunk-{token_of(b, i)}", pure=False)
 
         def drain(wait: float) -> list[tuple[str, int]]:
             msgs = []
