@@ -26,10 +26,10 @@ result.
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import contextlib
 import os
 import queue
-import threading
 import time
 import uuid
 from collections.abc import Callable, Iterator, Sequence
@@ -42,7 +42,7 @@ __all__ = ["PROGRESS_SECONDS", "Batch", "Runner", "dask_client"]
 #: A chunk reports its progress at most this often (seconds of its running time).
 PROGRESS_SECONDS = 0.25
 _TOPIC = "seqtest-progress"
-_POLL = 0.05
+_POLL = 0.1       # longest wait for a chunk to finish before progress is looked at
 
 
 @dataclass(frozen=True)
@@ -209,7 +209,8 @@ class Runner:
 
     # -- common scheduling of parallel backends ------------------------------------------
     def _schedule(self, batches: Sequence[Batch], submit: Callable[[int, int], Any],
-                  drain: Callable[[float], list[tuple[str, int]]],
+                  wait_any: Callable[[list, float], None],
+                  drain: Callable[[], list[tuple[str, int]]],
                   token_of: Callable[[int, int], str], progress: Any, done: Any,
                   start: Any, cancel: Callable[[Any], None]) -> list[list | None]:
         out: list[list | None] = [None] * len(batches)
@@ -222,7 +223,7 @@ class Runner:
         pending = [(b, i) for b, batch in enumerate(batches) for i in range(len(batch.sizes))]
         pending.reverse()
         inflight: dict[Any, tuple[int, int]] = {}
-        limit = 2 * self.slots
+        limit = 4 * self.slots
         stopped_at: int | None = None
         started: set[int] = set()
         try:
@@ -240,7 +241,9 @@ class Runner:
                     inflight[fut] = (b, i)
                     where[token_of(b, i)] = (b, i)
                 moved = set()
-                for token, units in drain(_POLL):
+                if inflight:
+                    wait_any(list(inflight), _POLL)
+                for token, units in drain():
                     # a report can arrive after its chunk finished: ignore it then
                     if token in where and token not in finished \
                             and units > partial.get(token, 0):
@@ -281,19 +284,19 @@ class Runner:
             return pool.submit(_chunk_local, batches[b].run, batches[b].job, i,
                                batches[b].sizes[i], tok)
 
-        def drain(wait: float) -> list[tuple[str, int]]:
-            if q is None:
-                time.sleep(wait)
-                return []
-            msgs = []
-            with contextlib.suppress(queue.Empty):
-                msgs.append(q.get(timeout=wait))
-                while True:
-                    msgs.append(q.get_nowait())
+        def wait_any(futures: list, timeout: float) -> None:
+            cf.wait(futures, timeout=timeout, return_when=cf.FIRST_COMPLETED)
+
+        def drain() -> list[tuple[str, int]]:
+            msgs: list[tuple[str, int]] = []
+            if q is not None:
+                with contextlib.suppress(queue.Empty):
+                    while True:
+                        msgs.append(q.get_nowait())
             return msgs
 
-        return self._schedule(batches, submit, drain, token_of, progress, done, start,
-                              lambda f: f.cancel())
+        return self._schedule(batches, submit, wait_any, drain, token_of, progress, done,
+                              start, lambda f: f.cancel())
 
     # -- Dask ----------------------------------------------------------------------------
     def _run_dask(self, batches: Sequence[Batch], progress: Any, done: Any, start: Any
@@ -301,8 +304,6 @@ class Runner:
         client = self.client
         run_id = uuid.uuid4().hex[:8]
         inbox: queue.Queue = queue.Queue()
-        lock = threading.Lock()
-        jobs: dict[int, Any] = {}
 
         def token_of(b: int, i: int) -> str:
             return f"{run_id}-{b}-{i}"
@@ -312,25 +313,30 @@ class Runner:
             inbox.put((str(msg[0]), int(msg[1])))
 
         def submit(b: int, i: int) -> Any:
-            with lock:
-                if b not in jobs:       # the job travels once per batch
-                    jobs[b] = client.scatter(batches[b].job, broadcast=True, hash=False)
-            return client.submit(_chunk_dask, batches[b].run, jobs[b], i,
+            # the job is small (the plan and the scenario's numbers): it travels with
+            # each task, which saves a round trip per batch
+            return client.submit(_chunk_dask, batches[b].run, batches[b].job, i,
                                  batches[b].sizes[i], token_of(b, i),
                                  key=f"seqtest-chunk-{token_of(b, i)}", pure=False)
 
-        def drain(wait: float) -> list[tuple[str, int]]:
-            msgs = []
+        def wait_any(futures: list, timeout: float) -> None:
+            from distributed import TimeoutError as DaskTimeout
+            from distributed import wait
+
+            with contextlib.suppress(TimeoutError, DaskTimeout):
+                wait(futures, timeout=timeout, return_when="FIRST_COMPLETED")
+
+        def drain() -> list[tuple[str, int]]:
+            msgs: list[tuple[str, int]] = []
             with contextlib.suppress(queue.Empty):
-                msgs.append(inbox.get(timeout=wait))
                 while True:
                     msgs.append(inbox.get_nowait())
             return msgs
 
         client.subscribe_topic(_TOPIC, handler)
         try:
-            return self._schedule(batches, submit, drain, token_of, progress, done, start,
-                                  lambda f: f.cancel())
+            return self._schedule(batches, submit, wait_any, drain, token_of, progress,
+                                  done, start, lambda f: f.cancel())
         finally:
             with contextlib.suppress(Exception):
                 client.unsubscribe_topic(_TOPIC)
