@@ -87,7 +87,7 @@ def test_progress_moves_inside_a_chunk_without_changing_the_result(monkeypatch):
 
 
 def test_local_processes_report_progress_and_agree(monkeypatch):
-    monkeypatch.setattr(runner_mod, "PROGRESS_SECONDS", 0.0)   # inherited by forked workers
+    monkeypatch.setattr(runner_mod, "PROGRESS_SECONDS", 0.0)   # handed to the workers
     plan = _plan(looks=3, futility="pocock-type")
     sc = _scenario()
     seen = []

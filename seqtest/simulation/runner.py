@@ -84,9 +84,10 @@ class _Reporter:
 _QUEUE: Any = None
 
 
-def _set_queue(q: Any) -> None:            # process-pool initializer
-    global _QUEUE
+def _set_queue(q: Any, seconds: float) -> None:     # process-pool initializer
+    global _QUEUE, PROGRESS_SECONDS
     _QUEUE = q
+    PROGRESS_SECONDS = seconds          # the parent's setting, whatever the start method
 
 
 def _chunk_local(run: Callable[..., Any], job: Any, index: int, size: int,
@@ -176,7 +177,8 @@ class Runner:
             import multiprocessing as mp
             q = mp.get_context().Queue()
             pool = ProcessPoolExecutor(max_workers=min(self.workers, total_chunks),
-                                       initializer=_set_queue, initargs=(q,))
+                                       initializer=_set_queue,
+                                       initargs=(q, PROGRESS_SECONDS))
             try:
                 return self._run_pool(pool, q, batches, progress, done, start)
             finally:
