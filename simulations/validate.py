@@ -6,6 +6,11 @@ decision code as monitoring) and writes a markdown report with PNG figures:
     python simulations/validate.py --grid reduced --out /tmp/validation
     python simulations/validate.py --grid full --out simulations/report --workers 2 \
         --budget-minutes 180
+    python simulations/validate.py --grid full --out /tmp/full --scheduler tcp://host:8786
+
+The chunks of all cells run in this process, on ``--workers`` local processes or, with
+``--scheduler``, as tasks on a Dask cluster (``--scheduler local`` starts a local one);
+the numbers are the same bit for bit whatever the backend and the number of workers.
 
 Grids
 -----
@@ -56,13 +61,14 @@ does not change the others and every number in the report can be reproduced.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import math
 import os
 import sys
 import time
 import zlib
-from concurrent.futures import Executor, ProcessPoolExecutor
+from concurrent.futures import Executor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -72,7 +78,8 @@ import numpy as np
 import seqtest
 from seqtest import spending
 from seqtest.mixture import mixture_plan
-from seqtest.simulation.engine import SimulationResult, clopper_pearson, simulate
+from seqtest.simulation.engine import SimulationResult, clopper_pearson, prepare
+from seqtest.simulation.runner import Runner, dask_client
 from seqtest.simulation.scenarios import scenario_from_dict
 
 #: Overall type I error of repeated two-sided tests at nominal 0.05 after K equally
@@ -320,34 +327,56 @@ class CellResult:
 
 def run_cells(cells: list[Cell], *, seed: int = 0, workers: int = 1,
               budget_seconds: float | None = None, executor: Executor | None = None,
-              log: Any = None) -> list[CellResult]:
-    """Run the cells in order; cells past the time budget are returned unrun."""
-    out: list[CellResult] = []
+              client: Any = None, log: Any = None, progress: Any = None
+              ) -> list[CellResult]:
+    """Run the cells; cells not started when the time budget is spent are returned
+    unrun.
+
+    The chunks of all cells go to one runner (this process, ``workers`` local
+    processes, an executor, or a Dask ``client``), in cell order, so every worker
+    stays busy across cells; each cell's result is the same whatever the backend.
+    ``progress(done, total)`` follows the replicates of the whole grid; a cell's
+    ``seconds`` run from the start of its first chunk to the end of its last (cells
+    overlap when several workers run them).
+    """
+    preps = []
+    for cell in cells:
+        plan = make_plan(cell.plan)
+        sc = scenario_from_dict(cell.scenario)
+        cell_seed = (zlib.crc32(cell.id.encode()) + seed) % (2**32)
+        preps.append(prepare(plan, sc, cell.reps, seed=cell_seed))
+    out: list[CellResult | None] = [None] * len(cells)
+    began: dict[int, float] = {}
+    moved = [0] * len(cells)
+    total = sum(p.reps for p in preps)
     start = time.perf_counter()
-    own = None
-    if executor is None and workers > 1:
-        own = executor = ProcessPoolExecutor(max_workers=workers)
-    try:
-        for i, cell in enumerate(cells):
-            if budget_seconds is not None and time.perf_counter() - start > budget_seconds:
-                out.append(CellResult(cell, None, 0.0, "not run: time budget spent"))
-                continue
-            t0 = time.perf_counter()
-            plan = make_plan(cell.plan)
-            sc = scenario_from_dict(cell.scenario)
-            cell_seed = (zlib.crc32(cell.id.encode()) + seed) % (2**32)
-            res = simulate(plan, sc, cell.reps, seed=cell_seed, workers=1,
-                           executor=executor)
-            dt = time.perf_counter() - t0
-            out.append(CellResult(cell, res, dt))
-            if log is not None:
-                log(f"[{i + 1}/{len(cells)}] {cell.id}: {res.rate:.4f} "
-                    f"[{res.ci_lower:.4f}, {res.ci_upper:.4f}] alpha {res.alpha:g} "
-                    f"({dt:.1f} s)")
-    finally:
-        if own is not None:
-            own.shutdown()
-    return out
+
+    def may_start(b: int) -> bool:
+        if budget_seconds is not None and time.perf_counter() - start > budget_seconds:
+            return False
+        began[b] = time.perf_counter()
+        return True
+
+    def finished(b: int, chunks: list) -> None:
+        res = preps[b].result(chunks)
+        dt = time.perf_counter() - began[b]
+        out[b] = CellResult(cells[b], res, dt)
+        if log is not None:
+            done = sum(r is not None for r in out)
+            log(f"[{done}/{len(cells)}] {cells[b].id}: {res.rate:.4f} "
+                f"[{res.ci_lower:.4f}, {res.ci_upper:.4f}] alpha {res.alpha:g} "
+                f"({dt:.1f} s)")
+
+    def moved_to(b: int, done: int) -> None:
+        moved[b] = done
+        if progress is not None:
+            progress(sum(moved), total)
+
+    runner = Runner(workers=workers, executor=executor, client=client)
+    runner.run([p.batch for p in preps], progress=moved_to, done=finished,
+               start=may_start)
+    return [r if r is not None else CellResult(c, None, 0.0, "not run: time budget spent")
+            for c, r in zip(cells, out, strict=True)]
 
 
 @dataclass
@@ -615,13 +644,16 @@ def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int
 
 def run(grid: str, out: Path | str, *, reps: int = 100_000, random_reps: int | None = None,
         seed: int = 0, workers: int = 1, budget_seconds: float | None = None,
-        log: Any = None) -> Assessment:
-    """Build, run, assess and report a grid; returns the assessment."""
+        log: Any = None, client: Any = None, progress: Any = None) -> Assessment:
+    """Build, run, assess and report a grid; returns the assessment. With a Dask
+    ``client`` the chunks run on its cluster (``workers`` is then ignored)."""
     cells = build_grid(grid, reps, random_reps)
     t0 = time.perf_counter()
     results = run_cells(cells, seed=seed, workers=workers, budget_seconds=budget_seconds,
-                        log=log)
+                        log=log, client=client, progress=progress)
     a = assess(results)
+    if client is not None:
+        workers = Runner(client=client).slots
     write_report(a, Path(out), grid=grid, seed=seed, workers=workers,
                  seconds=time.perf_counter() - t0,
                  not_run=[r.cell.id for r in results if r.result is None])
@@ -648,7 +680,16 @@ def main(argv: list[str] | None = None) -> int:
                    help="replicates per random-traffic group-sequential cell (full: "
                         "--reps; reduced: 1000)")
     p.add_argument("--seed", type=int, default=0)
-    p.add_argument("--workers", type=int, default=os.cpu_count() or 1)
+    p.add_argument("--workers", type=int, default=os.cpu_count() or 1,
+                   help="local processes (all cores); with --scheduler local, the size of "
+                        "the local cluster")
+    p.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="run the chunks on the Dask cluster whose scheduler is at ADDRESS "
+                        "(tcp://host:8786), or 'local' to start a local cluster of "
+                        "--workers processes (needs the dask extra); the numbers do not "
+                        "depend on it")
+    p.add_argument("--no-progress", action="store_true", dest="no_progress",
+                   help="no progress bar on stderr")
     p.add_argument("--budget-minutes", type=float, default=None, dest="budget",
                    help="stop starting new cells after this many minutes")
     p.add_argument("--render-only", action="store_true", dest="render_only",
@@ -663,12 +704,41 @@ def main(argv: list[str] | None = None) -> int:
         print("validate: error: --reps and --random-reps must be >= 1", file=sys.stderr)
         return 2
 
-    def log(msg: str) -> None:
-        print(msg, file=sys.stderr, flush=True)
+    bar: Any = None
 
-    a = run(args.grid, args.out, reps=args.reps, random_reps=args.random_reps,
-            seed=args.seed, workers=max(1, args.workers),
-            budget_seconds=None if args.budget is None else args.budget * 60.0, log=log)
+    def log(msg: str) -> None:
+        if bar is not None:
+            bar.write(msg, file=sys.stderr)
+        else:
+            print(msg, file=sys.stderr, flush=True)
+
+    def progress(done: int, total: int) -> None:
+        nonlocal bar
+        if args.no_progress:
+            return
+        if bar is None:
+            from tqdm import tqdm
+            bar = tqdm(total=total, unit="exp", unit_scale=True, file=sys.stderr,
+                       delay=1.0, mininterval=0.5, desc="grid", leave=False)
+        bar.update(done - bar.n)
+
+    budget = None if args.budget is None else args.budget * 60.0
+    try:
+        with contextlib.ExitStack() as stack:
+            client = None
+            if args.scheduler is not None:
+                try:
+                    client = stack.enter_context(dask_client(args.scheduler,
+                                                             workers=max(1, args.workers)))
+                except ValueError as exc:
+                    print(f"validate: error: --{exc}", file=sys.stderr)
+                    return 2
+            a = run(args.grid, args.out, reps=args.reps, random_reps=args.random_reps,
+                    seed=args.seed, workers=max(1, args.workers), budget_seconds=budget,
+                    log=log, client=client, progress=progress)
+    finally:
+        if bar is not None:
+            bar.close()
     print(f"{len(a.leaks)} leaking gated cell(s) of {a.gated}; report in "
           f"{Path(args.out) / 'report.md'}")
     return 1 if a.leaks or a.naive_failures else 0

@@ -3,9 +3,12 @@
 ``seqtest simulate --plan PLAN.json --scenario FILE --reps N [--json [FILE]]``
 simulates N experiments of the scenario (see ``simulations/README.md``) under the
 plan and prints the type I error (or power) with its Clopper-Pearson interval, the
-naive baseline, the expected sample size and the stopping looks. A progress bar
-goes to stderr on long runs. Bad input gives a one-line message and exit status 2;
-with ``--check`` a plan that leaks alpha gives exit status 1.
+naive baseline, the expected sample size and the stopping looks. The chunks run in
+this process, on ``--workers`` local processes, or with ``--scheduler ADDRESS`` as
+tasks on a Dask cluster (``--scheduler local`` starts one of ``--workers``
+processes; needs the ``dask`` extra); the result is the same bit for bit. A
+progress bar goes to stderr on long runs. Bad input gives a one-line message and
+exit status 2; with ``--check`` a plan that leaks alpha gives exit status 1.
 
 :func:`register` adds the subcommand to the ``seqtest`` parser.
 """
@@ -13,6 +16,7 @@ with ``--check`` a plan that leaks alpha gives exit status 1.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import sys
 from pathlib import Path
@@ -55,6 +59,11 @@ def register(subparsers: Any) -> argparse.ArgumentParser:
                    help="seed of the run; the same seed gives the same result (0)")
     p.add_argument("--workers", type=_whole("workers", 0), default=1,
                    help="processes to use, 0 for all cores (1); results do not depend on it")
+    p.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="run the chunks on the Dask cluster whose scheduler is at ADDRESS "
+                        "(tcp://host:8786), or 'local' to start a local cluster of "
+                        "--workers processes; results do not depend on it (needs the "
+                        "dask extra)")
     p.add_argument("--confidence", type=float, default=0.95,
                    help="level of the Clopper-Pearson intervals (0.95)")
     p.add_argument("--chunk-size", type=_whole("chunk-size", 1), default=DEFAULT_CHUNK,
@@ -98,9 +107,18 @@ def handler(args: argparse.Namespace) -> int:
         def progress(done: int, total: int) -> None:
             bar.update(done - bar.n)
     try:
-        result = simulate(plan, scenario, args.reps, seed=args.seed,
-                          workers=args.workers, chunk_size=args.chunk_size,
-                          confidence=args.confidence, progress=progress)
+        with contextlib.ExitStack() as stack:
+            client = None
+            if args.scheduler is not None:
+                from seqtest.simulation.runner import dask_client
+                try:
+                    client = stack.enter_context(dask_client(
+                        args.scheduler, workers=args.workers or None))
+                except ValueError as exc:
+                    raise ValueError(f"--{exc}") from None
+            result = simulate(plan, scenario, args.reps, seed=args.seed,
+                              workers=args.workers, chunk_size=args.chunk_size,
+                              confidence=args.confidence, progress=progress, client=client)
     finally:
         if bar is not None:
             bar.close()

@@ -13,9 +13,13 @@ n_treatment) / max_n`` exactly as :func:`seqtest.monitoring.analysis.analyze` me
 it; the boundaries come from
 :meth:`seqtest.monitoring.rules.GroupSequentialRule.boundaries` on those observed
 fractions, computed exactly once per distinct pattern of fractions in each chunk (one
-call per chunk for fixed traffic; one per replicate, less the repeats, for random
-traffic; fractions are never rounded to share boundaries); the stop is
-:meth:`seqtest.core.region.Region.classify` and :func:`seqtest.core.region.first_stop`.
+call per chunk for fixed traffic; fractions are never rounded to share boundaries);
+the stop is :meth:`seqtest.core.region.Region.classify` and
+:func:`seqtest.core.region.first_stop`. With random traffic every replicate has its own
+fractions; the exact screen of :mod:`seqtest.simulation.screen` settles the replicates
+whose decision provable bounds on their boundaries make certain (nearly all of them
+when futility is absent or ignored), and only the rest get their boundaries, so the
+decisions are those of the exact boundaries at a fraction of the cost.
 Mixture (continuous-monitoring) plans go through
 :func:`seqtest.core.normal_mixture.always_valid`, with the looks that are not analysed
 masked.
@@ -51,7 +55,9 @@ fraction reaches 1 is the final one; the last analysed look is declared final
 Reproducibility: replicates are simulated in chunks of a fixed size; chunk ``i``
 draws from ``numpy.random.default_rng(SeedSequence(seed, spawn_key=(i,)))``, so a
 run is reproducible bit for bit from ``(plan, scenario, reps, seed, chunk_size)``
-whatever the number of workers, and totals are summed in chunk order in integers.
+whatever runs the chunks (this process, local processes, a Dask cluster: see
+:mod:`seqtest.simulation.runner`) and however many workers, and totals are summed in
+chunk order in integers.
 
 Monte Carlo accuracy: the rejection count is binomial, so its exact (Clopper-Pearson)
 interval is reported (``scipy.stats.binomtest(k, n).proportion_ci(method="exact")``);
@@ -72,7 +78,7 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Callable
-from concurrent.futures import Executor, ProcessPoolExecutor
+from concurrent.futures import Executor
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -87,14 +93,18 @@ from seqtest.monitoring.rules import GroupSequentialRule
 from seqtest.planning.design import Plan
 from seqtest.planning.documents import plan_from_dict
 from seqtest.simulation import DEFAULT_CHUNK
+from seqtest.simulation.runner import Batch, Runner
 from seqtest.simulation.scenarios import Scenario
+from seqtest.simulation.screen import settle
 
 __all__ = [
     "OUTCOMES",
     "NaiveSummary",
+    "Prepared",
     "SimulationResult",
     "clopper_pearson",
     "plot_result",
+    "prepare",
     "simulate",
 ]
 
@@ -254,8 +264,13 @@ class SimulationResult:
         The maximum total sample (denominator of the information fraction).
     naive : NaiveSummary or None
     boundary_calls : int
-        Boundary computations (distinct fraction patterns; see
+        Distinct fraction patterns among the replicates (one per chunk for fixed
+        traffic): the boundary computations of a run without the screen (see
         :meth:`seqtest.monitoring.rules.GroupSequentialRule.boundaries`).
+    boundaries_computed : int
+        Boundary computations actually made: fewer than `boundary_calls` when the
+        exact screen (:mod:`seqtest.simulation.screen`) settled replicates without
+        their boundaries. The only number that depends on the screen.
     paths : dict or None
         Per-replicate arrays when ``keep_paths=True`` (not in :meth:`to_dict`).
     """
@@ -294,6 +309,7 @@ class SimulationResult:
     max_total: float
     naive: NaiveSummary | None
     boundary_calls: int
+    boundaries_computed: int
     paths: dict | None = field(default=None, repr=False, compare=False)
 
     @property
@@ -355,6 +371,7 @@ class SimulationResult:
             "max_total": num(self.max_total),
             "expected_fraction": num(self.expected_total / self.max_total),
             "boundary_calls": self.boundary_calls,
+            "boundaries_computed": self.boundaries_computed,
             "looks": looks,
             "naive": None,
         }
@@ -446,6 +463,7 @@ class _Job:
     seed: int
     chunk: int
     keep_paths: bool
+    screen: bool = False  # settle replicates by the exact screen (random traffic)
 
 
 def _plan_metric(plan: Any) -> dict | None:
@@ -585,7 +603,8 @@ def _schedule(plan: Any, sc: Scenario) -> np.ndarray:
     return times
 
 
-def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool) -> _Job:
+def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool,
+         screen: bool = True) -> _Job:
     if isinstance(plan, dict):
         plan = plan_from_dict(plan)
     mixture = not isinstance(plan, Plan)
@@ -620,6 +639,10 @@ def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool) -> _J
                          "its efficacy boundaries are valid only when futility stops are "
                          "obeyed; use futility = \"obey\"")
     sides = int(plan.sides)
+    # the screen needs per-replicate boundaries to save (random traffic) and no
+    # futility boundary in play (a futility stop needs the boundary itself)
+    use_screen = bool(screen and not mixture and fixed is None
+                      and (plan.futility_z is None or not fut_obey))
     return _Job(
         plan=plan, mixture=mixture, kind=kind, scale=scale, sides=sides,
         alpha=float(plan.alpha), data_kind=sc.data_kind, control=ctrl, treatment=trt,
@@ -627,7 +650,7 @@ def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool) -> _J
         mode=sc.traffic.mode, fixed_counts=fixed, days=sc.traffic.days, cv=sc.traffic.cv,
         cap=sc.traffic.cap, at_max=sc.traffic.final == "at_max", obey=fut_obey,
         naive_z=float(-special.ndtri(plan.alpha / sides)), seed=int(seed), chunk=chunk,
-        keep_paths=keep_paths)
+        keep_paths=keep_paths, screen=use_screen)
 
 
 # ---------------------------------------------------------------------------
@@ -693,9 +716,11 @@ def _increments(cum: np.ndarray) -> np.ndarray:
     return np.diff(cum, axis=1, prepend=0)
 
 
-def _lognormal_sums(rng: np.random.Generator, m: np.ndarray, p: dict
+def _lognormal_sums(rng: np.random.Generator, m: np.ndarray, p: dict,
+                    tick: Callable[[float], None] | None = None
                     ) -> tuple[np.ndarray, np.ndarray]:
-    """Sums of values and of squares of ``m`` zero-inflated log-normal values each."""
+    """Sums of values and of squares of ``m`` zero-inflated log-normal values each
+    (``tick(share)`` after each block of values)."""
     z = p["zero_share"]
     b = m if z == 0 else rng.binomial(m, 1.0 - z)
     b = np.ascontiguousarray(b, dtype=np.int64).ravel()
@@ -719,10 +744,13 @@ def _lognormal_sums(rng: np.random.Generator, m: np.ndarray, p: dict
             np.multiply(x, x, out=x)
             s2[i:stop][nz] = np.add.reduceat(x, offs)
         i = stop
+        if tick is not None:
+            tick(i / b.size)
     return s1.reshape(m.shape), s2.reshape(m.shape)
 
 
-def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict) -> dict:
+def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict,
+                tick: Callable[[float], None] | None = None) -> dict:
     m = np.ascontiguousarray(np.broadcast_to(_increments(cum), cum.shape))
     kind = job.data_kind
     if kind == "binary":
@@ -744,16 +772,27 @@ def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict) -
         s1 = m * mean
         s2 = ss + m * mean * mean
     else:
-        s1, s2 = _lognormal_sums(rng, m, p)
+        s1, s2 = _lognormal_sums(rng, m, p, tick)
     return {"n": cum, "sum": np.cumsum(s1, axis=1), "sum_sq": np.cumsum(s2, axis=1)}
 
 
-def _draw_chunk(job: _Job, index: int, n: int) -> tuple:
-    """The random part of a chunk: per-arm counts, totals and the looks that happen."""
+def _draw_chunk(job: _Job, index: int, n: int,
+                report: Callable[[float], None] | None = None) -> tuple:
+    """The random part of a chunk: per-arm counts, totals and the looks that happen;
+    ``report(share)`` of the chunk's work as the draws go (up to 0.45)."""
     rng = _rng(job, index)
     n_c, n_t, end = _draw_counts(job, rng, n)
-    ctrl = _arm_totals(job, rng, n_c, job.control)
-    trt = _arm_totals(job, rng, n_t, job.treatment)
+    tick_c = tick_t = None
+    if report is not None:
+        report(0.05)
+        tick_c = lambda f: report(0.05 + 0.2 * f)          # noqa: E731
+        tick_t = lambda f: report(0.25 + 0.2 * f)          # noqa: E731
+    ctrl = _arm_totals(job, rng, n_c, job.control, tick_c)
+    if report is not None:
+        report(0.25)
+    trt = _arm_totals(job, rng, n_t, job.treatment, tick_t)
+    if report is not None:
+        report(0.45)
     return n_c, n_t, end, ctrl, trt
 
 
@@ -772,6 +811,7 @@ class _Chunk:
     frac_sum: np.ndarray
     frac_count: np.ndarray
     calls: int
+    computed: int
     paths: dict | None = None
 
 
@@ -815,15 +855,47 @@ def _never(sides: int) -> float:
     return 0.0 if sides == 2 else -np.inf
 
 
-def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray
+def _pattern_keys(valid: np.ndarray, frac: np.ndarray, end: np.ndarray) -> np.ndarray:
+    """One row per replicate naming its boundary computation: the fractions of its
+    analysed looks, -1 at looks not analysed, -2 after its last look."""
+    look = np.arange(frac.shape[1])[None, :]
+    key = np.where(valid, frac, -1.0)
+    return np.where(look < end[:, None], key, -2.0)
+
+
+def _distinct_rows(key: np.ndarray) -> int:
+    """Number of distinct rows (exact): rows are hashed, sorted by hash, and rows with
+    equal hashes compared in full; a collision falls back to ``np.unique``."""
+    n = key.shape[0]
+    if n <= 1:
+        return n
+    bits = np.ascontiguousarray(key, dtype=np.float64).view(np.uint64)
+    h = np.zeros(n, dtype=np.uint64)
+    mult = np.uint64(0x9E3779B97F4A7C15)
+    with np.errstate(over="ignore"):
+        for j in range(bits.shape[1]):
+            h = (h ^ bits[:, j]) * mult
+            h ^= h >> np.uint64(29)
+    order = np.argsort(h, kind="stable")
+    same_hash = h[order[1:]] == h[order[:-1]]
+    if not same_hash.any():
+        return n
+    sorted_rows = key[order]
+    same_row = np.all(sorted_rows[1:] == sorted_rows[:-1], axis=1)
+    if np.any(same_hash & ~same_row):
+        return int(np.unique(key, axis=0).shape[0])
+    return int(n - np.count_nonzero(same_row))
+
+
+def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray,
+                tick: Callable[[int, int], None] | None = None
                 ) -> tuple[np.ndarray, np.ndarray | None, int]:
-    """Per-replicate boundaries from bounds_at, once per distinct fraction pattern."""
+    """Per-replicate boundaries from the rule, once per distinct fraction pattern;
+    ``tick(done, patterns)`` after each computation."""
     n, k = frac.shape
     plan = job.plan
     rule = GroupSequentialRule(plan)
-    look = np.arange(k)[None, :]
-    key = np.where(valid, frac, -1.0)
-    key = np.where(look < end[:, None], key, -2.0)
+    key = _pattern_keys(valid, frac, end)
     if job.fixed_counts is not None:
         uniq, inv = key[:1], np.zeros(n, dtype=np.intp)
     else:
@@ -834,13 +906,41 @@ def _boundaries(job: _Job, valid: np.ndarray, frac: np.ndarray, end: np.ndarray
     b_u = np.full(uniq.shape, _never(job.sides)) if has_fut else None
     for i, row in enumerate(uniq):
         v = row >= 0
-        if not v.any():
-            continue
-        a, b = rule.boundaries(row[v], final=True)
-        a_u[i, v] = a
-        if b_u is not None and b is not None:
-            b_u[i, v] = b
+        if v.any():
+            a, b = rule.boundaries(row[v], final=True)
+            a_u[i, v] = a
+            if b_u is not None and b is not None:
+                b_u[i, v] = b
+        if tick is not None:
+            tick(i + 1, len(uniq))
     return a_u[inv], (None if b_u is None else b_u[inv]), len(uniq)
+
+
+def _screened(job: _Job, z: np.ndarray, valid: np.ndarray, frac: np.ndarray,
+              end: np.ndarray, tick: Callable[[int, int], None] | None = None
+              ) -> tuple[np.ndarray, np.ndarray, int]:
+    """Decisions through the exact screen: replicates it settles need no boundaries,
+    the rest get theirs from the rule (see :mod:`seqtest.simulation.screen`)."""
+    rule = GroupSequentialRule(job.plan)
+    k = frac.shape[1]
+    a_tail = job.alpha / job.sides
+    # the rule's own spending (a classical plan's: its design's cumulative alpha)
+    cum = np.asarray(rule._spending(np.minimum(frac, 1.0), a_tail), float).reshape(frac.shape)
+    look = np.arange(k)[None, :]
+    seen = valid & (look < end[:, None])
+    last = np.where(seen.any(axis=1), k - 1 - np.argmax(seen[:, ::-1], axis=1), -1)
+    cum = np.where(look == last[:, None], a_tail, cum)    # the final look spends the rest
+    stat = np.abs(z) if job.sides == 2 else z
+    res = settle(stat, seen, frac, cum, end, job.sides)
+    stop, code = res.stop.copy(), res.code.copy()
+    rest = np.flatnonzero(~res.settled)
+    computed = 0
+    if rest.size:
+        a, b, computed = _boundaries(job, valid[rest], frac[rest], end[rest], tick)
+        s_, c_ = _decide_groups(z[rest], a, b, end[rest], job.sides, job.obey)
+        stop[rest] = s_
+        code[rest] = c_
+    return stop, code, computed
 
 
 def _decide_groups(z: np.ndarray, a: np.ndarray, b: np.ndarray | None, end: np.ndarray,
@@ -870,8 +970,14 @@ def _tally(k: int, stop: np.ndarray, code: np.ndarray, up: np.ndarray) -> np.nda
     return out
 
 
-def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
-    n_c, n_t, end, ctrl, trt = _draw_chunk(job, index, n)
+def _run_chunk(job: _Job, index: int, n: int,
+               report: Callable[[float], None] | None = None) -> _Chunk:
+    """Simulate chunk ``index`` of ``n`` replicates; ``report(share)`` tells how far it
+    got (never touching the random numbers)."""
+    n_c, n_t, end, ctrl, trt = _draw_chunk(job, index, n, report)
+    tick = None
+    if report is not None:
+        tick = lambda i, m: report(0.5 + 0.45 * i / max(m, 1))   # noqa: E731
     k = job.times.size
     valid, frac, end = _valid_looks(job, n_c, n_t, end)
     eff = metrics.effect(job.kind, _safe_totals(job, ctrl, valid),
@@ -879,7 +985,7 @@ def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
     z = np.where(valid, eff.z, 0.0)
     rows = np.arange(n)
     last = end - 1
-    calls = 0
+    calls = computed = 0
     if job.mixture:
         se = np.where(valid, eff.se, np.inf)
         est = np.where(valid & np.isfinite(se), eff.estimate, 0.0)
@@ -891,8 +997,13 @@ def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
         code = np.where((first >= 0) & (first == stop), Decision.STOP_EFFICACY.code,
                         Decision.COMPLETE.code).astype(np.int8)
         up = np.asarray(res.direction_sign) > 0
+    elif job.screen:
+        stop, code, computed = _screened(job, z, valid, frac, end, tick)
+        calls = _distinct_rows(_pattern_keys(valid, frac, end))
+        up = z[rows, stop] > 0
     else:
-        a, b, calls = _boundaries(job, valid, frac, end)
+        a, b, calls = _boundaries(job, valid, frac, end, tick)
+        computed = calls
         stop, code = _decide_groups(z, a, b, end, job.sides, job.obey)
         up = z[rows, stop] > 0
     stops = _tally(k, stop, code, up)
@@ -912,7 +1023,8 @@ def _run_chunk(job: _Job, index: int, n: int) -> _Chunk:
     return _Chunk(stops=stops, naive_stops=naive_stops, total=int(total.sum()),
                   total_sq=int((total * total).sum()), naive_total=int(naive_total.sum()),
                   frac_sum=np.where(seen, frac, 0.0).sum(axis=0),
-                  frac_count=seen.sum(axis=0), calls=calls, paths=paths)
+                  frac_count=seen.sum(axis=0), calls=calls, computed=computed,
+                  paths=paths)
 
 
 # ---------------------------------------------------------------------------
@@ -984,6 +1096,8 @@ def simulate(
     progress: Callable[[int, int], None] | None = None,
     executor: Executor | None = None,
     keep_paths: bool = False,
+    screen: bool = True,
+    client: Any = None,
 ) -> SimulationResult:
     """Simulate ``reps`` experiments of a scenario under a plan.
 
@@ -1000,19 +1114,31 @@ def simulate(
     seed : int
         Seed (>= 0) of the whole run.
     workers : int or None
-        Processes to use; ``None`` or 0: all cores. Results do not depend on it.
+        Local processes to use; ``None`` or 0: all cores. Results do not depend on it.
     chunk_size : int
         Replicates per chunk (capped so a chunk holds at most 1e6 replicate-looks);
         part of what makes a run reproducible.
     confidence : float
         Level of the Clopper-Pearson intervals.
     progress : callable, optional
-        Called as ``progress(done, total)`` (replicates) after each chunk.
+        Called as ``progress(done, total)`` (replicates) after each chunk and, within
+        a chunk, at most every quarter second of its running time (draws, boundary
+        computations); how often it is called never changes the result.
     executor : concurrent.futures.Executor, optional
-        Run the chunks on this executor (overrides `workers`).
+        Run the chunks on this executor (overrides `workers`; progress per chunk).
+    client : distributed.Client, optional
+        Run the chunks as tasks on this Dask cluster (overrides `workers` and
+        `executor`; see :func:`seqtest.simulation.runner.dask_client`). The result is
+        the same, bit for bit.
     keep_paths : bool
         Keep the per-replicate arrays in :attr:`SimulationResult.paths` (for
         checks on small runs).
+    screen : bool
+        Settle replicates whose decision is certain without their own boundaries
+        (random traffic, futility absent or ignored; see
+        :mod:`seqtest.simulation.screen`). The decisions and every number except
+        :attr:`SimulationResult.boundaries_computed` are the same either way; False
+        computes every boundary (for checks).
 
     Returns
     -------
@@ -1031,6 +1157,51 @@ def simulate(
     (Clopper-Pearson) interval; the expected total its standard error
     ``sqrt(var / reps)`` with the sample variance of the totals.
     """
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
+                                or workers < 0):
+        raise ValueError(f"workers: got {workers!r}; allowed is a whole number >= 0 "
+                         "(0 or None: all cores)")
+    prep = prepare(plan, scenario, reps, seed=seed, chunk_size=chunk_size,
+                   confidence=confidence, keep_paths=keep_paths, screen=screen)
+    n_workers = workers if workers else (os.cpu_count() or 1)
+    runner = Runner(workers=n_workers, executor=executor, client=client)
+    total = prep.reps
+    moved = None if progress is None else (lambda _b, done: progress(done, total))
+    chunks = runner.run([prep.batch], progress=moved)[0]
+    assert chunks is not None
+    return prep.result(chunks)
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """A checked simulation ready to run: its chunks (:attr:`batch`, for
+    :class:`~seqtest.simulation.runner.Runner`) and how their results combine
+    (:meth:`result`). Several prepared simulations can share one runner, so the chunks
+    of many (a validation grid) keep every worker busy."""
+
+    plan: Any
+    scenario: Scenario
+    job: _Job
+    reps: int
+    confidence: float
+
+    @property
+    def batch(self) -> Batch:
+        chunk = self.job.chunk
+        return Batch(_run_chunk, self.job, tuple(min(chunk, self.reps - s)
+                                                 for s in range(0, self.reps, chunk)))
+
+    def result(self, chunks: list) -> SimulationResult:
+        """The result from the chunks' results in chunk order."""
+        return _combine(self.plan, self.scenario, self.job, self.reps, self.confidence,
+                        chunks)
+
+
+def prepare(plan: Any, scenario: Scenario, reps: int, *, seed: int = 0,
+            chunk_size: int = DEFAULT_CHUNK, confidence: float = 0.95,
+            keep_paths: bool = False, screen: bool = True) -> Prepared:
+    """Check the arguments of :func:`simulate` and set the run up without running it
+    (the same arguments; raises the same errors)."""
     if isinstance(reps, bool) or not isinstance(reps, (int, np.integer)) or reps < 1:
         raise ValueError(f"reps: got {reps!r}; allowed is a whole number >= 1")
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
@@ -1038,46 +1209,13 @@ def simulate(
     if isinstance(chunk_size, bool) or not isinstance(chunk_size, (int, np.integer)) \
             or chunk_size < 1:
         raise ValueError(f"chunk_size: got {chunk_size!r}; allowed is a whole number >= 1")
-    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
-                                or workers < 0):
-        raise ValueError(f"workers: got {workers!r}; allowed is a whole number >= 0 "
-                         "(0 or None: all cores)")
     if not 0 < float(confidence) < 1:
         raise ValueError(f"confidence: got {confidence!r}; allowed is a level in (0, 1)")
     if isinstance(plan, dict):
         plan = plan_from_dict(plan)
-    job0 = _job(plan, scenario, int(seed), 0, keep_paths)
-    k = job0.times.size
-    chunk = _chunk_size(k, int(chunk_size))
-    job = replace(job0, chunk=chunk)
-    reps = int(reps)
-    sizes = [min(chunk, reps - s) for s in range(0, reps, chunk)]
-    results: list[_Chunk | None] = [None] * len(sizes)
-    done = 0
-    n_workers = workers if workers else (os.cpu_count() or 1)
-    own = None
-    if executor is None and n_workers > 1 and len(sizes) > 1:
-        own = executor = ProcessPoolExecutor(max_workers=min(n_workers, len(sizes)))
-    try:
-        if executor is None:
-            for i, n in enumerate(sizes):
-                results[i] = _run_chunk(job, i, n)
-                done += n
-                if progress is not None:
-                    progress(done, reps)
-        else:
-            from concurrent.futures import as_completed
-            futures = {executor.submit(_run_chunk, job, i, n): i for i, n in enumerate(sizes)}
-            for fut in as_completed(futures):
-                i = futures[fut]
-                results[i] = fut.result()
-                done += sizes[i]
-                if progress is not None:
-                    progress(done, reps)
-    finally:
-        if own is not None:
-            own.shutdown(cancel_futures=True)
-    return _combine(plan, scenario, job, reps, float(confidence), results)  # type: ignore[arg-type]
+    job0 = _job(plan, scenario, int(seed), 0, keep_paths, bool(screen))
+    chunk = _chunk_size(job0.times.size, int(chunk_size))
+    return Prepared(plan, scenario, replace(job0, chunk=chunk), int(reps), float(confidence))
 
 
 def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
@@ -1087,7 +1225,7 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
     naive = np.zeros((k, 4), dtype=np.int64)
     frac_sum = np.zeros(k)
     frac_count = np.zeros(k, dtype=np.int64)
-    total = total_sq = naive_total = calls = 0
+    total = total_sq = naive_total = calls = computed = 0
     for c in chunks:                      # in chunk order: bit-for-bit reproducible
         stops += c.stops
         naive += c.naive_stops
@@ -1097,6 +1235,7 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
         total_sq += c.total_sq
         naive_total += c.naive_total
         calls += c.calls
+        computed += c.computed
     rej_up, rej_down = int(stops[:, 0].sum()), int(stops[:, 1].sum())
     rej = rej_up + rej_down
     lo, hi = clopper_pearson(rej, reps, confidence)
@@ -1130,7 +1269,7 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
         look_times=job.times.copy(),
         mean_fraction=mean_frac, stops=stops, expected_total=mean_total,
         expected_total_se=math.sqrt(var / reps), max_total=float(job.n_max), naive=nv,
-        boundary_calls=calls, paths=paths)
+        boundary_calls=calls, boundaries_computed=computed, paths=paths)
 
 
 def _join_paths(parts: list[dict | None]) -> dict:
