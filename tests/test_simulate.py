@@ -337,7 +337,10 @@ def test_progress_callback_sees_every_replicate():
     seen = []
     res = simulate(plan, sc, 2_500, seed=1, chunk_size=1_000,
                    progress=lambda d, t: seen.append((d, t)))
-    assert seen == [(1_000, 2_500), (2_000, 2_500), (2_500, 2_500)]
+    # every chunk's end is reported (progress inside a slow chunk may add calls between)
+    assert {(1_000, 2_500), (2_000, 2_500), (2_500, 2_500)} <= set(seen)
+    done = [d for d, _ in seen]
+    assert done == sorted(done) and done[-1] == 2_500 and {t for _, t in seen} == {2_500}
     assert res.stops.sum() == 2_500
     assert res.stops.shape == (2, len(OUTCOMES))
 

@@ -71,7 +71,9 @@ def _patterns(rng, count):
 
 def _cum(rule, t):
     # the rule's cumulative alpha per tail; the last look is declared final
-    return rule._cumulative_alpha(np.asarray(t, float), True)
+    cum = rule.cumulative_alpha(np.asarray(t, float))
+    cum[-1] = rule.plan.alpha / rule.plan.sides  # the final look spends the rest
+    return cum
 
 
 def _bounds(t, cum, sides):

@@ -240,11 +240,19 @@ class GroupSequentialRule:
         share[-1] = 1.0
         return spending.from_table(plan.info_fractions, share)
 
-    def _cumulative_alpha(self, t: np.ndarray, final: bool) -> np.ndarray:
+    def cumulative_alpha(self, fractions: Any) -> np.ndarray:
+        """Type I error per tail to have spent by each of the given fractions (any
+        shape; fractions above 1 count as 1), by the plan's spending (a classical
+        plan's: its design's cumulative alpha, interpolated). A final look spends all
+        that is left instead: see :meth:`boundaries`."""
+        t = np.asarray(fractions, float)
         a_tail = self.plan.alpha / self.plan.sides
-        cum = np.asarray(self._spending(np.minimum(t, 1.0), a_tail), float).reshape(t.shape)
+        return np.asarray(self._spending(np.minimum(t, 1.0), a_tail), float).reshape(t.shape)
+
+    def _cumulative_alpha(self, t: np.ndarray, final: bool) -> np.ndarray:
+        cum = self.cumulative_alpha(t)
         if final or t[-1] >= 1.0:
-            cum[-1] = a_tail
+            cum[-1] = self.plan.alpha / self.plan.sides
         return cum
 
     @staticmethod

@@ -925,7 +925,7 @@ def _screened(job: _Job, z: np.ndarray, valid: np.ndarray, frac: np.ndarray,
     k = frac.shape[1]
     a_tail = job.alpha / job.sides
     # the rule's own spending (a classical plan's: its design's cumulative alpha)
-    cum = np.asarray(rule._spending(np.minimum(frac, 1.0), a_tail), float).reshape(frac.shape)
+    cum = rule.cumulative_alpha(frac)
     look = np.arange(k)[None, :]
     seen = valid & (look < end[:, None])
     last = np.where(seen.any(axis=1), k - 1 - np.argmax(seen[:, ::-1], axis=1), -1)
@@ -1291,74 +1291,11 @@ def _join_paths(parts: list[dict | None]) -> dict:
 
 
 def plot_result(result: SimulationResult, path: Any) -> Any:
-    """Draw a result on one PNG: the rejection rate against alpha, the stopping looks.
-
-    Left: the plan's rejection rate with its Clopper-Pearson interval next to the
-    naive baseline, with alpha (or the plan's power) as a line. Right: the share of
-    replicates stopping at each look, stacked by outcome. Uses matplotlib's
-    object-oriented API with the Agg canvas (no display, no global state).
-
-    Returns the path written.
-    """
+    """Draw a result to a PNG file (see :func:`seqtest.plotting.plot_simulation`);
+    returns the path written."""
     from pathlib import Path
 
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(9.0, 3.8), dpi=100)
-    FigureCanvasAgg(fig)
-    ax1, ax2 = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1, 2.2]})
-    names = ["plan"]
-    rates = [result.rate]
-    lows = [result.ci_lower]
-    highs = [result.ci_upper]
-    if result.naive is not None:
-        names.append("naive")
-        rates.append(result.naive.rate)
-        lows.append(result.naive.ci_lower)
-        highs.append(result.naive.ci_upper)
-    x = np.arange(len(names))
-    colours = ["tab:red" if result.leaks else "tab:blue", "tab:grey"][: len(names)]
-    ax1.bar(x, rates, color=colours, width=0.6)
-    ax1.errorbar(x, rates, yerr=[np.subtract(rates, lows), np.subtract(highs, rates)],
-                 fmt="none", ecolor="black", capsize=4, lw=1)
-    ref = result.alpha if result.null else result.design_rate
-    if ref is not None:
-        ax1.axhline(ref, color="black", ls="--", lw=1,
-                    label=f"alpha {ref:g}" if result.null else f"plan's power {ref:.3f}")
-        ax1.legend(loc="upper left", fontsize=8, frameon=False)
-    for xi, r in zip(x, rates, strict=True):
-        ax1.annotate(f"{r:.4f}", (xi, r), textcoords="offset points", xytext=(0, 6),
-                     ha="center", fontsize=8)
-    ax1.set_xticks(x, names)
-    ax1.set_ylabel("type I error" if result.null else "rejection rate")
-    ax1.set_ylim(0, max(max(highs) * 1.25, (ref or 0) * 1.25, 1e-3))
-    ax1.set_title(result.verdict, fontsize=10,
-                  color="tab:red" if result.leaks else "black")
-    share = result.stops / result.reps
-    looks = np.arange(1, result.looks + 1)
-    bottom = np.zeros(result.looks)
-    colors = dict(zip(OUTCOMES, ("tab:green", "tab:olive", "tab:red", "tab:grey"),
-                      strict=True))
-    for i, o in enumerate(OUTCOMES):
-        if share[:, i].any():
-            ax2.bar(looks, share[:, i], bottom=bottom, color=colors[o],
-                    label=o.replace("_", " "), width=0.7)
-            bottom += share[:, i]
-    ax2.set_ylim(0, max(float(bottom.max()) * 1.15, 1e-3))
-    ax2.set_xlabel("look (mean information fraction)")
-    step = max(1, result.looks // 12)
-    ticks = looks[::step]
-    labels = [f"{j}\n({result.mean_fraction[j - 1]:.2f})"
-              if math.isfinite(result.mean_fraction[j - 1]) else str(j) for j in ticks]
-    ax2.set_xticks(ticks, labels, fontsize=7)
-    ax2.set_ylabel("share of experiments stopping")
-    ax2.set_title(f"expected total {result.expected_total:,.0f} of "
-                  f"{result.max_total:,.0f} ({result.expected_total / result.max_total:.0%})",
-                  fontsize=10)
-    ax2.legend(fontsize=8, frameon=False)
-    fig.suptitle(f"{result.scenario}: {result.reps:,} experiments", fontsize=11)
-    fig.tight_layout()
+    from seqtest.plotting import plot_simulation
     out = Path(path)
-    fig.savefig(out)
+    plot_simulation(result, out)
     return out
