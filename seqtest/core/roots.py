@@ -6,7 +6,7 @@ stage-wise p-value, confidence limits and median-unbiased estimate (a probabilit
 to a level): each is the root of a monotone function of one variable that is nearly
 linear on a well-chosen scale (log or probit of a probability). :func:`solve` finds it.
 
-Method: Newton steps when the caller supplies the slope, secant steps otherwise, from a
+Method (:func:`solve`): Newton steps when the caller supplies the slope, secant steps otherwise, from a
 starting point and a guess of the scale; once a sign change is seen, the root is kept
 bracketed and any step that leaves the bracket, or fails to halve it within two steps,
 is replaced by an Anderson-Bjorck step (regula falsi with the Anderson-Bjorck weight;
@@ -25,10 +25,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from typing import Any
+
+import numpy as np
 
 from seqtest.core.errors import SeqtestError
 
-__all__ = ["NoRoot", "solve"]
+__all__ = ["NoRoot", "solve", "solve_brackets"]
 
 
 class NoRoot(SeqtestError, ArithmeticError):
@@ -166,3 +169,59 @@ def solve(
         if abs(fx) < best[0]:
             best = (abs(fx), x)
     return best[1]
+
+
+def solve_brackets(fun: Callable[[np.ndarray, np.ndarray], np.ndarray], a: Any, b: Any,
+                   fa: Any, fb: Any, xtol: Any, max_iter: int = 200
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """Many roots at once, each already bracketed: the vectorised form of the same
+    method (for interval limits at every look of many experiments).
+
+    Safeguarded regula falsi for ``fun(x, j) = 0`` (``j``: positions in the arrays)
+    with ``fun(a) >= 0 > fun(b)`` elementwise (any order of a and b).
+
+    Anderson-Bjorck weights; a bisection step whenever the interpolated point is
+    not strictly inside the bracket, and every third step when the bracket has not
+    halved over the last three (so the worst case is bisection's). Stops when the
+    bracket is narrower than ``xtol`` or its ends are adjacent floats. Returns the
+    final ends ``(a, b)``: ``fun >= 0`` at ``a`` and ``< 0`` at ``b``.
+    """
+    a, b, fa, fb = (np.array(v, float).ravel() for v in (a, b, fa, fb))
+    xtol = np.broadcast_to(np.asarray(xtol, float).ravel(), a.shape)
+    width_ref = np.abs(b - a)
+    side = np.zeros(a.shape, int)
+    active = np.abs(b - a) > xtol
+    for it in range(1, max_iter + 1):
+        if not np.any(active):
+            break
+        j = np.flatnonzero(active)
+        aa, bb, fa_, fb_ = a[j], b[j], fa[j], fb[j]
+        lo, hi = np.minimum(aa, bb), np.maximum(aa, bb)
+        mid = 0.5 * (aa + bb)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            x = bb - fb_ * (bb - aa) / (fb_ - fa_)
+        force = (it % 3 == 0) & (hi - lo > 0.5 * width_ref[j])
+        x = np.where(~np.isfinite(x) | (x <= lo) | (x >= hi) | force, mid, x)
+        if it % 3 == 0:
+            width_ref[j] = hi - lo
+        stuck = (x <= lo) | (x >= hi)          # adjacent floats: nothing in between
+        fx = fun(x, j)
+        pos = fx >= 0
+        hit = fx == 0
+        sd = side[j]
+        # Anderson-Bjorck: when the same end is replaced twice running, scale the
+        # value kept at the other end by m = 1 - f(new) / f(replaced end)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            m_a = np.where(fa_ != 0, 1.0 - fx / np.where(fa_ != 0, fa_, 1.0), 0.5)
+            m_b = np.where(fb_ != 0, 1.0 - fx / np.where(fb_ != 0, fb_, 1.0), 0.5)
+        m_a = np.where(m_a > 0, m_a, 0.5)
+        m_b = np.where(m_b > 0, m_b, 0.5)
+        keep = stuck
+        a[j] = np.where(keep, aa, np.where(pos, x, aa))
+        fa[j] = np.where(keep, fa_, np.where(pos, fx, np.where(sd == -1, fa_ * m_b, fa_)))
+        b[j] = np.where(keep, bb, np.where(pos & ~hit, bb, x))
+        fb[j] = np.where(keep, fb_, np.where(pos & ~hit, np.where(sd == 1, fb_ * m_a, fb_),
+                                             fx))
+        side[j] = np.where(pos, 1, -1)
+        active[j] = ~stuck & ~hit & (np.abs(b[j] - a[j]) > xtol[j])
+    return a, b

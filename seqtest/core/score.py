@@ -175,7 +175,7 @@ import numpy as np
 from scipy import special
 
 from seqtest.core.region import Region
-from seqtest.core.roots import solve
+from seqtest.core.roots import solve, solve_brackets
 
 __all__ = [
     "KINDS",
@@ -205,7 +205,6 @@ XTOL = 1e-12
 # |log ratio| beyond which a limit is reported as the end of the range (0 or inf):
 # with totals below 1e30 no finite limit comes near it (|log| < 80).
 _LOG_RANGE = 300.0
-_MAX_ITER = 200
 
 Array = np.ndarray
 
@@ -693,58 +692,6 @@ def log_ratio(test: ScoreTest) -> tuple[Any, Any]:
 # ---------------------------------------------------------------------------
 
 
-def _solve(fun: Callable[[Array, Array], Array], a: Array, b: Array, fa: Array,
-           fb: Array, xtol: Array) -> tuple[Array, Array]:
-    """Vectorised safeguarded regula falsi for ``fun(x, j) = 0`` (``j``: positions
-    in the arrays) with ``fun(a) >= 0 > fun(b)`` elementwise (any order of a and b).
-
-    Anderson-Bjorck weights; a bisection step whenever the interpolated point is
-    not strictly inside the bracket, and every third step when the bracket has not
-    halved over the last three (so the worst case is bisection's). Stops when the
-    bracket is narrower than ``xtol`` or its ends are adjacent floats. Returns the
-    final ends ``(a, b)``: ``fun >= 0`` at ``a`` and ``< 0`` at ``b``.
-    """
-    a, b, fa, fb = (np.array(v, float).ravel() for v in (a, b, fa, fb))
-    xtol = np.broadcast_to(np.asarray(xtol, float).ravel(), a.shape)
-    width_ref = np.abs(b - a)
-    side = np.zeros(a.shape, int)
-    active = np.abs(b - a) > xtol
-    for it in range(1, _MAX_ITER + 1):
-        if not np.any(active):
-            break
-        j = np.flatnonzero(active)
-        aa, bb, fa_, fb_ = a[j], b[j], fa[j], fb[j]
-        lo, hi = np.minimum(aa, bb), np.maximum(aa, bb)
-        mid = 0.5 * (aa + bb)
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            x = bb - fb_ * (bb - aa) / (fb_ - fa_)
-        force = (it % 3 == 0) & (hi - lo > 0.5 * width_ref[j])
-        x = np.where(~np.isfinite(x) | (x <= lo) | (x >= hi) | force, mid, x)
-        if it % 3 == 0:
-            width_ref[j] = hi - lo
-        stuck = (x <= lo) | (x >= hi)          # adjacent floats: nothing in between
-        fx = fun(x, j)
-        pos = fx >= 0
-        hit = fx == 0
-        sd = side[j]
-        # Anderson-Bjorck: when the same end is replaced twice running, scale the
-        # value kept at the other end by m = 1 - f(new) / f(replaced end)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            m_a = np.where(fa_ != 0, 1.0 - fx / np.where(fa_ != 0, fa_, 1.0), 0.5)
-            m_b = np.where(fb_ != 0, 1.0 - fx / np.where(fb_ != 0, fb_, 1.0), 0.5)
-        m_a = np.where(m_a > 0, m_a, 0.5)
-        m_b = np.where(m_b > 0, m_b, 0.5)
-        keep = stuck
-        a[j] = np.where(keep, aa, np.where(pos, x, aa))
-        fa[j] = np.where(keep, fa_, np.where(pos, fx, np.where(sd == -1, fa_ * m_b, fa_)))
-        b[j] = np.where(keep, bb, np.where(pos & ~hit, bb, x))
-        fb[j] = np.where(keep, fb_, np.where(pos & ~hit, np.where(sd == 1, fb_ * m_a, fb_),
-                                             fx))
-        side[j] = np.where(pos, 1, -1)
-        active[j] = ~stuck & ~hit & (np.abs(b[j] - a[j]) > xtol[j])
-    return a, b
-
-
 def _walk(f: Callable[[Array, Array], Array], x0: Array, f0: Array, step: Array,
           end: Array, direction: int, rejecting: bool) -> tuple[Array, Array, Array, Array]:
     """From ``x0`` step by ``step * 2^k`` in ``direction`` (clamped at ``end``) until
@@ -831,7 +778,7 @@ def _limit(zfun: Callable[[Array, Array], Array], target: Array, start: Array, s
         def fs(x: Array, k: Array) -> Array:
             return f(x, j[k])
 
-        _, acc_end = _solve(fs, rej[j], acc[j], f_rej[j], f_acc[j], xtol[j])
+        _, acc_end = solve_brackets(fs, rej[j], acc[j], f_rej[j], f_acc[j], xtol[j])
         result[j] = acc_end
     return result
 
