@@ -32,8 +32,12 @@ Grids
     (its cells are also O'Brien-Fleming-type plans at those K); revenue and counts
     at K = 5; the three futility variants; uneven and extra looks; the mixture
     SPRT on fixed traffic and, with 20,000 replicates, on random traffic; random
-    traffic for a group-sequential plan with 1,000 replicates (each replicate needs
-    its own boundary computation, about 3 ms), which catches only gross leaks.
+    traffic for a group-sequential plan (the exact screen of
+    :mod:`seqtest.simulation.screen` spares most replicates their own boundaries); and
+    each tail of binary plans with unequal arms (1:2, 1:4, 4:1) at a 2% baseline, one-
+    and two-sided, and of the relative scale with equal arms on planned and random
+    traffic (the full grid adds a 1% baseline and the relative scale with unequal
+    arms).
 
 The rule
 --------
@@ -150,6 +154,45 @@ def _scenario(name: str, data: dict, traffic: dict | None = None, **extra: Any) 
     return d
 
 
+#: The cells whose tails were recorded with the first release's statistics
+#: (``simulations/report/per-tail-before.json``), by (allocation, sides, scale, traffic).
+TAIL_GROUP = "each tail at its level"
+
+
+def _tail_cells(full: bool, reps: int, random_reps: int) -> list[tuple]:
+    """Binary metrics with unequal arms (1:2, 1:4, 4:1 control to treatment), rare
+    outcomes (2%, and 1% in the full grid), one- and two-sided, on the difference and
+    the relative scale, and the relative scale with equal arms on random traffic."""
+    out: list[tuple] = []
+    baselines = (0.02, 0.01) if full else (0.02,)
+    scales = ("difference", "relative") if full else ("difference",)
+    for base in baselines:
+        for scale in scales:
+            for alloc, ratio in ((4.0, "1:4"), (2.0, "1:2"), (0.25, "4:1")):
+                for sides in (1, 2):
+                    rel = scale == "relative"
+                    metric = {"kind": "binary", "baseline": base, "allocation": alloc,
+                              "mde": 0.3 if rel else 0.3 * base, "relative": rel,
+                              "scale": scale}
+                    cid = f"tail-binary-{base:g}-{scale}-{ratio}-s{sides}"
+                    out.append((cid, TAIL_GROUP, _gs("obrien-fleming-type", 5, sides, metric),
+                                _scenario(cid, {"kind": "binary", "rate": base}), reps,
+                                {"labels": {"baseline": base, "scale": scale,
+                                            "allocation": ratio, "sides": sides,
+                                            "traffic": "fixed"}}))
+    # relative scale, equal arms, 4.5%, powered 0.8 for a 10% lift
+    rel = {"kind": "binary", "baseline": 0.045, "mde": 0.1, "relative": True,
+           "scale": "relative"}
+    for traffic, n in (("fixed", reps), ("random", random_reps)):
+        cid = f"tail-binary-0.045-relative-1:1-s2-{traffic}"
+        tr = RANDOM_TRAFFIC if traffic == "random" else {"mode": "fixed"}
+        out.append((cid, TAIL_GROUP, {**_gs("obrien-fleming-type", 5, 2, rel), "power": 0.8},
+                    _scenario(cid, {"kind": "binary", "rate": 0.045}, tr), n,
+                    {"labels": {"baseline": 0.045, "scale": "relative", "allocation": "1:1",
+                                "sides": 2, "traffic": traffic}}))
+    return out
+
+
 def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None
                ) -> list[Cell]:
     """The cells of the ``reduced`` or ``full`` grid (see the module docstring)."""
@@ -157,7 +200,7 @@ def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None
         raise ValueError(f"grid: got {grid!r}; allowed are reduced and full")
     full = grid == "full"
     if random_reps is None:
-        random_reps = reps if full else 1_000
+        random_reps = reps
     cells: list[Cell] = []
 
     def add(cid: str, group: str, plan: dict, sc: dict, n: int, **kw: Any) -> None:
@@ -194,6 +237,10 @@ def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None
                 _gs("obrien-fleming-type", 5, 2, metric),
                 _scenario(f"{kind}-OF-type-K5-s2", METRICS[kind][1]), reps,
                 labels={"family": "OF-type", "K": 5, "sides": 2, "data": kind})
+
+    # each tail at its level: unequal arms, rare outcomes, the relative scale
+    for cell in _tail_cells(full, reps, random_reps):
+        add(*cell[:5], **cell[5])
 
     # futility boundaries
     variants = [("non-binding, ignored", False, "ignore"),
@@ -540,6 +587,59 @@ def _slug(text: str) -> str:
         "--", "-")
 
 
+BEFORE = Path(__file__).resolve().parent / "report" / "per-tail-before.json"
+
+
+def _before_key(text: str) -> tuple[str, int, str, str]:
+    """(allocation, sides, scale, traffic) of a cell of the first release's record."""
+    alloc = "1:1" if "equal arms" in text else text.split("allocation ")[1].split(",")[0]
+    sides = 1 if "one-sided" in text else 2
+    scale = "relative" if "relative" in text else "difference"
+    traffic = "random" if "random traffic" in text else "fixed"
+    return alloc, sides, scale, traffic
+
+
+def _tail_section(grows: list[dict]) -> list[str]:
+    """The per-tail table, with the first release's rates beside today's."""
+    before: dict[tuple[str, int, str, str], dict] = {}
+    if BEFORE.exists():
+        for c in json.loads(BEFORE.read_text())["cells"]:
+            before[_before_key(c["cell"])] = c
+    lines = [f"## {TAIL_GROUP}", "",
+             "A plan promises alpha for the upper tail of a one-sided test and alpha/2 for "
+             "each tail of a two-sided one. Binary metrics with unequal arms (control to "
+             "treatment 1:4, 1:2, 4:1), rare outcomes and the relative scale, 5-look "
+             "O'Brien-Fleming-type plans; 100,000 experiments a cell. *Before*: the "
+             "first release (unpooled Wald statistic; the simulator's z on the ratio for "
+             "the relative scale), from `report/per-tail-before.json`; *now*: the "
+             "skewness-corrected score statistic, with its 95% Clopper-Pearson interval.",
+             "",
+             "| cell | per tail | upper before | upper now (95% CI) | lower before | "
+             "lower now (95% CI) | verdict |",
+             "|---|---|---|---|---|---|---|"]
+    for r in grows:
+        lab = r["labels"]
+        b = before.get((lab["allocation"], lab["sides"], lab["scale"], lab["traffic"]))
+        if lab.get("baseline") not in (0.02, 0.045):
+            b = None
+        tails = r.get("tails", {})
+        cells = []
+        for d in ("upper", "lower"):
+            t = tails.get(d)
+            was = "-" if b is None or (d == "lower" and lab["sides"] == 1) \
+                else f"{b[d]['rate']:.4f}"
+            now = "-" if t is None else (f"{t['rate']:.4f} ({t['ci95'][0]:.4f}-"
+                                          f"{t['ci95'][1]:.4f})")
+            cells += [was, now]
+        alpha_t = r["alpha"] / lab["sides"]
+        verdict = "**LEAKS**" if r["leak"] else ("watch" if r["watch"] else "holds")
+        name = (f"{lab['baseline']:g} {lab['scale']} {lab['allocation']} "
+                f"{'one' if lab['sides'] == 1 else 'two'}-sided {lab['traffic']}")
+        lines.append(f"| {name} | {alpha_t:g} | {cells[0]} | {cells[1]} | {cells[2]} | "
+                     f"{cells[3]} | {verdict} |")
+    return [*lines, ""]
+
+
 def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int,
                  seconds: float, not_run: list[str]) -> Path:
     """Write ``report.md``, ``results.json`` and the PNGs to ``out``."""
@@ -611,11 +711,16 @@ def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int
                          f"{r['naive_reference']:.3f} | {r['rate']:.4f} | "
                          f"{'yes' if r['naive_ok'] else 'NO'} |")
         lines += ["", "![naive baseline](naive.png)", ""]
+    if TAIL_GROUP in groups:
+        lines += _tail_section(groups[TAIL_GROUP])
     for g, grows in groups.items():
         if g == "naive baseline":
             continue
         png = f"{_slug(g)}.png"
         _forest(grows, g, out / png)
+        if g == TAIL_GROUP:  # its table is the per-tail one above
+            lines += [f"![{g}]({png})", ""]
+            continue
         lines += [f"## {g}", "", f"![{g}]({png})", "",
                   "| cell | reps | alpha | type I error | 95% CI | naive | E[N]/N_max | "
                   "verdict |", "|---|---|---|---|---|---|---|---|"]
