@@ -30,7 +30,7 @@ from typing import Any
 
 import numpy as np
 import pytest
-from scipy import special, stats
+from scipy import integrate, special, stats
 
 from seqtest import spending
 from seqtest.core import multiarm as ma
@@ -210,12 +210,37 @@ def test_one_look_one_sided_dunnett_1955(k: int, value: float) -> None:
                                          (4, 2, [1] * 4), (3, 1, [0.5, 1.0, 4.0])])
 def test_one_look_against_scipy_multivariate_normal(k: int, sides: int, a: list) -> None:
     # scipy's MVN CDF at the same correlation: the level at the solved boundary is
-    # 0.05 to the lattice rule's error (abseps 1e-7) plus the module's (1e-10 at one
+    # 0.05 to the lattice rule's error (abseps 1e-6) plus the module's (1e-10 at one
     # look, module docstring).
     res = ma.dunnett_bounds([1.0], [0.05 / sides], a, sides=sides)
     assert res.standard_error[0] == 0.0
     level = mvn_cumulative(res.z, np.array([1.0]), a, sides)[0]
     assert abs(level - 0.05) <= 3e-6
+
+
+@pytest.mark.parametrize("sides", [1, 2])
+@pytest.mark.parametrize("a", [[1.0] * 2, [1.0] * 8, [0.5, 1.0, 2.0], [0.1, 10.0, 1.0]])
+def test_one_look_against_adaptive_quadrature_of_dunnetts_integral(sides: int,
+                                                                   a: list) -> None:
+    # Dunnett (1955): P(no comparison crosses) = integral of phi(u) prod_i
+    # P(|sqrt(lam_i) u + sqrt(1 - lam_i) X| < c); scipy.integrate.quad (adaptive
+    # Gauss-Kronrod, unrelated to the module's trapezoidal rule) at the solved c.
+    alpha = 0.05 / sides
+    c = ma.dunnett_bounds([1.0], [alpha], a, sides=sides).z[0]
+    lam = np.asarray(a) / (1.0 + np.asarray(a))
+
+    def crossing(u: float) -> float:
+        hi = (c - np.sqrt(lam) * u) / np.sqrt(1 - lam)
+        if sides == 1:
+            log_stay = np.sum(special.log_ndtr(hi))
+        else:
+            lo = (-c - np.sqrt(lam) * u) / np.sqrt(1 - lam)
+            with np.errstate(divide="ignore"):  # far out: nobody stays, log 0
+                log_stay = np.sum(np.log(special.ndtr(hi) - special.ndtr(lo)))
+        return float(-np.expm1(log_stay) * np.exp(-0.5 * u * u) / math.sqrt(2 * math.pi))
+
+    level = integrate.quad(crossing, -12, 12, epsabs=1e-14, epsrel=1e-12, limit=200)[0]
+    assert abs(level - 0.05) <= 1e-12
 
 
 def test_one_look_tiny_alpha_keeps_relative_precision() -> None:
@@ -273,12 +298,12 @@ MVN_CASES = [
 def test_many_looks_against_scipy_multivariate_normal(a: list, t: np.ndarray, sides: int,
                                                       fn: Spending) -> None:
     # At the solved boundaries the family-wise error spent by each look, from scipy's
-    # MVN CDF (abseps 1e-7), equals the spending target within the module's stated
+    # MVN CDF (abseps 1e-6), equals the spending target within the module's stated
     # accuracy: 4 reported standard errors plus the grid's bias.
     cum = fn(t, 0.025) * sides
     res = ma.dunnett_bounds(t, cum / sides, a, sides=sides)
     ref = mvn_cumulative(res.z, t, a, sides)
-    se = np.sqrt(np.cumsum(res.standard_error ** 2))
+    se = res.standard_error
     assert np.allclose(res.family_error, cum, atol=1e-12, rtol=1e-10)
     assert np.all(np.abs(ref - cum) <= QMC_T * se + INNER + 3e-6)
 
@@ -308,7 +333,7 @@ def test_family_wise_error_by_plain_monte_carlo(a: list, sides: int) -> None:
     res = ma.dunnett_bounds(t, OBF(t, 0.025), a, sides=sides)
     n = 400_000
     p, _ = simulate_raw(res.z, t, a, n, seed=2024 + sides, sides=sides)
-    se = float(np.sqrt(np.sum(res.standard_error ** 2)))
+    se = res.standard_error[-1]
     assert abs(p - target) <= mc_bound(target, n) + QMC_T * se
 
 
@@ -319,7 +344,7 @@ def test_unequal_looks_eight_arms_by_plain_monte_carlo() -> None:
     res = ma.dunnett_bounds(t, POCOCK(t, 0.025), a, points=1024)
     n = 200_000
     p, _ = simulate_raw(res.z, t, a, n, seed=77)
-    se = float(np.sqrt(np.sum(res.standard_error ** 2)))
+    se = res.standard_error[-1]
     assert abs(p - 0.025) <= mc_bound(0.025, n) + QMC_T * se
 
 
@@ -394,7 +419,7 @@ def test_binding_futility_by_plain_monte_carlo() -> None:
     assert np.all(bound.z[1:] < free.z[1:])
     n = 300_000
     p, _ = simulate_raw(bound.z, t, a, n, seed=8, futility=fut)
-    se = float(np.sqrt(np.sum(bound.standard_error ** 2)))
+    se = bound.standard_error[-1]
     assert abs(p - 0.025) <= mc_bound(0.025, n) + QMC_T * se
 
 
@@ -450,6 +475,13 @@ def test_same_inputs_same_bits_and_seeds_agree_within_error() -> None:
     other = ma.dunnett_bounds(t, cum, [1.0, 1.0, 1.0], points=512, seed=7)
     assert np.all(np.abs(other.z - one.z) <= QMC_T * np.hypot(one.z_error, other.z_error)
                   + 1e-9)
+
+
+def test_accuracy_asks_for_more_paths_until_reached() -> None:
+    t = equal(3)
+    res = ma.dunnett_bounds(t, OBF(t, 0.025), [1.0, 1.0, 1.0], accuracy=1e-5, points=128)
+    assert res.standard_error[-1] <= 1e-5
+    assert res.paths > 128 * ma.DEFAULT_REPLICATES
 
 
 def test_monitoring_recomputes_one_look_at_a_time() -> None:

@@ -43,36 +43,56 @@ Geller 1994 and Magirr, Jaki and Whitehead 2012).
 
 - *Given the control path*, each arm's own part ``X_k = B(t_k) / sqrt(t_k)`` is
   propagated by the recursion of Armitage, McPherson and Rowe (1969) on the grid of
-  Jennison and Turnbull (2000, chapter 19), centred on 0 and shared by every control
-  path, so that one look's step for all paths is one matrix product with one kernel
-  matrix. Each path's continuation interval cuts the grid inside a Simpson panel; the
-  partial panel is integrated with the quadratic through the panel's three nodes, so
-  the per-path quadrature weights are continuous, differentiable functions of the
-  boundary (Newton steps work) and the error stays of Simpson's order. The grid is
-  refined where looks are close (panel width below a third of the step's standard
-  deviation). Arms with the same allocation, effect and futility rule share one
-  recursion.
-- *Over the control path*, look 1 is a one-dimensional integral, done with the
-  trapezoidal rule on 1601 nodes over ``[-10, 10]`` (exact to about 1e-13 for these
-  smooth, fast-decaying integrands; it is Dunnett's single-look integral, so ``K = 1``
-  is deterministic and exact). Looks 2.. use randomised quasi-Monte Carlo: scrambled
-  Sobol' points (Owen scrambling, :class:`scipy.stats.qmc.Sobol`) in the increments of
-  the control path (one dimension per look, so the first ``k`` looks of a design use the
-  same paths whatever ``K``), in ``replicates`` independent scramblings with a fixed seed.
-  The spread of the replicates gives the standard error of every probability; the
-  results are deterministic (same inputs, same numbers).
+  Jennison and Turnbull (2000, chapter 19; ``r = 12``, 141 nodes), centred on 0 and
+  shared by every control path, so that one look's step for all paths is one matrix
+  product with one kernel matrix. Each path's continuation interval cuts the grid
+  inside a Simpson panel; the partial panel is integrated with the quadratic through
+  the panel's three nodes, so the per-path weights are continuous, differentiable
+  functions of the boundary (Newton steps work) and the error stays of Simpson's
+  order. The grid is refined where looks are close (central panel below a third of
+  a step's standard deviation). Arms with the same allocation and drift share one
+  recursion; each comparison on its own also runs the one-dimensional recursion of
+  :mod:`seqtest.core.recursion` (its exact crossing probabilities).
+- *Over the control path*, look 1 is a one-dimensional integral: the trapezoidal rule
+  on 1601 nodes over ``[-10, 10]`` (Dunnett's single-look integral; ``K = 1`` is
+  deterministic). Looks 2.. use randomised quasi-Monte Carlo: scrambled Sobol' points
+  (Owen 1997; :class:`scipy.stats.qmc.Sobol`) drive the control's increments (one dimension per
+  look, so the first looks of a design use the same paths whatever comes after), in
+  ``replicates`` independent scramblings with a fixed seed; the spread of the
+  replicates gives the standard errors reported, and equal inputs give equal bits.
+  At each look the family's drop is averaged over that look's own control increment
+  with Gauss-Hermite nodes (12 to 64, more as ``a_i / (1 + a_i)`` grows), and a control
+  variate with an exactly known mean is subtracted where it lowers the variance: the
+  arms' own crossings, or the look's crossing as if no look had come before (the
+  latter keeps the small crossing probabilities of early looks to about 1e-4
+  relative).
 - The family-wise crossing at look ``k`` is ``E[prod_i A_i,k-1 - prod_i A_ik]`` with
   ``A_ik`` the probability, given the control path, that arm ``i`` has not crossed by
-  look ``k``; the difference is formed per path without cancellation, so small early
-  probabilities keep their relative precision.
+  look ``k``; the difference is formed per path without cancellation.
 
-Accuracy (measured in ``tests/test_multiarm.py``, against scipy's multivariate normal
-CDF, plain Monte Carlo, the one-dimensional recursion and the published Dunnett
-values): with the default ``points=1024`` and ``replicates=8`` the cumulative
-family-wise probabilities are within about 2e-6 absolute of the exact values, and the
-standard errors reported by :func:`multiarm_crossing` hold; single-look values are exact
-to about 1e-10 and the boundaries from :func:`dunnett_bounds` to about 1e-4 on the z
-scale at the looks that spend 1e-4 or more (1e-8 for ``K = 1``).
+Accuracy (measured: tests/test_multiarm.py, benchmarks/bench_multiarm.py)
+--------------------------------------------------------------------------
+- One look: the level at the solved boundary agrees with an adaptive quadrature of
+  Dunnett's integral (scipy.integrate.quad) to 3e-15, so the published values are
+  reproduced to every printed digit.
+- One arm: the project's two-arm boundaries to 1e-9 on z (the one-dimensional
+  recursion's accuracy, about 1e-7 in probability).
+- Many arms and looks: the error is that of the quasi-Monte Carlo integral, measured by
+  the reported standard errors (over 12 seeds at k = 4, K = 5 the errors against
+  scipy's MVN CDF at abseps 1e-6 had a spread of 1.0 reported standard error, none
+  beyond 2.4), plus a grid bias below 1e-6 (against a grid 4 times as fine) and a
+  Gauss-Hermite bias far below the standard error. With the default 2048 points and
+  8 replicates (16,384 control paths) and O'Brien-Fleming-type spending of 0.025, the
+  family-wise error's standard error is 9e-6 (k = 2, K = 3), 2e-5 (k = 4, K = 5) and
+  8e-5 (k = 8, K = 10); the boundaries' standard errors on the z scale are up to 4e-4,
+  7e-4 and 3e-3. The error grows when the treatment arms outgrow the control (the
+  comparisons then follow the control's path closely): ``a = 2`` gives 8e-5 at
+  k = 4, K = 5, ``a = 1/2`` gives 9e-6. ``accuracy`` asks for more paths (the error
+  falls about as 1 / points).
+- Cost: per look and distinct arm group one matrix product of (paths x 141) by
+  (141 x 141) and a few evaluations on (paths x nodes): about 0.6 s on one core for
+  k = 4, K = 5 with equal allocation, linear in the looks and in the number of
+  distinct allocations.
 
 References
 ----------
@@ -999,11 +1019,11 @@ class DunnettBounds:
         The family-wise error spent by each look as computed at these boundaries
         (both tails when two-sided): the target up to the solver's tolerance.
     standard_error : ndarray
-        Standard error of each look's crossing probability, from the spread of the
+        Standard error of ``family_error`` at each look, from the spread of the
         quasi-Monte Carlo replicates (zero where computed by quadrature).
     z_error : ndarray
-        Standard error of each boundary on the z scale implied by it (the look's
-        standard error over the slope of its crossing probability).
+        Standard error of each boundary on the z scale: that of the look's own
+        crossing probability over the probability's slope in the boundary.
     paths : int
         Number of control paths used.
     """
@@ -1109,14 +1129,14 @@ def dunnett_bounds(
     groups = _groups(_lam(a), np.zeros(a.size))
     while True:
         run = _run(t, groups, s, "either", fut, bounds, inc, p, reps, seed_, rr)
-        se_look = run.by_rep.std(axis=0, ddof=1) / math.sqrt(reps)
-        se_cum = float(np.cumsum(run.by_rep, axis=1)[:, -1].std(ddof=1)) / math.sqrt(reps)
-        if target is None or se_cum <= target or p >= 2 ** 15:
+        se_cum = np.cumsum(run.by_rep, axis=1).std(axis=0, ddof=1) / math.sqrt(reps)
+        if target is None or se_cum[-1] <= target or p >= 2 ** 15:
             break
         p *= 2
+    se_look = run.by_rep.std(axis=0, ddof=1) / math.sqrt(reps)
     with np.errstate(divide="ignore", invalid="ignore"):
         z_err = np.where(run.slope != 0, se_look / np.abs(run.slope), 0.0)
-    return DunnettBounds(run.bounds, np.cumsum(run.prob), se_look, z_err, run.paths)
+    return DunnettBounds(run.bounds, np.cumsum(run.prob), se_cum, z_err, run.paths)
 
 
 def comparison_drift(
