@@ -4,10 +4,11 @@ Boundaries (a tail probability equal to the error to spend), the drift of a plan
 power equal to the target), the classical constant (the level equal to alpha), the
 stage-wise p-value, confidence limits and median-unbiased estimate (a probability equal
 to a level): each is the root of a monotone function of one variable that is nearly
-linear on a well-chosen scale (log or probit of a probability). :func:`solve` finds it.
+linear on a well-chosen scale (log or probit of a probability). :func:`solve` finds it;
+:func:`solve_brackets` finds many already-bracketed roots at once (interval limits).
 
-Method (:func:`solve`): Newton steps when the caller supplies the slope, secant steps otherwise, from a
-starting point and a guess of the scale; once a sign change is seen, the root is kept
+Method of :func:`solve`: Newton steps when the caller supplies the slope, secant steps
+otherwise, from a starting point and a guess of the scale; once a sign change is seen, the root is kept
 bracketed and any step that leaves the bracket, or fails to halve it within two steps,
 is replaced by an Anderson-Bjorck step (regula falsi with the Anderson-Bjorck weight;
 bisection when the end values are unknown). Before a sign change is seen, the search
