@@ -8,13 +8,14 @@ linear on a well-chosen scale (log or probit of a probability). :func:`solve` fi
 :func:`solve_brackets` finds many already-bracketed roots at once (interval limits).
 
 Method of :func:`solve`: Newton steps when the caller supplies the slope, secant steps
-otherwise, from a starting point and a guess of the scale; once a sign change is seen, the root is kept
-bracketed and any step that leaves the bracket, or fails to halve it within two steps,
-is replaced by an Anderson-Bjorck step (regula falsi with the Anderson-Bjorck weight;
-bisection when the end values are unknown). Before a sign change is seen, the search
-moves downhill by doubling steps up to the limits ``lo``/``hi``. It stops when
-``|g| <= gtol`` or the bracket is narrower than ``xtol`` (relative to ``max(1, |x|)``).
-On the nearly linear scales used here it takes two to five evaluations.
+otherwise, from a starting point and a guess of the scale; once a sign change is seen,
+the root is kept bracketed and any step that leaves the bracket, or fails to halve it
+within two steps, is replaced by an Anderson-Bjorck step (regula falsi with the
+Anderson-Bjorck weight; bisection when the end values are unknown). Before a sign
+change is seen, the search moves downhill by doubling steps up to the limits
+``lo``/``hi``. It stops when ``|g| <= gtol`` or the bracket is narrower than ``xtol``
+(relative to ``max(1, |x|)``). On the nearly linear scales used here it takes two to
+five evaluations.
 
 References
 ----------
