@@ -43,42 +43,47 @@ def register(sub: Any) -> None:
                                    "decision.\nThe looks come from a CSV file or from a "
                                    "database query (--sql).",
                        epilog=_COLUMNS_EPILOG, formatter_class=_HelpWithColumns)
-    a.add_argument("looks", nargs="?", default=None,
-                   help="CSV file of looks (layouts below); or give --sql")
-    a.add_argument("--column", action="append", default=[], metavar="NAME=TARGET",
-                   dest="columns",
-                   help="read column NAME as TARGET: ARM.TOTAL (wide layout), TOTAL (long "
-                        "layout), look, arm, date, note, or - to ignore it; repeatable")
-    a.add_argument("--control", metavar="ARM", default=None,
-                   help="name of the control arm (default: the arm named 'control')")
-    a.add_argument("--sql", metavar="QUERY", default=None,
-                   help="read the looks from a database: a SELECT returning the looks in "
-                        "either layout (needs --database-url)")
-    a.add_argument("--sql-file", metavar="FILE", default=None, dest="sql_file",
-                   help="like --sql, the query read from FILE")
-    a.add_argument("--database-url", metavar="URL", default=None, dest="database_url",
-                   help="database for --sql, e.g. postgresql://user@host/db or "
-                        f"sqlite:///looks.db (default: ${DATABASE_URL_ENV})")
-    a.add_argument("--plan", required=True, help="plan document from 'seqtest plan --json'")
-    a.add_argument("--trust-plan", action="store_true", dest="trust_plan",
-                   help="skip checking the plan's computed numbers against its inputs")
-    a.add_argument("--metric", choices=("binary", "continuous", "rate"), default=None,
-                   help="metric kind when the plan has none")
-    a.add_argument("--final", action="store_true",
-                   help="declare the last look final (spend all remaining alpha)")
-    a.add_argument("--max-n", type=float, default=None, dest="max_n",
-                   help="maximum total over both arms, when the plan has no metric")
-    a.add_argument("--fraction-basis", "--fraction", choices=("sample", "information"),
-                   default="sample", dest="fraction_basis",
-                   help="measure information fractions by sample size (default) or by "
-                        "statistical information (--fraction: the first release's name)")
-    a.add_argument("--daily-traffic", type=float, default=None, dest="daily_traffic",
-                   help="users per day over both arms, to project days to the next look")
+    add_look_inputs(a)
     a.add_argument("--json", metavar="FILE", default=None,
                    help="write the analysis (JSON) to FILE ('-' for stdout)")
     a.add_argument("--plot", metavar="FILE.png", default=None,
                    help="draw the z path against the boundaries")
     a.set_defaults(func=cmd_analyze)
+
+
+def add_look_inputs(p: argparse.ArgumentParser) -> None:
+    """The options that name the plan and the looks (``analyze`` and ``report``)."""
+    p.add_argument("looks", nargs="?", default=None,
+                   help="CSV file of looks (layouts below); or give --sql")
+    p.add_argument("--column", action="append", default=[], metavar="NAME=TARGET",
+                   dest="columns",
+                   help="read column NAME as TARGET: ARM.TOTAL (wide layout), TOTAL (long "
+                        "layout), look, arm, date, note, or - to ignore it; repeatable")
+    p.add_argument("--control", metavar="ARM", default=None,
+                   help="name of the control arm (default: the arm named 'control')")
+    p.add_argument("--sql", metavar="QUERY", default=None,
+                   help="read the looks from a database: a SELECT returning the looks in "
+                        "either layout (needs --database-url)")
+    p.add_argument("--sql-file", metavar="FILE", default=None, dest="sql_file",
+                   help="like --sql, the query read from FILE")
+    p.add_argument("--database-url", metavar="URL", default=None, dest="database_url",
+                   help="database for --sql, e.g. postgresql://user@host/db or "
+                        f"sqlite:///looks.db (default: ${DATABASE_URL_ENV})")
+    p.add_argument("--plan", required=True, help="plan document from 'seqtest plan --json'")
+    p.add_argument("--trust-plan", action="store_true", dest="trust_plan",
+                   help="skip checking the plan's computed numbers against its inputs")
+    p.add_argument("--metric", choices=("binary", "continuous", "rate"), default=None,
+                   help="metric kind when the plan has none")
+    p.add_argument("--final", action="store_true",
+                   help="declare the last look final (spend all remaining alpha)")
+    p.add_argument("--max-n", type=float, default=None, dest="max_n",
+                   help="maximum total over both arms, when the plan has no metric")
+    p.add_argument("--fraction-basis", "--fraction", choices=("sample", "information"),
+                   default="sample", dest="fraction_basis",
+                   help="measure information fractions by sample size (default) or by "
+                        "statistical information (--fraction: the first release's name)")
+    p.add_argument("--daily-traffic", type=float, default=None, dest="daily_traffic",
+                   help="users per day over both arms, to project days to the next look")
 
 
 _HEADS = {
@@ -159,13 +164,20 @@ def read_looks(args: argparse.Namespace, kind: str | None) -> list[dict]:
     return table.two_arm()
 
 
-def cmd_analyze(args: argparse.Namespace) -> int:
+def analysis_of(args: argparse.Namespace) -> tuple[Any, Any]:
+    """The plan and the analysis of the looks the options of :func:`add_look_inputs`
+    name."""
     from seqtest.monitoring.analysis import analyze
     plan = read_plan(args.plan, trust=args.trust_plan)
     kind = (getattr(plan, "metric", None) or {}).get("kind") or args.metric
     looks = read_looks(args, kind)
     analysis = analyze(plan, looks, metric=args.metric, final=args.final, max_n=args.max_n,
                        daily_traffic=args.daily_traffic, fraction_basis=args.fraction_basis)
+    return plan, analysis
+
+
+def cmd_analyze(args: argparse.Namespace) -> int:
+    plan, analysis = analysis_of(args)
     if args.json:
         write(json.dumps(analysis.to_dict(), indent=2, allow_nan=False), args.json)
     if args.json != "-":

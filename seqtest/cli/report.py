@@ -15,7 +15,8 @@ import argparse
 from pathlib import Path
 from typing import Any
 
-from seqtest.cli.common import UsageError, read_plan
+from seqtest.cli.analyze import add_look_inputs, analysis_of
+from seqtest.cli.common import UsageError
 
 __all__ = ["register"]
 
@@ -24,22 +25,7 @@ def register(sub: Any) -> None:
     """Add the ``report`` subcommand."""
     r = sub.add_parser("report", help="write a one-page report (HTML, Markdown) of the "
                                       "looks so far")
-    r.add_argument("looks", help="CSV file, one row per look (as for 'seqtest analyze')")
-    r.add_argument("--plan", required=True, help="plan document from 'seqtest plan --json'")
-    r.add_argument("--trust-plan", action="store_true", dest="trust_plan",
-                   help="skip checking the plan's computed numbers against its inputs")
-    r.add_argument("--metric", choices=("binary", "continuous", "rate"), default=None,
-                   help="metric kind when the plan has none")
-    r.add_argument("--final", action="store_true",
-                   help="declare the last look final (spend all remaining alpha)")
-    r.add_argument("--max-n", type=float, default=None, dest="max_n",
-                   help="maximum total over both arms, when the plan has no metric")
-    r.add_argument("--fraction-basis", choices=("sample", "information"), default="sample",
-                   dest="fraction_basis",
-                   help="measure information fractions by sample size (default) or by "
-                        "statistical information")
-    r.add_argument("--daily-traffic", type=float, default=None, dest="daily_traffic",
-                   help="users per day over both arms, to project days to the next look")
+    add_look_inputs(r)
     r.add_argument("--html", metavar="FILE.html", default=None,
                    help="write the self-contained HTML page to FILE.html")
     r.add_argument("--markdown", metavar="FILE.md", default=None,
@@ -64,15 +50,10 @@ def cmd_report(args: argparse.Namespace) -> int:
         raise UsageError("give --html FILE.html, --markdown FILE.md, or both")
     html_path = _target(args.html, "--html") if args.html else None
     md_path = _target(args.markdown, "--markdown") if args.markdown else None
-    from seqtest.monitoring.analysis import analyze
-    from seqtest.monitoring.lookfile import read_looks_csv
     from seqtest.reporting import effect_svg, report_html, report_markdown, z_path_svg
-    plan = read_plan(args.plan, trust=args.trust_plan)
-    kind = (getattr(plan, "metric", None) or {}).get("kind") or args.metric
-    looks = read_looks_csv(args.looks, kind)
-    analysis = analyze(plan, looks, metric=args.metric, final=args.final, max_n=args.max_n,
-                       daily_traffic=args.daily_traffic, fraction_basis=args.fraction_basis)
-    title = args.title or Path(args.looks).stem.replace("_", " ")
+    plan, analysis = analysis_of(args)
+    title = args.title or (Path(args.looks).stem.replace("_", " ") if args.looks
+                           else "experiment")
     noun = args.metric_name
     if html_path is not None:
         html_path.write_text(report_html(analysis, plan, title=title, noun=noun),
