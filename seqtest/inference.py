@@ -5,8 +5,12 @@ Everything here is on the canonical scale of :mod:`seqtest.boundaries`: at look
 the effect in the units of the estimate and ``I_k = 1 / se_k^2`` its information.
 
 - Repeated confidence intervals (Jennison and Turnbull 1989): at look ``k``,
-  ``estimate_k +- c_k se_k`` with ``c_k`` the efficacy boundary; they hold their
-  level simultaneously over all looks, whatever the stopping rule.
+  ``estimate_k +- c_k se_k`` with ``c_k`` the boundaries of a test that does not
+  rely on the stopping rule: the efficacy boundaries, or for a plan with binding
+  futility those of the same spending without futility (the binding ones assume
+  that paths stop at the futility boundary, which an interval centred on an
+  arbitrary effect cannot; Jennison and Turnbull 2000, chapter 9). They then hold
+  their level simultaneously over all looks, whatever the stopping rule.
 - Stage-wise ordering (Tsiatis, Rosner and Mehta 1984; Jennison and Turnbull
   2000, section 8.4): outcomes are ordered first by the look at which the upper
   (lower) boundary was crossed, earlier being more extreme, then by ``Z`` at that
@@ -221,7 +225,11 @@ def stagewise(
 def repeated_ci(estimate: np.ndarray, se: np.ndarray, bound: np.ndarray, sides: int
                 ) -> tuple[np.ndarray, np.ndarray]:
     """Repeated confidence interval ``estimate +- bound * se`` (Jennison and Turnbull
-    1989). For a one-sided plan the upper limit is ``inf``."""
+    1989). For a one-sided plan the upper limit is ``inf``.
+
+    ``bound`` must be the boundaries of a test that does not rely on the stopping
+    rule (see the module docstring and :func:`seqtest.monitor.interval_bounds`),
+    or the intervals do not hold their level."""
     est = np.asarray(estimate, float)
     s = np.asarray(se, float)
     c = np.asarray(bound, float)

@@ -36,7 +36,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import asdict, dataclass, field, fields, is_dataclass
+from dataclasses import asdict, dataclass, field, fields, is_dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -124,6 +124,25 @@ def bounds_at(plan: Plan, fractions: Sequence[float], *, final: bool = False
     eff = spending_bounds(t, cum, sides=plan.sides, r=plan.r)
     futz = _futility_bounds(t, plan.drift, eff, plan.sides, beta, fut, plan.r, final=is_final)
     return eff, futz
+
+
+def interval_bounds(plan: Plan, fractions: Sequence[float], *, final: bool = False
+                    ) -> np.ndarray:
+    """Boundaries of the repeated confidence intervals at looks with these fractions.
+
+    A repeated confidence interval ``estimate_k +- c_k se_k`` covers the effect at
+    every look at once with probability ``1 - alpha``, whatever the stopping rule,
+    only when ``c_k`` are the boundaries of a test that does not rely on that rule
+    (Jennison and Turnbull 1989; 2000, chapter 9). The binding efficacy boundaries
+    of a plan with binding futility rely on paths stopping at the futility
+    boundary, which an interval centred on an arbitrary effect cannot assume; so
+    the intervals use the efficacy boundaries of the same spending without
+    futility, on the same observed fractions (error spending as in
+    :func:`bounds_at`). For other plans they are the efficacy boundaries.
+    """
+    if plan.binding and plan.futility is not None:
+        plan = replace(plan, futility=None, binding=False)
+    return bounds_at(plan, fractions, final=final)[0]
 
 
 def decide(z: np.ndarray, efficacy_z: np.ndarray, futility_z: np.ndarray | None,
@@ -471,6 +490,9 @@ def analyze(
     last_final = bool(final or t[last - 1] >= 1.0)
     future = np.empty(0) if last_final else _future_fractions(plan, float(t[last - 1]))
     a_all, b_all = bounds_at(plan, np.concatenate([t[:last], future]), final=True)
+    # repeated confidence intervals: boundaries that do not assume futility stops
+    c_all = a_all if not plan.binding else interval_bounds(
+        plan, np.concatenate([t[:last], future]), final=True)
 
     # decide look by look
     records: list[LookResult] = []
@@ -481,7 +503,8 @@ def analyze(
         b_j = None if b_all is None else float(b_all[j])
         dec = _decide_one(float(w_z[j]), a_j, b_j, plan.sides, is_final, degenerate[j])
         srm_p = srm_at_look(kind, n_c[j], n_t[j], alloc, srm_threshold, j + 1, warnings)
-        rci_lo, rci_hi = inference.repeated_ci(w_est[j], w_se[j], a_j, plan.sides)
+        rci_lo, rci_hi = inference.repeated_ci(w_est[j], w_se[j], float(c_all[j]),
+                                               plan.sides)
         if relative:
             rci_lo, rci_hi = np.expm1(rci_lo), np.expm1(rci_hi)
         records.append(LookResult(
