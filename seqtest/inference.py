@@ -21,7 +21,8 @@ the effect in the units of the estimate and ``I_k = 1 / se_k^2`` its information
   ``theta`` at which it equals 1/2.
 - Conditional power: the probability, from the current ``Z_k``, of crossing an
   efficacy boundary at a later look, by the same recursion started from a point
-  mass.
+  mass, under an assumed effect whose sign is its direction (the planned effect
+  of a two-sided plan is taken in the direction of the current estimate).
 
 Roots are found by secant steps on the probit of the probability (nearly linear
 in ``theta``), with Brent's method as the fallback, to 1e-10 on the probit scale
@@ -258,7 +259,10 @@ def conditional_power(
         Later looks' information fractions (above ``t_now``) and efficacy boundaries.
     drift : float
         Assumed ``delta * sqrt(I_max)`` (the mean of ``Z`` at fraction 1); its sign
-        is the direction of the effect.
+        is the direction of the effect, so it is the caller's to choose: for the
+        planned effect of a two-sided plan, the sign of the current estimate
+        (:func:`seqtest.analyze` does so; a one-sided plan tests the positive
+        direction only).
     sides : {1, 2}
         Two-sided plans count crossings of either boundary.
 

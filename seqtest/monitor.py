@@ -258,7 +258,10 @@ class Projection:
     ----------
     conditional_power_planned, conditional_power_current : float
         Chance of reaching significance at a later planned look if the true effect
-        is the planned one, or the current estimate.
+        is the planned one, or the current estimate. The planned effect is taken in
+        the direction the plan tests: for a one-sided plan the positive one; for a
+        two-sided plan, which tests both, the direction of the current estimate
+        (positive when the estimate is zero, where both give the same chance).
     next_look_fraction : float or None
         Information fraction of the next planned look.
     more_units_to_next_look, more_units_to_end : float or None
@@ -662,7 +665,9 @@ def _future_fractions(plan: Plan, t_now: float) -> np.ndarray:
 
 def _projection(plan: Plan, z_now: float, t_now: float, future: np.ndarray,
                 fa: np.ndarray, total_max: float | None, daily: float | None) -> Projection:
-    cp_plan = inference.conditional_power(z_now, t_now, future, fa, plan.drift,
+    # the planned effect in the direction the plan tests (see Projection)
+    planned = -plan.drift if (plan.sides == 2 and z_now < 0) else plan.drift
+    cp_plan = inference.conditional_power(z_now, t_now, future, fa, planned,
                                           sides=plan.sides, r=plan.r)
     drift_now = z_now / math.sqrt(t_now)
     cp_now = inference.conditional_power(z_now, t_now, future, fa, drift_now,
