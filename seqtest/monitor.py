@@ -495,7 +495,7 @@ def analyze(
     a_all, b_all = bounds_at(plan, np.concatenate([t[:last], future]), final=True)
     # repeated confidence intervals: boundaries that do not assume futility stops
     c_all = a_all if not plan.binding else interval_bounds(
-        plan, np.concatenate([t[:last], future]), final=True)
+        plan, np.concatenate([t[:last], future]).tolist(), final=True)
 
     # decide look by look
     records: list[LookResult] = []
