@@ -24,13 +24,14 @@ small increment the previous boundary is still a near-step in the density, and
 the ordinary step that follows must resolve it, not only the increment ahead.
 The grid of look ``k``:
 
-1. keeps its middle spacing ``1.5 / r`` at most ``s / 4`` (``r`` raised, up to 200;
-   50 equally spaced looks need ``r`` of about 43 at the last looks);
-2. at a boundary more than 3 sd from the mean, where the grid's panels widen, has
-   panels of ``0.3 s`` (``0.2 s``, at every boundary, under the null, where efficacy
-   boundaries are solved from the small exit probabilities beyond them; ``0.6 s``
-   and only within 4 sd of the mean otherwise) over the zone where the next exit's
-   integrand lives, then panels growing by half the distance;
+1. keeps its middle spacing ``1.5 / r`` at most ``s / 4`` (``s / 5`` under the null,
+   where efficacy boundaries are solved from small exit probabilities), raising
+   ``r`` up to 200 (50 equally spaced looks: about 43, and 54 under the null);
+2. at a boundary more than 3 sd from the mean, where the grid's panels widen: under
+   the null, where they are wider than ``0.3 s``, panels of ``0.2 s`` over the zone
+   where the next exit's integrand lives; otherwise (only the absolute accuracy
+   counts there) panels of ``0.6 s``, and only within 4 sd of the mean; the panels
+   then grow by half the distance;
 3. has panels of 0.3 of its width around the image of each earlier boundary that
    the grid does not yet resolve, growing away from it in the same way;
 4. when ``s < 0.025``, a kernel that panels could only follow by shrinking with
@@ -41,16 +42,17 @@ The grid of look ``k``:
    small the increment, down to looks that coincide to rounding, at a cost that
    does not grow as it shrinks. Merging close looks was rejected: its error, of
    the order of ``s`` times the density at the boundary, exceeds 1e-7 unless the
-   increment is below about 1e-13.
+   increment is below about 1e-11 of the information.
 
 Accuracy, checked for 1 to 50 looks at any spacing (increments down to 1e-13 of
 the information) against an independent dense-grid recursion and, for three
 looks, one-dimensional quadrature of Brownian-bridge probabilities
 (``tests/test_accuracy.py``): exit probabilities within 1e-7 absolute at each look
 (sums such as the power within 1e-7 per look: about 1e-6 for 50 looks); boundaries
-within 1e-6 on the z scale below 6, within 5e-6 from 6 to 8, and beyond 8 (exit
-probabilities below 1e-15) within about 1e-3. Each look costs one ``m x m`` kernel
-evaluation with ``m`` about ``12 r`` (``r = 24`` by default, raised as above).
+within 1e-6 on the z scale below 5 (where a look's exit probability is above about
+3e-7), within 5e-6 from 5 to 8, and beyond 8 (exit probabilities below 1e-15)
+within about 1e-3. Each look costs one ``m x m`` kernel evaluation with ``m`` about
+``12 r`` (``r = 24`` by default, raised as above).
 
 References
 ----------
@@ -137,15 +139,16 @@ def _grid(mu: float, lo: float, hi: float, r: int,
 
 
 # Refinement of the grid (see the module docstring).
-_C_R = 0.25       # middle spacing 1.5 / r at most _C_R * s (s: sd of the next kernel)
+_C_R = 0.25       # middle spacing 1.5 / r at most _C_R * s (s: sd of the next kernel),
+_C_R_NULL = 0.2   # ... _C_R_NULL * s under the null,
 _R_MAX = 200      # ... raising r up to this
 _EDGE_FROM = 3.0  # boundaries farther than this from the mean, where panels widen, get
 _C_EDGE = 0.3     # panels of _C_EDGE * (the feature's width) ...
 _ZONE = 4.0       # ... over _ZONE widths (and to where an exit's integrand peaks),
-_GRADE = 0.5      # then growing by _GRADE times the distance beyond
-_NULL_FROM = 0.0  # under the null every boundary gets them, at feature width
-_NULL_EDGE = 2.0 / 3.0  # (2/3) s; otherwise at 2 s and only within
-_EDGE_ABS = 4.0   # 4 sd of the mean (an exit beyond is below 3e-5)
+_GRADE = 0.5      # then growing by _GRADE times the distance beyond;
+_NULL_EDGE = 2.0 / 3.0  # a boundary's width: (2/3) s under the null, where the grid
+_NULL_SLACK = 1.5  # is refined only if its panels are 1.5 times too wide; 2 s
+_EDGE_ABS = 4.0   # otherwise, and only within 4 sd of the mean (exits beyond: < 3e-5)
 _WINDOW = 9.0     # no refinement beyond 9 sd from the mean (density below 1e-18)
 _S_EXACT = 0.025  # a next kernel narrower than this is integrated exactly
 _H_EXACT = 0.025  # ... against the interpolant, carried on panels at most this wide
@@ -164,7 +167,7 @@ class _Need:
     ``zone`` of the position, and at most ``_GRADE`` times the distance beyond."""
 
     inner: float
-    edges: list[tuple[float, float, float]]
+    edges: list[tuple[float, float, float, float]]
 
     def _binds(self, lo: float, hi: float, mu: float, r: int) -> bool:
         """Whether the grid on ``[lo, hi]`` (already cut to the window) needs any
@@ -177,7 +180,7 @@ class _Need:
         far = max(abs(lo - mu), abs(hi - mu))
         if self.inner < _jt_spacing(far, r):
             return True
-        for x, s, ext in self.edges:
+        for x, s, ext, slack in self.edges:
             cands = [min(max(x, lo), hi), min(max(x - ext, lo), hi),
                      min(max(x + ext, lo), hi)]
             for c in (mu - 3.0, mu + 3.0):
@@ -185,7 +188,7 @@ class _Need:
                     cands.append(c)
             for c in cands:
                 d = abs(c - x)
-                allowed = _C_EDGE * s + _GRADE * max(d - ext, 0.0)
+                allowed = slack * (_C_EDGE * s + _GRADE * max(d - ext, 0.0))
                 # the widest panel touching c: one step further out
                 o = abs(c - mu)
                 if allowed < _jt_spacing(o + _jt_spacing(o, r), r):
@@ -208,7 +211,7 @@ class _Need:
             live = (right > lo_w) & (left < hi_w)
             want = np.full(width.shape, self.inner)
             graded = np.zeros(width.shape, bool)
-            for x, s, ext in self.edges:
+            for x, s, ext, _ in self.edges:
                 dist = np.maximum(0.0, np.maximum(left - x, x - right))
                 w_e = _C_EDGE * s + _GRADE * np.maximum(dist - ext, 0.0)
                 tighter = w_e < want
@@ -257,28 +260,28 @@ class _State:
     def origin(cls, theta: float) -> _State:
         return cls(np.zeros(1), np.ones(1), 0.0, theta)
 
-    def _moments(self, info_next: float) -> tuple[np.ndarray, float]:
+    def _moments(self, info_next: float) -> tuple[np.ndarray, float, float | None]:
+        """Means and sd of the next look's score from each node, and the kernel's
+        sd on this look's z scale when the step is to be integrated exactly (it is
+        narrower than ``_S_EXACT``; see the module docstring), else None."""
         # root finders query one state many times at the same next look
         cached = self.__dict__.get("_cache")
         if cached is not None and cached[0] == info_next:
-            return cached[1], cached[2]
+            return cached[1], cached[2], cached[3]
         delta = info_next - self.info
         if delta <= 0:
             raise ValueError("info: information must be strictly increasing between looks")
         mean_s = self.z * math.sqrt(self.info) + self.theta * delta
         sd = math.sqrt(delta)
-        self.__dict__["_cache"] = (info_next, mean_s, sd)
-        return mean_s, sd
+        s_x = None
+        if self.f is not None and self.z.size >= 3:
+            s_x = math.sqrt(delta / self.info)
+            if s_x >= _S_EXACT:
+                s_x = None
+        self.__dict__["_cache"] = (info_next, mean_s, sd, s_x)
+        return mean_s, sd, s_x
 
     # -- exact integration of the interpolant against a narrow kernel ----------------
-    def _exact(self, info_next: float) -> float | None:
-        """The next kernel's sd on this look's z scale when it is narrower than
-        ``_S_EXACT`` (integrate it exactly against the interpolant), else None."""
-        if self.f is None or self.z.size < 3:
-            return None
-        s = math.sqrt((info_next - self.info) / self.info)
-        return s if s < _S_EXACT else None
-
     def _to_x(self, zz: float, info_next: float) -> float:
         """The point of this look's z scale that a value ``zz`` of the next look's z
         maps onto (the kernel's centre there)."""
@@ -384,25 +387,23 @@ class _State:
     def prob_above(self, u: float, info_next: float) -> float:
         if u >= _BIG:
             return 0.0
-        s = self._exact(info_next)
+        mean_s, sd, s = self._moments(info_next)
         if s is not None:
             return self._exact_cdf(self._to_x(u, info_next), s, 1)
-        mean_s, sd = self._moments(info_next)
         return float(self.g @ special.ndtr((mean_s - u * math.sqrt(info_next)) / sd))
 
     def prob_below(self, lo: float, info_next: float) -> float:
         if lo <= -_BIG:
             return 0.0
-        s = self._exact(info_next)
+        mean_s, sd, s = self._moments(info_next)
         if s is not None:
             return self._exact_cdf(self._to_x(lo, info_next), s, -1)
-        mean_s, sd = self._moments(info_next)
         return float(self.g @ special.ndtr((lo * math.sqrt(info_next) - mean_s) / sd))
 
     def prob_between(self, lo: float, hi: float, info_next: float) -> float:
         if not lo < hi:
             return 0.0
-        s = self._exact(info_next)
+        mean_s, sd, s = self._moments(info_next)
         if s is not None:
             lo_x = self._to_x(lo, info_next)
             hi_x = self._to_x(hi, info_next)
@@ -412,7 +413,6 @@ class _State:
             if below_hi <= above_lo:
                 return max(0.0, below_hi - self._exact_cdf(lo_x, s, -1))
             return max(0.0, above_lo - self._exact_cdf(hi_x, s, 1))
-        mean_s, sd = self._moments(info_next)
         q = math.sqrt(info_next)
         a = (lo * q - mean_s) / sd
         b = (hi * q - mean_s) / sd
@@ -423,12 +423,11 @@ class _State:
 
     def density(self, x: float, info_next: float) -> float:
         """Sub-density of ``Z`` at ``x`` at the next look (for Newton steps)."""
-        s = self._exact(info_next)
+        mean_s, sd, s = self._moments(info_next)
         if s is not None:
             c = self._to_x(x, info_next)
             jac = math.sqrt(info_next / self.info)
             return float(self._exact_pdf(np.array([c]), s)[0]) * jac
-        mean_s, sd = self._moments(info_next)
         q = math.sqrt(info_next)
         y = (x * q - mean_s) / sd
         return float(self.g @ np.exp(-0.5 * y * y)) * q / (sd * _SQRT2PI)
@@ -443,11 +442,11 @@ class _State:
         ``info_after`` (the information of the look after, when known) shapes the
         grid for the step after: see the module docstring.
         """
-        mean_s, sd = self._moments(info_next)
+        mean_s, sd, s_x = self._moments(info_next)
         q = math.sqrt(info_next)
         mu = (self.s0 + self.theta * (info_next - self.i0)) / q
         inner = math.inf
-        edges: list[tuple[float, float, float]] = []
+        edges: list[tuple[float, float, float, float]] = []
         if info_after is not None and info_after > info_next:
             sd_next = math.sqrt((info_after - info_next) / info_next)
             if sd_next < _S_EXACT:
@@ -456,23 +455,26 @@ class _State:
                 inner = _H_EXACT
             else:
                 # resolved by the panels everywhere (item 1 of the module
-                # docstring), and where it is cut at a boundary (item 2): in the
-                # grid's wider tail panels; under the null, where efficacy
+                # docstring), and where it is cut at a boundary in the grid's wider
+                # tail panels (item 2): more finely under the null, where efficacy
                 # boundaries are solved from the small exit probabilities beyond
-                # them, at every boundary and more finely; otherwise only the
-                # absolute accuracy counts, and coarser panels do
-                r = min(_R_MAX, max(r, math.ceil(1.5 / (_C_R * sd_next))))
+                # them; otherwise only the absolute accuracy counts
                 null = self.theta == 0.0
-                near = _NULL_FROM if null else _EDGE_FROM
+                c_r = _C_R_NULL if null else _C_R
+                r = min(_R_MAX, max(r, math.ceil(1.5 / (c_r * sd_next))))
                 reach = _WINDOW if null else _EDGE_ABS
                 scale = _NULL_EDGE * sd_next if null else 2.0 * sd_next
+                slack = _NULL_SLACK if null else 1.0
                 for lo, hi in intervals:
                     for e in (lo, hi):
                         o = abs(e - mu)
-                        if near < o < reach:
+                        # (the grid's panels are widest at the boundary itself)
+                        if _EDGE_FROM < o < reach and \
+                                slack * _C_EDGE * scale < _jt_spacing(o, r):
                             # an exit's integrand (the tail density, log-slope -o,
                             # times the kernel's CDF) peaks o s^2 inside
-                            edges.append((e, scale, (_ZONE + o * sd_next) * sd_next))
+                            edges.append((e, scale, (_ZONE + o * sd_next) * sd_next,
+                                          slack))
         # the earlier boundaries, smoothed only by the information since: sharp
         # features of this density while narrower than the grid resolves, (1.5 / r)
         # / _C_R (item 3); wider ones are dropped for good
@@ -483,7 +485,7 @@ class _State:
             if width < sharp:
                 cuts.append((s_cut, i_cut))
                 edges.append(((s_cut + self.theta * (info_next - i_cut)) / q, width,
-                              _ZONE * width))
+                              _ZONE * width, 1.0))
         need = _Need(inner, edges) if (edges or inner < math.inf) else None
         zs, ws, segs, n = [], [], [], 0
         for lo, hi in intervals:
@@ -500,7 +502,6 @@ class _State:
                           self.i0, cuts, np.empty(0), ())
         z = np.concatenate(zs) if len(zs) > 1 else zs[0]
         w = np.concatenate(ws) if len(ws) > 1 else ws[0]
-        s_x = self._exact(info_next)
         if s_x is not None:
             dens = self._exact_pdf(self._to_x_all(z, info_next), s_x) \
                 * math.sqrt(info_next / self.info)

@@ -3,7 +3,7 @@ looks, irregular spacing.
 
 The figures checked are the ones stated in the docstring of seqtest.boundaries
 (exit probabilities to 1e-7 absolute per look; boundaries to 1e-6 on the z scale
-below 6, 5e-6 from 6 to 8), against two references that share no code with it:
+below 5, 5e-6 from 5 to 8), against two references that share no code with it:
 
 - EXACT3 (up to three looks): exit probabilities by one-dimensional adaptive
   quadrature (scipy.integrate.quad) of closed-form conditional probabilities of the
@@ -39,8 +39,8 @@ from seqtest.design import _crossing_for, parse_boundary
 
 # The stated accuracy (module docstring of seqtest.boundaries).
 PROB_ACC = 1e-7       # exit probability at one look, absolute
-Z_ACC = 1e-6          # boundary on the z scale, |z| < 6
-Z_ACC_FAR = 5e-6      # boundary on the z scale, 6 <= |z| < 8
+Z_ACC = 1e-6          # boundary on the z scale, |z| < 5
+Z_ACC_FAR = 5e-6      # boundary on the z scale, 5 <= |z| < 8
 
 
 # ---------------------------------------------------------------------------
@@ -295,9 +295,9 @@ def test_dense_reference_converges_at_the_simpson_rate():
 
 
 def assert_bounds_close(engine: np.ndarray, ref: np.ndarray) -> None:
-    """Stated accuracy: 1e-6 below 6 on the z scale, 5e-6 from 6 to 8."""
-    near = np.abs(ref) < 6
-    far = (np.abs(ref) >= 6) & (np.abs(ref) < 8)
+    """Stated accuracy: 1e-6 below 5 on the z scale, 5e-6 from 5 to 8."""
+    near = np.abs(ref) < 5
+    far = (np.abs(ref) >= 5) & (np.abs(ref) < 8)
     err = np.abs(engine - ref)
     assert np.all(err[near] <= Z_ACC), (err[near].max(), np.argmax(np.where(near, err, 0)))
     assert np.all(err[far] <= Z_ACC_FAR), err[far].max()
