@@ -32,8 +32,11 @@ The grid of look ``k``:
    where the next exit's integrand lives; otherwise (only the absolute accuracy
    counts there) panels of ``0.6 s``, and only within 4 sd of the mean; the panels
    then grow by half the distance;
-3. has panels of 0.3 of its width around the image of each earlier boundary that
-   the grid does not yet resolve, growing away from it in the same way;
+3. has panels of 0.15 of its width around the image of each earlier boundary that
+   the grid does not yet resolve (it may sit at, and be cut again by, the current
+   boundary), growing away from it in the same way (and around
+   the starting point of paths that start from a point, as for conditional power:
+   their density is then a normal bump as narrow as the first increment);
 4. when ``s < 0.025``, a kernel that panels could only follow by shrinking with
    it, integrates the step exactly instead: the sub-density is interpolated by the
    quadratics of the Simpson panels (then at most 0.025 wide) and each quadratic
@@ -146,6 +149,7 @@ _EDGE_FROM = 3.0  # boundaries farther than this from the mean, where panels wid
 _C_EDGE = 0.3     # panels of _C_EDGE * (the feature's width) ...
 _ZONE = 4.0       # ... over _ZONE widths (and to where an exit's integrand peaks),
 _GRADE = 0.5      # then growing by _GRADE times the distance beyond;
+_C_FEATURE = 0.5  # an earlier boundary's width counts half (it may be cut again)
 _NULL_EDGE = 2.0 / 3.0  # a boundary's width: (2/3) s under the null, where the grid
 _NULL_SLACK = 1.5  # is refined only if its panels are 1.5 times too wide; 2 s
 _EDGE_ABS = 4.0   # otherwise, and only within 4 sd of the mean (exits beyond: < 3e-5)
@@ -484,8 +488,17 @@ class _State:
             width = math.sqrt((info_next - i_cut) / info_next)
             if width < sharp:
                 cuts.append((s_cut, i_cut))
-                edges.append(((s_cut + self.theta * (info_next - i_cut)) / q, width,
-                              _ZONE * width, 1.0))
+                edges.append(((s_cut + self.theta * (info_next - i_cut)) / q,
+                              _C_FEATURE * width, _ZONE * width, 1.0))
+        if self.f is None and self.info > 0.0:
+            # paths started from a point (conditional power): the density is a
+            # normal bump as narrow as the first increment, a feature like the above
+            width = math.sqrt((info_next - self.info) / info_next)
+            if width < sharp:
+                for z0 in self.z:
+                    centre = (z0 * math.sqrt(self.info)
+                              + self.theta * (info_next - self.info)) / q
+                    edges.append((centre, _C_FEATURE * width, 2.0 * _ZONE * width, 1.0))
         need = _Need(inner, edges) if (edges or inner < math.inf) else None
         zs, ws, segs, n = [], [], [], 0
         for lo, hi in intervals:

@@ -33,7 +33,7 @@ import pytest
 from scipy import integrate, optimize, special, stats
 
 import seqtest
-from seqtest import spending
+from seqtest import inference, spending
 from seqtest.boundaries import crossing_probabilities, spending_bounds
 from seqtest.design import _crossing_for, parse_boundary
 
@@ -351,6 +351,56 @@ def test_close_looks_exit_probabilities_vs_exact3():
                 cr = crossing_probabilities(u, -u if sides == 2 else None, t, theta)
                 assert np.max(np.abs(cr.upper - up)) <= PROB_ACC, (gap, sides, theta)
                 assert np.max(np.abs(cr.lower - lo)) <= PROB_ACC, (gap, sides, theta)
+
+
+def exact_cp_two_looks(z_now, t_now, tf, af, drift, sides) -> float:
+    """Conditional power with two later looks, by one-dimensional quadrature (the
+    EXACT3 route): 1 - integral over the score at the first later look, inside its
+    boundaries, of its normal density given ``Z(t_now) = z_now`` times the chance
+    that the second look is inside its boundaries."""
+    s = z_now * math.sqrt(t_now)
+    v1 = tf[0] - t_now
+    m1 = s + drift * v1
+    c1, c2 = af[0] * math.sqrt(tf[0]), af[1] * math.sqrt(tf[1])
+    d2 = tf[1] - tf[0]
+
+    def inside(x: float) -> float:
+        m2 = x + drift * d2
+        p = special.ndtr((c2 - m2) / math.sqrt(d2))
+        return p - special.ndtr((-c2 - m2) / math.sqrt(d2)) if sides == 2 else p
+
+    a = max(-c1 if sides == 2 else -np.inf, m1 - 40 * math.sqrt(v1))
+    b = min(c1, m1 + 40 * math.sqrt(v1))
+    if not a < b:
+        return 1.0
+    pcs = _pieces(a, b, [(m1, math.sqrt(v1))])
+    return 1.0 - _quad(lambda x: _npdf(x, m1, v1) * inside(x), pcs)
+
+
+@pytest.mark.parametrize("gap", [1e-2, 1e-4, 1e-6, 1e-9, 1e-13],
+                         ids=["gap1e-2", "gap1e-4", "gap1e-6", "gap1e-9", "gap1e-13"])
+def test_conditional_power_with_a_look_just_ahead(gap):
+    # Conditional power from z at fraction 0.5 with the next look just ahead (the
+    # density there is a bump as narrow as the gap, possibly cut by its boundary)
+    # and one at the end; both directions of the data, one and two sides.
+    # Reference: one-dimensional quadrature of the conditional probabilities
+    # (independent increments of the score; Jennison and Turnbull 2000, 3.1), and
+    # where the later z statistics are not nearly collinear, scipy's multivariate
+    # normal on their conditional distribution (Genz; exact for two dimensions).
+    t_now = 0.5
+    tf = np.array([t_now + gap, 1.0])
+    af = np.array([3.0, 2.0])
+    for z_now, drift, sides in [(1.0, 3.0, 2), (2.9, 3.0, 1), (-1.5, -2.0, 2), (0.2, 0.5, 1)]:
+        ref = exact_cp_two_looks(z_now, t_now, tf, af, drift, sides)
+        if gap >= 1e-6:
+            mean = (z_now * math.sqrt(t_now) + drift * (tf - t_now)) / np.sqrt(tf)
+            cov = (np.minimum.outer(tf, tf) - t_now) / np.sqrt(np.outer(tf, tf))
+            lower = -af if sides == 2 else np.full(2, -np.inf)
+            mvn = 1.0 - float(stats.multivariate_normal.cdf(af, mean=mean, cov=cov,
+                                                            lower_limit=lower))
+            assert ref == pytest.approx(mvn, abs=1e-9)
+        cp = inference.conditional_power(z_now, t_now, tf, af, drift, sides=sides)
+        assert cp == pytest.approx(ref, abs=PROB_ACC), (z_now, sides, cp, ref)
 
 
 @pytest.mark.parametrize("sides", [1, 2])
