@@ -5,7 +5,9 @@ Run on demand (never in CI): ``python benchmarks/bench_boundaries.py``.
 Part 1 times ``seqtest.design`` (boundaries, drift solve for the power and the
 cumulative alpha: the whole plan) and the boundary search alone
 (``seqtest.core.boundaries.spending_bounds``) for K = 5, 10, 20, 50 equally spaced
-looks, two-sided alpha 0.05, power 0.9, O'Brien-Fleming-type spending.
+looks, two-sided alpha 0.05, power 0.9, O'Brien-Fleming-type spending; then the
+whole plan with an O'Brien-Fleming-type futility boundary (K = 5 and 50,
+non-binding; K = 50 binding).
 
 Part 2 computes the same K = 5 plan through scipy's multivariate normal CDF:
 look 1 from the normal quantile, each later look by Brent's method on
@@ -120,6 +122,13 @@ def main() -> int:
     for k, d_wall, d_cpu, b_wall, b_cpu in rows:
         print(f"{k:>5} | {d_cpu * 1e3:>7.2f} ms | {d_wall * 1e3:>8.2f} ms | "
               f"{b_cpu * 1e3:>12.2f} ms | {b_wall * 1e3:>13.2f} ms")
+    print("\nwith a futility boundary (beta spending, O'Brien-Fleming-type)")
+    for k, binding in ((5, False), (50, False), (50, True)):
+        f_wall, f_cpu = timed(lambda k=k, binding=binding: seqtest.design(
+            alpha=ALPHA, sides=2, power=POWER, looks=k, futility="obrien-fleming-type",
+            binding=binding), 10 if k <= 10 else 3)
+        label = f"{k} looks, {'binding' if binding else 'non-binding'}"
+        print(f"{label:>24} | design cpu {f_cpu * 1e3:>8.2f} ms | wall {f_wall * 1e3:>8.2f} ms")
 
     # -- the MVN route at equal accuracy -------------------------------------------
     k = 5

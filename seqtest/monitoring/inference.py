@@ -5,8 +5,12 @@ Everything here is on the canonical scale of :mod:`seqtest.core.recursion`: at l
 the effect in the units of the estimate and ``I_k = 1 / se_k^2`` its information.
 
 - Repeated confidence intervals (Jennison and Turnbull 1989): at look ``k``,
-  ``estimate_k +- c_k se_k`` with ``c_k`` the efficacy boundary; they hold their
-  level simultaneously over all looks, whatever the stopping rule.
+  ``estimate_k +- c_k se_k`` with ``c_k`` the boundaries of a test that does not
+  rely on the stopping rule: the efficacy boundaries, or for a plan with binding
+  futility those of the same spending without futility (the binding ones assume
+  that paths stop at the futility boundary, which an interval centred on an
+  arbitrary effect cannot; Jennison and Turnbull 2000, chapter 9). They then hold
+  their level simultaneously over all looks, whatever the stopping rule.
 - Stage-wise ordering (Tsiatis, Rosner and Mehta 1984; Jennison and Turnbull
   2000, section 8.4): outcomes are ordered first by the look at which the upper
   (lower) boundary was crossed, earlier being more extreme, then by ``Z`` at that
@@ -17,7 +21,8 @@ the effect in the units of the estimate and ``I_k = 1 / se_k^2`` its information
   ``theta`` at which it equals 1/2.
 - Conditional power: the probability, from the current ``Z_k``, of crossing an
   efficacy boundary at a later look, by the same recursion started from a point
-  mass.
+  mass, under an assumed effect whose sign is its direction (the planned effect
+  of a two-sided plan is taken in the direction of the current estimate).
 
 Roots are found by :func:`seqtest.core.roots.solve` on the probit of the probability
 (nearly linear in ``theta``), to 1e-10 on the probit scale (about 1e-10 standard
@@ -166,7 +171,12 @@ def stagewise(
 def repeated_ci(estimate: np.ndarray, se: np.ndarray, bound: np.ndarray, sides: int
                 ) -> tuple[np.ndarray, np.ndarray]:
     """Repeated confidence interval ``estimate +- bound * se`` (Jennison and Turnbull
-    1989). For a one-sided plan the upper limit is ``inf``."""
+    1989). For a one-sided plan the upper limit is ``inf``.
+
+    ``bound`` must be the boundaries of a test that does not rely on the stopping
+    rule (see the module docstring and
+    :meth:`seqtest.monitoring.rules.GroupSequentialRule.interval_boundaries`), or the
+    intervals do not hold their level."""
     est = np.asarray(estimate, float)
     s = np.asarray(se, float)
     c = np.asarray(bound, float)
@@ -195,7 +205,10 @@ def conditional_power(
         Later looks' information fractions (above ``t_now``) and efficacy boundaries.
     drift : float
         Assumed ``delta * sqrt(I_max)`` (the mean of ``Z`` at fraction 1); its sign
-        is the direction of the effect.
+        is the direction of the effect, so it is the caller's to choose: for the
+        planned effect of a two-sided plan, the sign of the current estimate
+        (:func:`seqtest.analyze` does so; a one-sided plan tests the positive
+        direction only).
     sides : {1, 2}
         Two-sided plans count crossings of either boundary.
 
