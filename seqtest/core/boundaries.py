@@ -44,9 +44,11 @@ from seqtest.core.spending import SpendingFunction
 __all__ = [
     "Boundary",
     "binding_bounds",
+    "binding_with_power",
     "constant_bounds",
     "efficacy_bounds",
     "futility_bounds",
+    "futility_with_power",
     "spending_bounds",
 ]
 
@@ -76,9 +78,10 @@ def _solve_probability(state: _State, info: float, target: float, lo: float, hi:
 
 
 def _solve_upper(state: _State, info_next: float, target: float, sides: int,
-                 floor: float) -> float:
+                 floor: float, start: float | None = None) -> float:
     """Bound ``u`` with exit probability ``target`` above ``u`` (and below ``-u`` when
-    two-sided) from ``state``; ``floor`` is the smallest bound allowed."""
+    two-sided) from ``state``; ``floor`` is the smallest bound allowed, ``start`` a
+    nearby bound to start from."""
     if target <= 0.0:
         return math.inf
 
@@ -93,16 +96,21 @@ def _solve_upper(state: _State, info_next: float, target: float, sides: int,
     if prob(floor)[0] <= target:
         # spending more than what is left to spend: everything stops here
         return floor
-    mass = state.mass()
-    share = min(target / (sides * mass), 0.5) if mass > 0 else 0.5
-    x0 = float(-special.ndtri(share))
+    if start is not None and floor < start < BIG:
+        x0 = start
+    else:
+        mass = state.mass()
+        share = min(target / (sides * mass), 0.5) if mass > 0 else 0.5
+        x0 = float(-special.ndtri(share))
     return _solve_probability(state, info_next, target, floor, BIG, x0, prob,
                               decreasing=True)
 
 
-def _solve_futility(state: _State, info: float, target: float, a: float, sides: int) -> float:
+def _solve_futility(state: _State, info: float, target: float, a: float, sides: int,
+                    start: float | None = None) -> float:
     """Futility bound with probability ``target`` of stopping for futility at this look
-    (below it one-sided, inside the band two-sided), under the state's drift."""
+    (below it one-sided, inside the band two-sided), under the state's drift; ``start``
+    a nearby bound to start Newton's steps from (a neighbouring drift's)."""
     if sides == 1:
         def prob(x: float) -> tuple[float, float]:
             return state.prob_below(x, info), state.density(x, info)
@@ -119,10 +127,23 @@ def _solve_futility(state: _State, info: float, target: float, a: float, sides: 
         return a
     mass = state.mass()
     mu = state.theta * math.sqrt(info)
-    if sides == 1:
+    narrow = math.inf
+    if sides == 2 and target < 1e-6:
+        # a band narrower than 1e-6 holds 2 x f(0) (1 + O(x^2)) of the paths, to a
+        # relative 1e-12 (f smooth on the scale of 1); a difference of normal CDFs
+        # would lose that to rounding, so the band is solved from the density (f is
+        # below 0.4, so only targets below 1e-6 can give such a band)
+        narrow = target / max(2 * state.density(0.0, info), 1e-300)
+        if narrow < 1e-6:
+            return narrow
+    if start is not None and floor < start < top:
+        x0 = start
+    elif sides == 1:
         x0 = mu + float(special.ndtri(min(max(target / max(mass, 1e-300), 1e-300), 0.5)))
     else:
-        x0 = min(top, target / max(2 * state.density(0.0, info), 1e-300))
+        if not math.isfinite(narrow):
+            narrow = target / max(2 * state.density(0.0, info), 1e-300)
+        x0 = min(top, narrow)
     return _solve_probability(state, info, target, floor, top, x0, prob, decreasing=False)
 
 
@@ -299,20 +320,35 @@ def futility_bounds(t: np.ndarray, drift: float, a: np.ndarray, sides: int, beta
 
     ``t`` are information fractions (values above 1 spend all of beta); with ``final``
     the last look's futility boundary is the efficacy boundary (they meet)."""
+    return futility_with_power(t, drift, a, sides, beta, futility, r, final)[0]
+
+
+def futility_with_power(t: np.ndarray, drift: float, a: np.ndarray, sides: int,
+                        beta: float, futility: SpendingFunction, r: int = DEFAULT_R,
+                        final: bool = True, start: np.ndarray | None = None
+                        ) -> tuple[np.ndarray, float]:
+    """:func:`futility_bounds` and, from the same recursion under ``drift``, the
+    probability of crossing the upper efficacy boundary (the power at ``drift``):
+    equal to :meth:`Region.crossing`'s upper sum, without a second pass. ``start``:
+    the boundary at a nearby drift, where each look's search starts (a drift search
+    passes its last one; the result is the same root, found in fewer steps)."""
     k = t.size
     cum = futility(np.minimum(t, 1.0), beta)
     inc = np.diff(np.concatenate(([0.0], cum)))
     b = np.empty(k)
+    upper = 0.0
     state = _State.origin(drift)
     for j in range(k):
+        upper += state.prob_above(float(a[j]), t[j])
         if j == k - 1 and final:
             b[j] = a[j]
             break
-        b[j] = _solve_futility(state, t[j], inc[j], a[j], sides)
+        b[j] = _solve_futility(state, t[j], inc[j], a[j], sides,
+                               None if start is None else float(start[j]))
         if j == k - 1:
             break
         state = state.advance(_look_intervals(sides, a[j], b[j]), t[j], r, t[j + 1])
-    return b
+    return b, upper
 
 
 def binding_bounds(t: np.ndarray, alpha: float, sides: int, efficacy: Boundary,
@@ -326,6 +362,21 @@ def binding_bounds(t: np.ndarray, alpha: float, sides: int, efficacy: Boundary,
     the null and the futility boundary under the drift, on the same continuation
     region. A classical shape's constant is solved with the futility boundary in place.
     ``cumulative_alpha`` (per tail) overrides the spending function's."""
+    a, b, _ = binding_with_power(t, alpha, sides, efficacy, futility, beta, drift, r,
+                                 final, cumulative_alpha)
+    return a, b
+
+
+def binding_with_power(t: np.ndarray, alpha: float, sides: int, efficacy: Boundary,
+                       futility: SpendingFunction, beta: float, drift: float,
+                       r: int = DEFAULT_R, final: bool = True,
+                       cumulative_alpha: np.ndarray | None = None,
+                       start: tuple[np.ndarray, np.ndarray] | None = None,
+                       ) -> tuple[np.ndarray, np.ndarray, float]:
+    """:func:`binding_bounds` and the probability of crossing the upper efficacy
+    boundary under ``drift`` (the power), from the recursion under the drift that
+    the futility boundary is solved on. ``start``: efficacy and futility boundaries
+    at a nearby drift, where the searches start (error spending only)."""
     k = t.size
     if isinstance(efficacy, SpendingFunction):
         tc = np.minimum(t, 1.0)
@@ -334,27 +385,32 @@ def binding_bounds(t: np.ndarray, alpha: float, sides: int, efficacy: Boundary,
         inc_b = np.diff(np.concatenate(([0.0], futility(tc, beta))))
         a = np.empty(k)
         b = np.empty(k)
+        upper = 0.0
         s0, s1 = _State.origin(0.0), _State.origin(drift)
         for j in range(k):
-            a[j] = _solve_upper(s0, t[j], inc_a[j], sides, 0.0 if sides == 2 else -BIG)
+            a[j] = _solve_upper(s0, t[j], inc_a[j], sides, 0.0 if sides == 2 else -BIG,
+                                None if start is None else float(start[0][j]))
+            upper += s1.prob_above(float(a[j]), t[j])
             if j == k - 1 and final:
                 b[j] = a[j]
                 break
-            b[j] = _solve_futility(s1, t[j], inc_b[j], a[j], sides)
+            b[j] = _solve_futility(s1, t[j], inc_b[j], a[j], sides,
+                                   None if start is None else float(start[1][j]))
             if j == k - 1:
                 break
             iv = _look_intervals(sides, a[j], b[j])
             s0 = s0.advance(iv, t[j], r, t[j + 1])
             s1 = s1.advance(iv, t[j], r, t[j + 1])
-        return a, b
+        return a, b, upper
     shape, fixed = efficacy.shape(t)
 
-    def both(c: float) -> tuple[np.ndarray, np.ndarray]:
+    def both(c: float) -> tuple[np.ndarray, np.ndarray, float]:
         aa = np.where(fixed, shape, c * shape)
-        return aa, futility_bounds(t, drift, aa, sides, beta, futility, r)
+        bb, power = futility_with_power(t, drift, aa, sides, beta, futility, r)
+        return aa, bb, power
 
     def level(c: float) -> float:
-        aa, bb = both(c)
+        aa, bb, _ = both(c)
         return float(Region.of_plan(sides, aa, bb).efficacy_probability(t, 0.0, r).sum())
 
     # While the drift is still being searched, a futility boundary can stop nearly

@@ -12,8 +12,9 @@ otherwise, from a starting point and a guess of the scale; once a sign change is
 the root is kept bracketed and any step that leaves the bracket, or fails to halve it
 within two steps, is replaced by an Anderson-Bjorck step (regula falsi with the
 Anderson-Bjorck weight; bisection when the end values are unknown). Before a sign
-change is seen, the search moves downhill by doubling steps up to the limits
-``lo``/``hi``. It stops when ``|g| <= gtol`` or the bracket is narrower than ``xtol``
+change is seen, the search follows the Newton or secant step downhill (at most four
+times the previous move), doubling the move when there is no usable step, up to the
+limits ``lo``/``hi``. It stops when ``|g| <= gtol`` or the bracket is narrower than ``xtol``
 (relative to ``max(1, |x|)``). On the nearly linear scales used here it takes two to
 five evaluations.
 
@@ -107,6 +108,7 @@ def solve(
     fx, sx = ev(x)
     best = (abs(fx), x)
     prev: tuple[float, float] | None = None
+    older: tuple[float, float] | None = None
     steps: list[float] = []
     side = 0  # which end moved last, for the Anderson-Bjorck weight
     for _ in range(max_evals):
@@ -134,6 +136,8 @@ def solve(
                 cand = x - fx / sx
             elif prev is not None and math.isfinite(prev[1]) and prev[1] != fx:
                 cand = x - fx * (x - prev[0]) / (fx - prev[1])
+                if older is not None and math.isfinite(older[1]):
+                    cand = _inverse_quadratic(older, prev, (x, fx), cand)
             elif sx is None and prev is None:
                 cand = x - fx * step
         if bracketed:
@@ -152,25 +156,38 @@ def solve(
             # downhill search: towards larger x when g < 0 (g increasing)
             direction = 1.0 if fx < 0 else -1.0
             limit = hi if direction > 0 else lo
+            last = abs(x - prev[0]) if prev is not None else abs(step)
             if not math.isfinite(cand) or (cand - x) * direction <= 0:
-                cand = x + direction * abs(step)
-            if prev is not None and not math.isfinite(cand - x):
-                cand = x + direction * abs(step)
-            far = direction * (cand - x)
-            if prev is not None and far < abs(step):
-                far = abs(step)
-            cand = x + direction * min(far, 2.0 * abs(x - prev[0]) if prev else far)
+                # no usable model (or it points uphill): expand geometrically
+                cand = x + direction * (2.0 * last if prev is not None else abs(step))
+            elif prev is not None:
+                # the model's step, at most four times the last move
+                cand = x + direction * min(direction * (cand - x), 4.0 * last)
             if (cand - limit) * direction >= 0:
                 if x == limit:
                     raise NoRoot(f"no root before the limit {limit!r} (the function keeps "
                                  f"one sign there: {sign * fx!r})", limit)
                 cand = limit
-        prev = (x, fx)
+        older, prev = prev, (x, fx)
         x = cand
         fx, sx = ev(x)
         if abs(fx) < best[0]:
             best = (abs(fx), x)
     return best[1]
+
+
+def _inverse_quadratic(p0: tuple[float, float], p1: tuple[float, float],
+                       p2: tuple[float, float], fallback: float) -> float:
+    """Root of the quadratic in ``g`` through three points ``(x, g)`` (inverse quadratic
+    interpolation, as in Brent's method): it follows the curvature that a secant step
+    undershoots. ``fallback`` when two values coincide or the result is not finite."""
+    (x0, f0), (x1, f1), (x2, f2) = p0, p1, p2
+    d01, d02, d12 = f0 - f1, f0 - f2, f1 - f2
+    if d01 == 0 or d02 == 0 or d12 == 0:
+        return fallback
+    out = (x0 * f1 * f2 / (d01 * d02) - x1 * f0 * f2 / (d01 * d12)
+           + x2 * f0 * f1 / (d02 * d12))
+    return out if math.isfinite(out) else fallback
 
 
 def solve_brackets(fun: Callable[[np.ndarray, np.ndarray], np.ndarray], a: Any, b: Any,

@@ -67,6 +67,15 @@ def _lower_p(theta: float, region: Region, info: np.ndarray, z_stop: float, r: i
     return float(last.crossing(info, theta, r).lower.sum())
 
 
+def _both_p(theta: float, region: Region, info: np.ndarray, z_stop: float, r: int
+            ) -> tuple[float, float]:
+    """:func:`_upper_p` and :func:`_lower_p` from one recursion: the looks before ``T``
+    are shared, and at ``T`` the paths above ``z_stop`` and those below it are the
+    two outcomes."""
+    cr = region.with_last(upper=z_stop, lower=z_stop, inner=0.0).crossing(info, theta, r)
+    return float(cr.upper.sum()), float(cr.lower.sum())
+
+
 @dataclass(frozen=True)
 class StagewiseResult:
     """Inference at stopping under the stage-wise ordering.
@@ -138,8 +147,7 @@ def stagewise(
     se_t = 1.0 / math.sqrt(ii[-1])
     est = z_t * se_t
 
-    p_up0 = _upper_p(0.0, reg, ii, z_t, r)
-    p_lo0 = _lower_p(0.0, reg, ii, z_t, r)
+    p_up0, p_lo0 = _both_p(0.0, reg, ii, z_t, r)
     p = min(1.0, 2.0 * min(p_up0, p_lo0)) if sides == 2 else p_up0
 
     def root(fun: Any, target: float, increasing: bool = True) -> float:
