@@ -1181,7 +1181,7 @@ def read_table_for(exp: Experiment, frame: Any, *,
     try:
         return read_arm_looks(frame, kind, columns=columns, control=ours)
     except LookDataError as exc:
-        if exc.arm != ours or not str(exc).startswith("control: got"):
+        if exc.arm != ours or not exc.detail.startswith("control: got"):
             raise
     return read_arm_looks(frame, kind, columns=columns, control=None)
 
