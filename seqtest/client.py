@@ -861,8 +861,9 @@ class Client:
         """Read an experiment: its state, decision, plan in force, looks and analysis.
 
         With ``looks=True`` (default) every stored look is read (pages of 1000), and the
-        analysis carries every look's row; with ``looks=False`` only the first page of
-        one look is read (the summary, the plan and the decision)."""
+        analysis carries every look's row; with ``looks=False`` one look is read: the
+        state, the decision, the plan and the analysis' summary are whole, its rows and
+        ``looks`` hold the first look only."""
         path = f"/v1/experiments/{_path_id(experiment_id)}"
         limit = _LOOKS_PAGE if looks else 1
         doc, _ = self._request("GET", path, params={"looks_offset": 0, "looks_limit": limit})
@@ -1029,7 +1030,8 @@ class Client:
         experiment_id : str
         looks : list of mappings, ArmLooks or DataFrame
             Cumulative totals per look, keyed by the experiment's arm names (a list of
-            ``{arm: {total: number}}``); or a table of looks in either layout of
+            ``{arm: {total: number}}``) or by the roles ``control`` and ``treatment``
+            (as :func:`seqtest.analyze` takes them); or a table of looks in either layout of
             :mod:`seqtest.monitoring.lookfile` (a DataFrame, read with the experiment's
             metric kind, ``columns`` and ``control``; or an ``ArmLooks``), whose arms are
             the experiment's (by name) or named ``control`` and ``treatment``.
@@ -1126,7 +1128,13 @@ class Client:
         """Given looks as the totals per the experiment's arm names (see
         :meth:`post_looks` for what is accepted)."""
         if isinstance(looks, Sequence) and not isinstance(looks, (str, bytes)):
-            return [normalize_totals(lk) for lk in looks]
+            out = [normalize_totals(lk) for lk in looks]
+            roles = {"control", "treatment"}
+            names = {exp.arms.get("control"), exp.arms.get("treatment")}
+            if out and names != roles and all(set(lk) == roles for lk in out):
+                # keyed by role, as seqtest.analyze takes looks: put under the names
+                out = [{exp.arms[role]: v for role, v in lk.items()} for lk in out]
+            return out
         table = looks
         if not hasattr(table, "treatments"):
             table = read_table_for(exp, looks, columns=columns, control=control)

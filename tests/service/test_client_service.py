@@ -327,6 +327,8 @@ def test_post_looks_reads_a_table_with_the_roles_or_the_arm_names(client, plan_d
                          for k, lk in enumerate(looks, 1) for arm in ARMS])
     done = client.post_looks(exp_id, long, columns={"day": "look"})
     assert done.already_stored == [1, 2] and [a.look for a in done.posted] == [3]
+    # a list keyed by role (as seqtest.analyze takes it) goes under the arm names
+    assert client.post_looks(exp_id, by_role(looks)).already_stored == [1, 2, 3]
     other = pd.DataFrame([{"classic_n": 10, "classic_successes": 1, "rank_v2_n": 10,
                            "rank_v2_successes": 1}])
     with pytest.raises(ValueError, match="arms: got 'classic' .* and 'rank_v2'"):
@@ -445,3 +447,28 @@ def test_post_of_one_look_twice_posts_it_once(client, env, capsys, plan_doc):
                          *totals_args((1200, 120), (1200, 127))], capsys)
     assert rc == ExitStatus.USAGE_ERROR and "look 1:" in err
     assert client.experiment(exp_id).look_count == 1
+
+
+def test_post_reads_looks_with_a_query(client, env, capsys, plan_doc, tmp_path):
+    # the readers of seqtest analyze: daily counts in a table, made cumulative by the
+    # query (a window sum), in the long layout
+    import sqlite3
+    looks = cumulative(days=3, seed=21)
+    db = tmp_path / "counts.db"
+    with sqlite3.connect(db) as conn:
+        conn.execute("CREATE TABLE daily (day INTEGER, variant TEXT, users INTEGER, "
+                     "conversions INTEGER)")
+        for k, day in enumerate(daily(looks), start=1):
+            for arm in ARMS:
+                conn.execute("INSERT INTO daily VALUES (?, ?, ?, ?)",
+                             (k, arm, day[arm]["n"], day[arm]["successes"]))
+    query = ("SELECT day, variant, SUM(users) OVER (PARTITION BY variant ORDER BY day) "
+             "AS users, SUM(conversions) OVER (PARTITION BY variant ORDER BY day) AS "
+             "conversions FROM daily ORDER BY day, variant")
+    exp_id = new_experiment(client, plan_doc, "from-sql")
+    rc, out, err = post(["--experiment", exp_id, "--sql", query, "--database-url",
+                         f"sqlite:///{db}", "--column", "day=look", "--column",
+                         "variant=arm"], capsys)
+    assert rc == ExitStatus.CONTINUE, err
+    stored = client.experiment(exp_id).looks
+    assert [normalize_totals(lk.totals) for lk in stored] == looks
