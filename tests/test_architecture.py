@@ -3,7 +3,7 @@
 Layers, lowest first (DEVELOPERS.md, "Map"): ``seqtest.core`` < ``seqtest.reporting`` <
 ``seqtest.planning`` <
 ``seqtest.monitoring`` < ``seqtest.simulation`` and ``seqtest.plotting`` <
-``seqtest.cli`` < the public surface (``seqtest``, ``seqtest.spending``,
+``seqtest.cli`` and ``seqtest.client`` < the public surface (``seqtest``, ``seqtest.spending``,
 ``seqtest.mixture``) < ``service``. A module may import its own layer and the layers
 below, never above; the graph of imports between modules (at any depth in a module,
 except imports made only for type checkers) has no cycle; the library never imports
@@ -32,6 +32,7 @@ LAYERS = [
     ("seqtest.simulation", 3),
     ("seqtest.plotting", 3),
     ("seqtest.cli", 4),
+    ("seqtest.client", 4),         # a door like the command line (httpx, imported lazily)
     ("seqtest.__main__", 4),
     ("seqtest.spending", 5),
     ("seqtest.mixture", 5),
@@ -181,7 +182,9 @@ BLOCK_WEB_STACK = textwrap.dedent("""
 """)
 
 
-@pytest.mark.parametrize("argv", [["plan", "--looks", "3"], ["--help"], ["serve"]])
+@pytest.mark.parametrize("argv", [["plan", "--looks", "3"], ["--help"], ["serve"],
+                                  ["post", "--experiment", "exp_1",
+                                   "--total", "control.n=10", "--total", "treatment.n=10"]])
 def test_library_runs_without_the_web_stack(tmp_path, argv):
     # the service is an extra: without it the library and its command line still work,
     # and a service subcommand says what to install
@@ -208,5 +211,9 @@ def test_library_runs_without_the_web_stack(tmp_path, argv):
     if argv == ["serve"]:
         assert "status 2" in proc.stdout
         assert "not installed" in proc.stderr and "seqtest[service]" in proc.stderr
+    elif argv[0] == "post":
+        # the client is a door of the library; without httpx it says what to install
+        assert "status 2" in proc.stdout
+        assert "not installed" in proc.stderr and "seqtest[client]" in proc.stderr
     else:
         assert "status 0" in proc.stdout

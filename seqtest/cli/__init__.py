@@ -2,7 +2,8 @@
 
 Subcommands: ``plan`` (design a stopping plan), ``analyze`` (decide on the looks so
 far), ``report`` (a one-page HTML or Markdown record of the looks), ``simulate`` (check
-a plan's error rates by simulation), ``demo`` (everything on a bundled example), and
+a plan's error rates by simulation), ``post`` (post looks to the HTTP service and print
+its decision), ``demo`` (everything on a bundled example), and
 those of installed extensions, found through the entry-point group ``seqtest.commands``
 (the HTTP service adds ``serve`` and ``keys`` that way; the library never imports it).
 
@@ -17,7 +18,7 @@ import argparse
 import sys
 from typing import Any
 
-from seqtest.cli import analyze, demo, plan, report, simulate
+from seqtest.cli import analyze, demo, plan, post, report, simulate
 from seqtest.cli.common import UsageError
 from seqtest.core.vocabulary import CAUTION
 
@@ -40,7 +41,7 @@ def build_parser() -> argparse.ArgumentParser:
                     "decide at each one, check the error rates by simulation.",
         epilog=CAUTION)
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    for module in (plan, analyze, report, simulate, demo):
+    for module in (plan, analyze, report, simulate, post, demo):
         module.register(sub)
     for ep in _extensions():
         try:

@@ -1,7 +1,7 @@
 """Exit statuses of the commands that report a decision, for pipelines.
 
-One table, used by ``seqtest analyze`` (and meant for every command that reads a
-decision, such as posting a look to the service):
+One table, used by ``seqtest analyze`` and ``seqtest post`` (and meant for every
+command that reads a decision):
 
 ====  ====================================================================
 code  meaning
@@ -11,6 +11,9 @@ code  meaning
 3     stop: efficacy or futility (binding, or advised when non-binding)
 4     sample-ratio mismatch at a look: find the cause before acting
 5     complete: the final look was reached without significance
+6     service error: the service could not be reached, timed out, or failed
+      (5xx) through the retries; looks acknowledged before it are stored, and
+      running the same command again posts nothing twice
 ====  ====================================================================
 
 A sample-ratio mismatch (4) takes precedence over the decision, because the decision
@@ -36,6 +39,7 @@ class ExitStatus(IntEnum):
     STOP = 3
     SAMPLE_RATIO_MISMATCH = 4
     COMPLETE = 5
+    SERVICE_ERROR = 6
 
 
 def exit_status(analysis: Any) -> ExitStatus:
