@@ -22,6 +22,7 @@ from seqtest.core.version import __version__
 
 if TYPE_CHECKING:  # the names below, for type checkers and readers
     from seqtest import mixture, spending
+    from seqtest.client import Client
     from seqtest.core.errors import InputError, LookDataError, PlanDocumentError, SeqtestError
     from seqtest.core.vocabulary import CAUTION, DECISIONS, Decision
     from seqtest.monitoring.analysis import Analysis, LookResult, analyze
@@ -36,6 +37,7 @@ if TYPE_CHECKING:  # the names below, for type checkers and readers
 #: public name -> the module that defines it
 _WHERE = {
     "CAUTION": "seqtest.core.vocabulary",
+    "Client": "seqtest.client",
     "DECISIONS": "seqtest.core.vocabulary",
     "Decision": "seqtest.core.vocabulary",
     "InputError": "seqtest.core.errors",
@@ -70,6 +72,7 @@ __all__ = [
     "DECISIONS",
     "Analysis",
     "ArmLooks",
+    "Client",
     "Decision",
     "ExitStatus",
     "InputError",

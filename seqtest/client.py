@@ -1170,8 +1170,8 @@ def _arms(arms: Sequence[str] | Mapping[str, str]) -> dict[str, str]:
 
 def _arm_key(name: str) -> str:
     # names compared as the look tables compare them (letter case, separators)
-    from seqtest.monitoring.lookfile import _key
-    return _key(name)
+    from seqtest.monitoring.lookfile import name_key
+    return name_key(name)
 
 
 def read_table_for(exp: Experiment, frame: Any, *,

@@ -129,37 +129,42 @@ def analysis_text(analysis: Any) -> str:
     return "\n".join(out)
 
 
-def read_looks(args: argparse.Namespace, kind: str | None) -> list[dict]:
-    """The looks the options name (a CSV file or a query), keyed by role for the
-    two-arm analysis."""
+def looks_frame(args: argparse.Namespace) -> Any:
+    """The table of looks that a looks file, ``--sql`` or ``--sql-file`` names (the
+    caller has checked that exactly one of them is given)."""
     import os
     from pathlib import Path
 
-    from seqtest.monitoring.lookfile import column_mapping, frame_from_csv, read_arm_looks
+    from seqtest.monitoring.lookfile import frame_from_csv
+    if args.looks is not None:
+        if args.database_url:
+            raise UsageError("--database-url: given with a looks file; allowed only with "
+                             "--sql or --sql-file")
+        return frame_from_csv(args.looks)
+    url = args.database_url or os.environ.get(DATABASE_URL_ENV)
+    if not url:
+        raise UsageError(f"--database-url: missing; --sql needs the database (or set "
+                         f"{DATABASE_URL_ENV})")
+    query = args.sql
+    if args.sql_file is not None:
+        path = Path(args.sql_file)
+        if not path.is_file():
+            raise UsageError(f"--sql-file: {path} does not exist")
+        query = path.read_text()
+    from seqtest.monitoring.sqllooks import frame_from_sql
+    return frame_from_sql(query, url)
+
+
+def read_looks(args: argparse.Namespace, kind: str | None) -> list[dict]:
+    """The looks the options name (a CSV file or a query), keyed by role for the
+    two-arm analysis."""
+    from seqtest.monitoring.lookfile import column_mapping, read_arm_looks
     sources = [s for s, given in (("a looks file", args.looks), ("--sql", args.sql),
                                   ("--sql-file", args.sql_file)) if given is not None]
     if len(sources) != 1:
         raise UsageError(f"looks: got {' and '.join(sources) or 'none'}; allowed is one of "
                          "a looks file, --sql QUERY or --sql-file FILE")
-    url = args.database_url or os.environ.get(DATABASE_URL_ENV)
-    if args.looks is not None:
-        if args.database_url:
-            raise UsageError("--database-url: given with a looks file; allowed only with "
-                             "--sql or --sql-file")
-        frame = frame_from_csv(args.looks)
-    else:
-        if not url:
-            raise UsageError(f"--database-url: missing; --sql needs the database (or set "
-                             f"{DATABASE_URL_ENV})")
-        query = args.sql
-        if args.sql_file is not None:
-            path = Path(args.sql_file)
-            if not path.is_file():
-                raise UsageError(f"--sql-file: {path} does not exist")
-            query = path.read_text()
-        from seqtest.monitoring.sqllooks import frame_from_sql
-        frame = frame_from_sql(query, url)
-    table = read_arm_looks(frame, kind, columns=column_mapping(args.columns),
+    table = read_arm_looks(looks_frame(args), kind, columns=column_mapping(args.columns),
                            control=args.control)
     return table.two_arm()
 

@@ -22,7 +22,6 @@ from __future__ import annotations
 import argparse
 import json
 import math
-import os
 import re
 import sys
 from pathlib import Path
@@ -156,8 +155,7 @@ def _frame_of_totals(specs: list[str]) -> tuple[Any, dict[str, str]]:
 
 def _source(args: argparse.Namespace) -> tuple[Any, dict[str, Any]]:
     """The table the options name, and its column mapping."""
-    from seqtest.cli.analyze import DATABASE_URL_ENV
-    from seqtest.monitoring.lookfile import column_mapping, frame_from_csv
+    from seqtest.monitoring.lookfile import column_mapping
     sources = [s for s, given in (("a looks file", args.looks is not None),
                                   ("--sql", args.sql is not None),
                                   ("--sql-file", args.sql_file is not None),
@@ -178,23 +176,8 @@ def _source(args: argparse.Namespace) -> tuple[Any, dict[str, Any]]:
             raise UsageError("--column: given with --total; --total names each total as "
                              "ARM.TOTAL already")
         return _frame_of_totals(args.totals)
-    if args.database_url and args.looks is not None:
-        raise UsageError("--database-url: given with a looks file; allowed only with --sql "
-                         "or --sql-file")
-    if args.looks is not None:
-        return frame_from_csv(args.looks), columns
-    url = args.database_url or os.environ.get(DATABASE_URL_ENV)
-    if not url:
-        raise UsageError(f"--database-url: missing; --sql needs the database (or set "
-                         f"{DATABASE_URL_ENV})")
-    query = args.sql
-    if args.sql_file is not None:
-        path = Path(args.sql_file)
-        if not path.is_file():
-            raise UsageError(f"--sql-file: {path} does not exist")
-        query = path.read_text()
-    from seqtest.monitoring.sqllooks import frame_from_sql
-    return frame_from_sql(query, url), columns
+    from seqtest.cli.analyze import looks_frame
+    return looks_frame(args), columns
 
 
 # ---------------------------------------------------------------------------

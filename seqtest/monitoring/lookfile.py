@@ -98,7 +98,7 @@ _ISO_DATE = re.compile(r"^\d{4}-\d{2}-\d{2}([ T][0-9:.+\-Z]*)?$")
 # Names
 # ---------------------------------------------------------------------------
 
-def _key(name: object) -> str:
+def name_key(name: object) -> str:
     """A name compared without letter case and with one separator between words."""
     key = re.sub(r"[\s.\-_]+", "_", str(name).strip().lower())
     return key.strip("_")
@@ -222,14 +222,14 @@ def _target_role(column: str, target: object) -> _Role:
         return _Role("skip")
     if not isinstance(target, str) or not target.strip():
         raise InputError(f"columns[{column!r}]: got {target!r}; allowed is {allowed}")
-    key = _key(target)
+    key = name_key(target)
     if key in _EXTRA or key == _ARM_COLUMN:
         return _Role(key)
     if key in FIELD_ALIASES and "." not in target:
         return _Role("total", None, FIELD_ALIASES[key])
     arm, dot, total = target.strip().rpartition(".")
-    if dot and _key(arm) and _key(total) in FIELD_ALIASES:
-        return _Role("total", _key(arm), FIELD_ALIASES[_key(total)])
+    if dot and name_key(arm) and name_key(total) in FIELD_ALIASES:
+        return _Role("total", name_key(arm), FIELD_ALIASES[name_key(total)])
     raise InputError(f"columns[{column!r}]: got {target!r}; allowed is {allowed}")
 
 
@@ -268,7 +268,7 @@ def _roles(columns: Sequence[str], mapping: Mapping[str, Any], control: str | No
     for given, target in mapping.items():
         matches = [c for c in names if c == str(given)]
         if not matches:
-            matches = [c for c in names if _key(c) == _key(given)]
+            matches = [c for c in names if name_key(c) == name_key(given)]
         if len(matches) != 1:
             raise InputError(
                 f"columns: got {str(given)!r}; allowed is a column of the data "
@@ -277,8 +277,8 @@ def _roles(columns: Sequence[str], mapping: Mapping[str, Any], control: str | No
                 f"{', '.join(matches)}; allowed is one column (give its exact name)")
         roles[matches[0]] = _target_role(matches[0], target)
     for c in names:
-        if c not in roles and (_key(c) in _EXTRA or _key(c) == _ARM_COLUMN):
-            roles[c] = _Role(_key(c))
+        if c not in roles and (name_key(c) in _EXTRA or name_key(c) == _ARM_COLUMN):
+            roles[c] = _Role(name_key(c))
     long = any(r.what == _ARM_COLUMN for r in roles.values())
     layout = "long" if long else "wide"
     for c, r in roles.items():
@@ -299,17 +299,17 @@ def _roles(columns: Sequence[str], mapping: Mapping[str, Any], control: str | No
     unknown: list[str] = []
     if long:
         for c in rest:
-            if _key(c) in FIELD_ALIASES:
-                roles[c] = _Role("total", None, FIELD_ALIASES[_key(c)])
+            if name_key(c) in FIELD_ALIASES:
+                roles[c] = _Role("total", None, FIELD_ALIASES[name_key(c)])
             else:
                 unknown.append(c)
     else:
-        candidates = {c: _wide_candidates(_key(c)) for c in rest}
+        candidates = {c: _wide_candidates(name_key(c)) for c in rest}
         known = {r.arm for r in roles.values() if r.arm}
         known |= {a for cands in candidates.values() if len(cands) == 1 for a, _ in cands}
         known |= set(ARMS) | set(_SHORT_ARMS)
         if control:
-            known.add(_key(control))
+            known.add(name_key(control))
         for c in rest:
             cands = candidates[c]
             if len(cands) > 1:
@@ -453,7 +453,7 @@ def _cell(value: Any, look: int, arm: str, total: str, column: str) -> Any:
 def _control_of(arms: Sequence[str], control: str | None) -> str:
     by_key: dict[str, list[str]] = {}
     for a in arms:
-        by_key.setdefault(_key(a), []).append(a)
+        by_key.setdefault(name_key(a), []).append(a)
     for names in by_key.values():
         if len(names) > 1:
             raise LookDataError(f"arms {', '.join(repr(n) for n in names)} differ only in "
@@ -463,7 +463,7 @@ def _control_of(arms: Sequence[str], control: str | None) -> str:
     if control is not None and (not isinstance(control, str) or not control.strip()):
         raise InputError(f"control: got {control!r}; allowed is the name of an arm in the "
                          f"data ({', '.join(arms)})")
-    found = by_key.get(_key(want))
+    found = by_key.get(name_key(want))
     if found:
         return found[0]
     if control is not None:
