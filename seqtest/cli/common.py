@@ -57,10 +57,9 @@ def write(text: str, target: str) -> None:
         Path(target).write_text(text)
 
 
-def read_plan(path: str, option: str = "--plan", *, trust: bool = False) -> Any:
-    """Read and verify a plan document (see :func:`seqtest.plan_from_dict`)."""
-    from seqtest.planning.documents import plan_from_dict
-
+def read_plan_document(path: str, option: str = "--plan") -> dict[str, Any]:
+    """The JSON object of a plan document file, or a :class:`UsageError` naming the
+    option and what is wrong with the file."""
     p = Path(path)
     if not p.is_file():
         raise UsageError(f"{option}: {str(p)!r} does not exist; write one with "
@@ -72,6 +71,17 @@ def read_plan(path: str, option: str = "--plan", *, trust: bool = False) -> Any:
     except json.JSONDecodeError as exc:
         raise UsageError(f"{option}: {str(p)!r} is not valid JSON ({exc.msg} at line "
                          f"{exc.lineno})") from None
+    if not isinstance(doc, dict):
+        raise UsageError(f"{option}: {str(p)!r} holds {type(doc).__name__}; allowed is a "
+                         "plan document (a JSON object)")
+    return doc
+
+
+def read_plan(path: str, option: str = "--plan", *, trust: bool = False) -> Any:
+    """Read and verify a plan document (see :func:`seqtest.plan_from_dict`)."""
+    from seqtest.planning.documents import plan_from_dict
+
+    doc = read_plan_document(path, option)
     try:
         return plan_from_dict(doc, trust=trust)
     except ValueError as exc:

@@ -215,24 +215,6 @@ def _client(args: argparse.Namespace) -> Any:
         raise UsageError(str(exc)) from None
 
 
-def _plan_document(path: str) -> dict[str, Any]:
-    p = Path(path)
-    if not p.is_file():
-        raise UsageError(f"--plan: {str(p)!r} does not exist; write one with "
-                         "'seqtest plan --json FILE'")
-    try:
-        doc = json.loads(p.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as exc:
-        raise UsageError(f"--plan: cannot read {str(p)!r} ({exc})") from None
-    except json.JSONDecodeError as exc:
-        raise UsageError(f"--plan: {str(p)!r} is not valid JSON ({exc.msg} at line "
-                         f"{exc.lineno})") from None
-    if not isinstance(doc, dict):
-        raise UsageError(f"--plan: {str(p)!r} holds {type(doc).__name__}; allowed is a plan "
-                         "document (a JSON object)")
-    return doc
-
-
 def _plan_kind(doc: dict[str, Any]) -> str | None:
     metric = (doc.get("inputs") or {}).get("metric")
     kind = metric.get("kind") if isinstance(metric, dict) else None
@@ -246,7 +228,8 @@ def _create(client: Any, args: argparse.Namespace, frame: Any,
     missing = [o for o, v in (("--plan", args.plan), ("--name", args.name)) if v is None]
     if missing:
         raise UsageError(f"{missing[0]}: missing; --create needs --plan FILE and --name NAME")
-    doc = _plan_document(args.plan)
+    from seqtest.cli.common import read_plan_document
+    doc = read_plan_document(args.plan)
     arms = None
     if args.arms is not None:
         arms = [a.strip() for a in args.arms.split(",")]
