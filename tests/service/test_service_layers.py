@@ -3,7 +3,8 @@ list, and no layer calls back into one above it (common practice: layered design
 
 Layers, lowest first: errors, config, logs -> db -> library -> views -> usecases ->
 web (the pages) -> api -> server -> cli -> the entry points kept for the seqtest
-command (commands, demo, __main__). Inside a layer, modules may import each other only without a cycle.
+command (commands, demo, __main__). Inside a layer, modules may import each other only
+without a cycle.
 """
 
 from __future__ import annotations
