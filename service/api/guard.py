@@ -18,7 +18,7 @@ without database parameters) and answered with a JSON 500 that gives the request
 id and does not claim that nothing was stored; one access-log line per request
 names the team.
 
-Pages (``is_page``): the forms of ``form_paths`` are posted as
+Pages (``is_page(method, path)``): the forms of ``form_paths`` are posted as
 ``application/x-www-form-urlencoded`` (their fields are read by the page itself),
 and every refusal above, and the 500, is an HTML page (``page_error``) with the same
 message and the request id, never a trace.
@@ -153,7 +153,7 @@ class Guard:
 
     def __init__(self, app: Any, max_bytes: int = 64 * 1024, body_timeout_s: float = 30.0,
                  access_log_enabled: bool = True, form_paths: tuple[str, ...] = (),
-                 is_page: Callable[[str], bool] | None = None,
+                 is_page: Callable[[str, str], bool] | None = None,
                  page_error: Callable[[int, str, str], str] | None = None) -> None:
         self.app = app
         self.max_bytes = int(max_bytes)
@@ -199,7 +199,7 @@ class Guard:
                       request_id: str, status_box: list[int]) -> None:
         path = scope.get("path", "")
         page = self.is_page is not None and self.page_error is not None and \
-            self.is_page(path)
+            self.is_page(scope.get("method", "GET"), path)
 
         async def reply(status: int, body: dict[str, Any],
                         headers: list[tuple[bytes, bytes]] | None = None,

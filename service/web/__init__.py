@@ -33,16 +33,21 @@ _PAGE_ROOTS = ("/experiments", "/design", "/signin", "/signout")
 FORM_PATHS = ("/signin", "/signout")
 
 
-def is_page(path: str) -> bool:
-    """A path served by the pages (an HTML answer, errors included)."""
-    return path == "/" or any(path == r or path.startswith(r + "/") for r in _PAGE_ROOTS)
+PAGE_METHODS = ("GET", "HEAD", "POST")
+
+
+def is_page(method: str, path: str) -> bool:
+    """A request for a page (an HTML answer, errors included): a method browsers use
+    on a path the pages serve."""
+    return method in PAGE_METHODS and (
+        path == "/" or any(path == r or path.startswith(r + "/") for r in _PAGE_ROOTS))
 
 
 def wants_html(request: Request) -> bool:
-    """A request whose error should be a page: a page's path, or a browser asking for
+    """A request whose error should be a page: a page's, or a browser asking for
     HTML anywhere outside the JSON API."""
     path = request.url.path
-    if is_page(path):
+    if is_page(request.method, path):
         return True
     if path.startswith("/v1/") or path == "/v1" or path.startswith("/openapi"):
         return False
