@@ -20,7 +20,6 @@ team's experiment, exactly as for an absent one.
 from __future__ import annotations
 
 import json
-import time
 from typing import Annotated, Any
 from urllib.parse import parse_qsl, quote, urlsplit
 
@@ -271,7 +270,6 @@ def experiment_page(request: Request, principal: PagePrincipal, experiment_id: s
 def design_page(request: Request, principal: PagePrincipal) -> Response:
     query = dict(request.query_params)
     result = None
-    started = time.perf_counter()
     if query:
         form = design.read_form(query)
         result = design.design(form)
@@ -281,7 +279,6 @@ def design_page(request: Request, principal: PagePrincipal) -> Response:
     context: dict[str, Any] = {
         "title": "Design a plan", "team": principal.team_name, "form": form,
         "fields": design.FIELDS, "result": result,
-        "seconds": time.perf_counter() - started,
     }
     if result is not None:
         shown = result.display

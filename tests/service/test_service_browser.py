@@ -570,7 +570,8 @@ def test_pages_on_postgresql(browser: Any, postgres_url: str, tmp_path: Path):
 
 
 def test_browser_suite_leaves_screenshots_out_of_git():
+    if not (REPO / ".git").exists() or not str(SHOTS).startswith(str(REPO)):
+        pytest.skip("the screenshots are not saved inside a git work tree")
     ignored = subprocess.run(["git", "check-ignore", "-q", str(SHOTS / "list.png")],
                              cwd=REPO)
-    if str(SHOTS).startswith(str(REPO)):
-        assert ignored.returncode == 0, f"{SHOTS} is not ignored by git"
+    assert ignored.returncode == 0, f"{SHOTS} is not ignored by git"

@@ -444,11 +444,12 @@ def test_a_page_request_is_logged_with_its_team(client: TestClient, app_db: Data
 def test_a_session_past_its_max_age_is_refused(app_db: Database):
     key = _key(app_db)
     settings = app_db.settings.with_(session_max_age_s=60)
-    with TestClient(create_app(db=app_db, settings=settings)) as c:
+    app = create_app(db=app_db, settings=settings)
+    with TestClient(app) as c:
         r = c.post("/signin", data={"key": key}, follow_redirects=False)
         assert "max-age=60" in r.headers["set-cookie"].lower()
         cookie = r.cookies[COOKIE]
-        signer = c.app.state.session_signer
+        signer = app.state.session_signer
         assert signer.read(cookie).expires_at - signer.read(cookie).issued_at == 60
         with pytest.raises(BadCookie):
             signer.read(cookie, now=time.time() + 61)
