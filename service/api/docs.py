@@ -11,6 +11,7 @@ stays at ``/openapi.json``.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 from fastapi import APIRouter, Request
@@ -30,12 +31,17 @@ PREFIX = "/docs/assets/"
 
 
 def assets_dir() -> Path | None:
-    """Where the installed package keeps Swagger UI's files (None: not installed)."""
+    """Where the installed package keeps Swagger UI's files (None: not installed, or
+    Swagger UI older than 5, which cannot read an OpenAPI 3.1 schema; the package
+    ``swagger-ui-bundle`` of the same import name ships version 4)."""
     try:
         from swagger_ui_bundle import swagger_ui_path
     except ImportError:
         return None
     path = Path(str(swagger_ui_path))
+    major = re.match(r"swagger-ui-(\d+)\.", path.name)
+    if major is None or int(major.group(1)) < 5:
+        return None
     return path if all((path / name).is_file() for name in ASSETS) else None
 
 
@@ -45,7 +51,8 @@ def docs(request: Request) -> Response:
         return HTMLResponse(
             "<!DOCTYPE html><html lang=en><meta charset=utf-8><title>seqtest API</title>"
             "<p>The interactive API page needs the package <code>swagger-ui-bundle-v2</code> "
-            "(<code>pip install 'seqtest[service]'</code>). The schema is at "
+            "(Swagger UI 5 or later; <code>pip install 'seqtest[service]'</code>). The schema "
+            "is at "
             "<a href=/openapi.json>/openapi.json</a>.</p></html>", status_code=503)
     return get_swagger_ui_html(
         openapi_url=request.app.openapi_url or "/openapi.json",

@@ -453,3 +453,14 @@ def test_a_session_past_its_max_age_is_refused(app_db: Database):
         assert signer.read(cookie).expires_at - signer.read(cookie).issued_at == 60
         with pytest.raises(BadCookie):
             signer.read(cookie, now=time.time() + 61)
+
+
+def test_the_api_page_says_what_to_install_without_its_assets(
+        client: TestClient, monkeypatch: pytest.MonkeyPatch):
+    from service.api import docs
+
+    monkeypatch.setattr(docs, "assets_dir", lambda: None)
+    r = client.get("/docs")
+    assert r.status_code == 503 and "swagger-ui-bundle-v2" in r.text
+    assert "/openapi.json" in r.text and "<script" not in r.text
+    assert client.get("/docs/assets/swagger-ui.css").status_code == 404
