@@ -9,12 +9,13 @@ from __future__ import annotations
 
 import os
 from collections.abc import Mapping
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, field, fields, replace
 from typing import Any
 
 DEFAULT_DATABASE_URL = "sqlite:///./seqtest.db"
 SQLITE_SYNCHRONOUS = ("FULL", "NORMAL", "EXTRA")
 LOG_LEVELS = ("critical", "error", "warning", "info", "debug")
+MIN_SECRET_CHARS = 32
 
 
 @dataclass(frozen=True)
@@ -56,6 +57,11 @@ SETTINGS: tuple[Setting, ...] = (
             "largest request body accepted (413 above)"),
     Setting("log_level", "SEQTEST_LOG_LEVEL", "info", str, help="critical ... debug"),
     Setting("access_log", "SEQTEST_ACCESS_LOG", True, bool, help="one line per request"),
+    Setting("session_secret", "SEQTEST_SESSION_SECRET", "", str,
+            help="key that signs the pages' session cookies (at least 32 characters); "
+            "empty: generated once and kept in the database, shared by every process"),
+    Setting("session_max_age_s", "SEQTEST_SESSION_MAX_AGE", 8 * 3600.0, float, 60,
+            30 * 86400, "seconds a sign-in to the pages lasts (default 8 hours)"),
 )
 _BY_NAME = {s.name: s for s in SETTINGS}
 
@@ -94,6 +100,13 @@ def _parse(setting: Setting, raw: Any, source: str) -> Any:
         value = value.upper()
         if value not in SQLITE_SYNCHRONOUS:
             raise ValueError(f"{label}: got {raw!r}; allowed are {', '.join(SQLITE_SYNCHRONOUS)}")
+    if setting.name == "session_secret" and value and (
+        len(value) < MIN_SECRET_CHARS or any(ord(c) < 33 or ord(c) > 126 for c in value)
+    ):
+        raise ValueError(f"{label}: got a value of {len(value)} characters; allowed is at "
+                         f"least {MIN_SECRET_CHARS} visible ASCII characters (e.g. from "
+                         "`python -c 'import secrets; print(secrets.token_urlsafe(48))'`), "
+                         "or empty to keep a generated one in the database")
     if setting.name == "log_level":
         value = value.lower()
         if value not in LOG_LEVELS:
@@ -120,6 +133,8 @@ class Settings:
     max_body_bytes: int = 64 * 1024
     log_level: str = "info"
     access_log: bool = True
+    session_secret: str = field(default="", repr=False)  # never in a log line
+    session_max_age_s: float = 8 * 3600.0
 
     @classmethod
     def from_env(

@@ -4,7 +4,9 @@ Everything statistical (plans, boundaries, validation of totals, decisions) is t
 library's. This module asks the library for exactly these things:
 ``seqtest.design(**inputs)``, ``seqtest.mixture.mixture_plan(**inputs)``,
 ``seqtest.plan_from_dict(document)``, ``seqtest.analyze(plan, looks, ...)``,
-``seqtest.LookDataError`` and the shared vocabulary; it turns requests into those calls, library
+``seqtest.LookDataError``, the shared vocabulary, and for the pages the reporting
+package (``seqtest.reporting``: the plain-language summary, the SVG charts, the
+tables, the plan's summary); it turns requests into those calls, library
 errors into service errors that name what to fix, and results into plain JSON.
 The analysis dictionary is the library's: its fields are passed through unrenamed.
 
@@ -20,11 +22,15 @@ from __future__ import annotations
 
 import logging
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
 import seqtest
 import seqtest.mixture
+import seqtest.reporting as reporting
+import seqtest.reporting.numbers as reporting_numbers
+import seqtest.reporting.style as reporting_style
 from seqtest import DECISIONS as _DECISIONS
 from seqtest import LookDataError
 from seqtest.core.jsonable import plain
@@ -427,3 +433,137 @@ def _totals_error(exc: LookDataError, exp: Experiment, this_look: int) -> Invali
 def analysis_object(summary: dict[str, Any], rows: list[Any]) -> dict[str, Any]:
     """The analysis in the library's shape: the summary and the rows of the looks."""
     return dict(sorted({**summary, "looks": rows}.items()))
+
+
+# ----------------------------------------------------------------------- reporting
+# What the pages show comes from the library's reporting package, the same functions
+# that write `seqtest report` and the summary in the JSON: the pages never phrase a
+# decision or draw a chart themselves.
+
+
+@dataclass(frozen=True)
+class PageSummary:
+    """The plain-language summary of an analysis, in the parts a page lays out."""
+
+    alert: str | None
+    headline: str
+    effect: str
+    outlook: str | None
+    caveat: str | None
+    alerts: list[str]
+    notes: list[str]
+    caution: str
+    text: str
+    figures: dict[str, Any]
+
+
+def summarize(analysis: dict[str, Any]) -> PageSummary:
+    """``seqtest.reporting.summarize`` of a stored analysis (its JSON)."""
+    s = reporting.summarize(analysis)
+    return PageSummary(alert=s.alert, headline=s.headline, effect=s.effect,
+                       outlook=s.outlook, caveat=s.caveat, alerts=list(s.alerts),
+                       notes=list(s.notes), caution=s.caution, text=s.text,
+                       figures=plain(s.figures))
+
+
+def caution() -> str:
+    """The caution every decision carries."""
+    return str(seqtest.CAUTION)
+
+
+def z_path_svg(analysis: dict[str, Any], plan: Any, title: str) -> str:
+    """The z path against the boundaries (observed, and planned when ``plan`` is a
+    group-sequential plan), as an inline ``<svg>``."""
+    return str(reporting.z_path_svg(analysis, plan, title=title))
+
+
+def effect_svg(analysis: dict[str, Any], title: str) -> str:
+    """The effect at each look with its interval valid at every look, as ``<svg>``."""
+    return str(reporting.effect_svg(analysis, title=title))
+
+
+Table = tuple[list[str], list[list[str]]]
+
+
+def look_table(analysis: dict[str, Any]) -> Table:
+    return reporting.look_rows(analysis)
+
+
+def final_table(analysis: dict[str, Any]) -> Table | None:
+    return reporting.final_rows(analysis)
+
+
+def table_html(headers: list[str], rows: list[list[str]], caption: str | None = None) -> str:
+    """A table of strings as escaped HTML (the report's own table)."""
+    return str(reporting.table_html(headers, rows, caption=caption))
+
+
+def decision_words(decision: Any, direction: Any = None) -> str:
+    """A decision in a few words (``stop for efficacy (treatment better)``)."""
+    return str(reporting_style.decision_words(decision, direction))
+
+
+def sample_ratio_looks(summary: dict[str, Any], rows: list[Any]) -> list[int]:
+    """Looks whose arms fail the sample-ratio check: from the rows given, and from the
+    summary's own record of them (which covers every look)."""
+    found = set(summary.get("sample_ratio_mismatch") or [])
+    found |= set(reporting.sample_ratio_looks({**summary, "looks": [r for r in rows if r]}))
+    if not summary.get("sample_ratio_mismatch") and "srm_threshold" not in summary:
+        # written by an earlier release: read from the warnings
+        found |= set(reporting.sample_ratio_looks({"warnings": summary.get("warnings") or []}))
+    return sorted(int(x) for x in found)
+
+
+def number_text(kind: str, value: Any) -> str:
+    """A number as the reports write it: ``count`` (users still needed), ``days``,
+    ``probability`` (a chance in percent), ``p`` (a p-value)."""
+    formats: dict[str, Callable[[Any], str]] = {
+        "count": reporting_numbers.count, "days": reporting_numbers.days,
+        "probability": reporting_numbers.probability, "p": reporting_numbers.p_value,
+    }
+    return str(formats[kind](value))
+
+
+class _SizedOnce:
+    """A plan whose sample size is computed once: its summary and its table each ask
+    for it, and for a 50-look plan it is the dearest part of showing the plan."""
+
+    def __init__(self, plan: Any) -> None:
+        self._plan = plan
+        self._size: Any = None
+
+    def sample_size(self) -> Any:
+        if self._size is None:
+            self._size = self._plan.sample_size()
+        return self._size
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._plan, name)
+
+
+@dataclass(frozen=True)
+class PlanDisplay:
+    """A plan as the pages show it: the object (for the planned boundaries of the z
+    chart), its summary in plain lines, and its looks with users per arm."""
+
+    plan: Any
+    kind: str
+    summary: str
+    table: Table | None
+    expected: dict[str, Any] | None  # expected and maximum totals (plans with a metric)
+
+
+def plan_display(info: PlanInfo) -> PlanDisplay:
+    """The summary and the boundary table of a plan read or designed by the library."""
+    plan = _SizedOnce(info.plan)
+    expected = None
+    if info.kind == "group_sequential" and getattr(info.plan, "metric", None):
+        ss = plan.sample_size()
+        expected = plain({"max_total": ss.total, "max_control": ss.n_control,
+                          "max_treatment": ss.n_treatment,
+                          "fixed_total": ss.fixed_control + ss.fixed_treatment,
+                          "expected_null": ss.expected_null,
+                          "expected_alternative": ss.expected_alternative})
+    return PlanDisplay(plan=info.plan, kind=info.kind,
+                       summary=str(reporting.plan_summary(plan)),
+                       table=reporting.plan_table_rows(plan), expected=expected)

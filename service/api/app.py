@@ -13,7 +13,8 @@ from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
 
-from service import library
+from service import library, web
+from service.api import docs
 from service.api.errors import install_error_handlers
 from service.api.guard import Guard
 from service.api.routers import amendments, experiments, health, looks
@@ -30,6 +31,7 @@ futility, or complete without significance, with the monitor's full analysis.
   `Seqtest-Replayed: true`.
 * Every error is JSON: `{"error": {"code", "message", "details"}}`; every answer carries
   `Seqtest-Request-Id`.
+* People read the same experiments as pages: sign in at `/` with a team key.
 
 The examples follow an invented shop, Juniper Street Bakery, testing a larger
 "Place order" button on its checkout page. seqtest supports, and does not replace, a
@@ -78,13 +80,19 @@ def create_app(
         version=library.library_version(),
         description=DESCRIPTION,
         lifespan=lifespan,
+        docs_url=None,  # served by service.api.docs, from a package: no internet needed
+        redoc_url=None,
     )
     app.state.db = database
     app.state.settings = settings
     install_error_handlers(app)
-    for r in (health.router, experiments.router, looks.router, amendments.router):
+    for r in (health.router, experiments.router, looks.router, amendments.router,
+              docs.router):
         app.include_router(r)
+    web.install(app, database, settings)
     app.add_middleware(Guard, max_bytes=settings.max_body_bytes,
                        body_timeout_s=settings.body_timeout_s,
-                       access_log_enabled=settings.access_log)
+                       access_log_enabled=settings.access_log,
+                       form_paths=web.FORM_PATHS, is_page=web.is_page,
+                       page_error=web.error_html)
     return app

@@ -1,5 +1,6 @@
 """Handlers that turn every error into the JSON error body, with messages people can
-act on (the error classes themselves are in :mod:`service.errors`)."""
+act on (the error classes themselves are in :mod:`service.errors`); a request for a
+page (:func:`service.web.wants_html`) gets the same message as an HTML page."""
 
 from __future__ import annotations
 
@@ -9,10 +10,11 @@ from typing import Any
 
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse
+from fastapi.responses import JSONResponse, Response
 from pydantic import BaseModel
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from service import web
 from service.errors import ServiceError, error_body
 
 _STATUS_CODES = {
@@ -105,19 +107,28 @@ def install_error_handlers(app: FastAPI) -> None:
     Unexpected exceptions are handled (and logged once) by the guard middleware."""
 
     @app.exception_handler(ServiceError)
-    async def _service_error(request: Request, exc: ServiceError) -> JSONResponse:
+    async def _service_error(request: Request, exc: ServiceError) -> Response:
+        if web.wants_html(request):
+            return web.error_page(request, exc.status, exc.message, headers=exc.headers)
         return JSONResponse(exc.body(), status_code=exc.status, headers=exc.headers)
 
     @app.exception_handler(RequestValidationError)
-    async def _validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
+    async def _validation_error(request: Request, exc: RequestValidationError) -> Response:
         details = _validation_details(request, exc)
+        if web.wants_html(request):
+            return web.error_page(request, 422, _validation_message(details))
         return JSONResponse(
             error_body("invalid_request", _validation_message(details), details),
             status_code=422,
         )
 
     @app.exception_handler(StarletteHTTPException)
-    async def _http_error(request: Request, exc: StarletteHTTPException) -> JSONResponse:
+    async def _http_error(request: Request, exc: StarletteHTTPException) -> Response:
+        if web.wants_html(request):
+            message = {404: f"There is no page {request.url.path}.",
+                       405: f"{request.method} is not allowed on {request.url.path}."
+                       }.get(exc.status_code, str(exc.detail))
+            return web.error_page(request, exc.status_code, message, headers=exc.headers)
         code = _STATUS_CODES.get(exc.status_code, "error")
         if exc.status_code == 404 and exc.detail == "Not Found":
             message = (

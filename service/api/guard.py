@@ -17,6 +17,11 @@ unexpected exception is logged once (its class, the request id, the traceback
 without database parameters) and answered with a JSON 500 that gives the request
 id and does not claim that nothing was stored; one access-log line per request
 names the team.
+
+Pages (``is_page(method, path)``): the forms of ``form_paths`` are posted as
+``application/x-www-form-urlencoded`` (their fields are read by the page itself),
+and every refusal above, and the 500, is an HTML page (``page_error``) with the same
+message and the request id, never a trace.
 """
 
 from __future__ import annotations
@@ -26,6 +31,7 @@ import json
 import logging
 import secrets
 import time
+from collections.abc import Callable
 from typing import Any
 
 from service.errors import error_body
@@ -128,15 +134,34 @@ async def _send_json(send: Any, status: int, body: dict[str, Any], request_id: s
     await send({"type": "http.response.body", "body": payload})
 
 
+async def _send_html(send: Any, status: int, html: str, request_id: str,
+                     close: bool = False) -> None:
+    payload = html.encode("utf-8")
+    h = [(b"content-type", b"text/html; charset=utf-8"),
+         (b"content-length", str(len(payload)).encode("ascii")),
+         (b"cache-control", b"no-store"),
+         (b"x-content-type-options", b"nosniff"),
+         (REQUEST_ID_HEADER.lower().encode(), request_id.encode("ascii"))]
+    if close or status >= 500:
+        h.append((b"connection", b"close"))
+    await send({"type": "http.response.start", "status": status, "headers": h})
+    await send({"type": "http.response.body", "body": payload})
+
+
 class Guard:
     """See the module docstring."""
 
     def __init__(self, app: Any, max_bytes: int = 64 * 1024, body_timeout_s: float = 30.0,
-                 access_log_enabled: bool = True) -> None:
+                 access_log_enabled: bool = True, form_paths: tuple[str, ...] = (),
+                 is_page: Callable[[str, str], bool] | None = None,
+                 page_error: Callable[[int, str, str], str] | None = None) -> None:
         self.app = app
         self.max_bytes = int(max_bytes)
         self.body_timeout_s = float(body_timeout_s)
         self.access_log_enabled = access_log_enabled
+        self.form_paths = frozenset(form_paths)
+        self.is_page = is_page
+        self.page_error = page_error
 
     def _too_large(self) -> dict[str, Any]:
         return error_body(
@@ -172,13 +197,20 @@ class Guard:
 
     async def _handle(self, scope: dict[str, Any], receive: Any, send: Any,
                       request_id: str, status_box: list[int]) -> None:
+        path = scope.get("path", "")
+        page = self.is_page is not None and self.page_error is not None and \
+            self.is_page(scope.get("method", "GET"), path)
+
         async def reply(status: int, body: dict[str, Any],
                         headers: list[tuple[bytes, bytes]] | None = None,
                         close: bool = False) -> None:
             status_box[0] = status
+            if page and self.page_error is not None:
+                html = self.page_error(status, body["error"]["message"], request_id)
+                await _send_html(send, status, html, request_id, close)
+                return
             await _send_json(send, status, body, request_id, headers, close)
 
-        path = scope.get("path", "")
         if _has_control(path):
             await reply(422, error_body(
                 "invalid_request", "The path contains a NUL or another control character, "
@@ -238,10 +270,17 @@ class Guard:
                 break
         body = b"".join(chunks)
 
+        form = method == "POST" and path in self.form_paths
         if body and method in ("POST", "PUT", "PATCH"):
             ctype = headers.get(b"content-type", b"").decode("latin-1").split(";")[0]
             ctype = ctype.strip().lower()
-            if ctype != "application/json" and not ctype.endswith("+json"):
+            if form:
+                if ctype != "application/x-www-form-urlencoded":
+                    await reply(415, error_body(
+                        "unsupported_media_type", "This form must be sent as "
+                        "application/x-www-form-urlencoded, as a browser sends it."))
+                    return
+            elif ctype != "application/json" and not ctype.endswith("+json"):
                 got = f"'{_printable(ctype)}'" if ctype else "none"
                 await reply(415, error_body(
                     "unsupported_media_type",
@@ -294,6 +333,12 @@ class Guard:
                       _printable(path), type(exc).__name__, format_exception(exc))
             if started:
                 return  # the answer is under way; the server closes the connection
+            if page:
+                await reply(500, error_body(
+                    "internal_error",
+                    "The service hit an unexpected error while making this page. Try again "
+                    "in a moment; if it persists, report the request id below."), close=True)
+                return
             await reply(500, error_body(
                 "internal_error",
                 f"The service hit an unexpected error (request id {request_id}). If this was "

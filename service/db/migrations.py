@@ -37,7 +37,7 @@ from sqlalchemy import (
 
 from service.db import tables
 
-LATEST = 3
+LATEST = 4
 
 
 def _v1_metadata() -> MetaData:
@@ -153,11 +153,20 @@ def _v3_store_once(conn: Connection) -> None:
         conn.execute(text(stmt))
 
 
+def _v4_service_secrets(conn: Connection) -> None:
+    """A table of values generated once and shared by every server process (the key
+    that signs the pages' session cookies)."""
+    conn.execute(text("CREATE TABLE service_secrets (name VARCHAR(100) NOT NULL PRIMARY KEY, "
+                      "value TEXT NOT NULL, created_at VARCHAR(32) NOT NULL)"))
+
+
 MIGRATIONS: list[tuple[int, str, Callable[[Connection], None]]] = [
     (1, "teams, API keys, experiments, plan versions, looks, idempotency keys", _v1_tables),
     (2, "looks and plan versions are append-only (UPDATE and DELETE refused)", _v2_append_only),
     (3, "each look's result stored once; stored boundary tables; expiring idempotency "
         "keys; health write check", _v3_store_once),
+    (4, "service secrets (the key that signs the pages' session cookies)",
+     _v4_service_secrets),
 ]
 assert [m[0] for m in MIGRATIONS] == list(range(1, LATEST + 1))
 

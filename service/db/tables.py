@@ -135,3 +135,13 @@ health_checks = Table(
     metadata,
     Column("checked_at", String(40), nullable=False),
 )
+
+# v4: values the service generates once and every process shares (the key that signs
+# the pages' session cookies), by name
+service_secrets = Table(
+    "service_secrets",
+    metadata,
+    Column("name", String(100), primary_key=True),
+    Column("value", Text, nullable=False),
+    Column("created_at", String(32), nullable=False),
+)

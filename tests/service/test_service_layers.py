@@ -2,8 +2,9 @@
 list, and no layer calls back into one above it (common practice: layered design).
 
 Layers, lowest first: errors, config, logs -> db -> library -> views -> usecases ->
-api -> server -> cli -> the entry points kept for the seqtest command (commands, demo,
-__main__). Inside a layer, modules may import each other only without a cycle.
+web (the pages) -> api -> server -> cli -> the entry points kept for the seqtest
+command (commands, demo, __main__). Inside a layer, modules may import each other only
+without a cycle.
 """
 
 from __future__ import annotations
@@ -21,6 +22,7 @@ LAYERS = [
     {"service.library"},
     {"service.views"},
     {"service.usecases"},
+    {"service.web"},
     {"service.api"},
     {"service.server"},
     {"service.cli"},

@@ -44,7 +44,7 @@ def _new(db: Database, p) -> str:
 
 
 def test_schema_is_versioned_and_migration_is_repeatable(storage: Database, database_url: str):
-    assert storage.schema_version == migrations.LATEST == 3
+    assert storage.schema_version == migrations.LATEST == 4
     again = open_db(database_url)  # a second start applies nothing new
     try:
         assert again.schema_version == migrations.LATEST
