@@ -839,3 +839,22 @@ def test_absurd_totals_are_refused_naming_the_field():
     with pytest.raises(LookDataError) as exc:
         seqtest.analyze(plan, [{"control": arm, "treatment": arm}])
     assert (exc.value.look, exc.value.arm, exc.value.field) == (1, "control", "n")
+
+
+def test_non_binding_futility_crossings_are_one_warning_naming_the_looks():
+    # A non-binding plan whose looks 1, 2 and 4 fall inside the futility band while
+    # the experiment goes on (looks 3 and 5 between the boundaries; a crossing at
+    # the latest look is the advice to stop): one warning lists them, in order.
+    plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=6,
+                          futility="pocock-type", binding=False)
+    max_n = 24_000
+    ns = [2000, 4000, 6000, 8000, 10000]          # fractions 1/6 .. 5/6
+    t = 2 * np.array(ns) / max_n
+    eff, fut = GroupSequentialRule(plan).boundaries(t)
+    inside, between = 0.5 * fut, 0.5 * (fut + eff)
+    zs = [inside[0], inside[1], between[2], inside[3], between[4]]
+    an = seqtest.analyze(plan, continuous_looks(zs, ns), metric="continuous", max_n=max_n)
+    assert an.decision == "continue"
+    notes = [w for w in an.warnings if "non-binding futility" in w]
+    assert notes == ["looks 1..2 and 4 crossed the non-binding futility boundary and the "
+                     "experiment went on; that keeps the type I error"]

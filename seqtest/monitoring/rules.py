@@ -199,6 +199,23 @@ def _naive(eff: Effect, j: int, alpha: float, sides: int) -> dict[str, float]:
             "naive_p_value": float(_unadjusted_p(np.array(_arr(eff.z)[j]), sides))}
 
 
+def _looks_text(looks: list[int]) -> str:
+    """Look numbers in words, runs shortened: ``look 3``, ``looks 3, 5 and 7..9``."""
+    runs: list[str] = []
+    start = prev = looks[0]
+    for k in [*looks[1:], None]:
+        if k is not None and k == prev + 1:
+            prev = k
+            continue
+        runs.append(str(start) if start == prev else f"{start}..{prev}")
+        if k is not None:
+            start = prev = k
+    if len(looks) == 1:
+        return f"look {looks[0]}"
+    text = runs[0] if len(runs) == 1 else ", ".join(runs[:-1]) + " and " + runs[-1]
+    return f"looks {text}"
+
+
 # -- group-sequential plans -----------------------------------------------------------
 
 class GroupSequentialRule:
@@ -381,6 +398,7 @@ class GroupSequentialRule:
         if last_final:
             codes[-1] = _EFFICACY if codes[-1] == _EFFICACY else _COMPLETE
         stop: int | None = None
+        went_on: list[int] = []
         for j in range(last):
             c = int(codes[j])
             binding_stop = c == _FUTILITY and (plan.binding or j == last - 1)
@@ -388,8 +406,11 @@ class GroupSequentialRule:
                 stop = j
                 break
             if c == _FUTILITY:
-                warnings.append(f"look {j + 1} crossed the non-binding futility boundary and "
-                                "the experiment went on; that keeps the type I error")
+                went_on.append(j + 1)
+        if went_on:
+            warnings.append(f"{_looks_text(went_on)} crossed the non-binding futility "
+                            "boundary and the experiment went on; that keeps the type I "
+                            "error")
         decision = Decision.CONTINUE if stop is None else decision_from_code(codes[stop])
         if stop is not None and stop < last - 1:
             warnings.append(f"the experiment stopped at look {stop + 1} ({decision.value}); "

@@ -282,10 +282,20 @@ class Plan:
         return np.array([self.characteristics(e).reject for e in np.ravel(effects)])
 
     def sample_size(self) -> Any:
-        """Users per arm for the plan's metric (see :func:`seqtest.planning.sizing.sample_size`)."""
+        """Users per arm for the plan's metric (see :func:`seqtest.planning.sizing.sample_size`).
+
+        Computed once per plan (the expected sizes need two passes of the recursion)
+        and kept: every call returns the same object, its arrays read-only."""
         if self.metric is None:
             raise ValueError("metric: this plan has no metric; give one to design()")
-        return sample_size(self, **self.metric)
+        cached = self.__dict__.get("_sample_size")
+        if cached is None:
+            cached = sample_size(self, **self.metric)
+            for value in vars(cached).values():
+                if isinstance(value, np.ndarray):
+                    value.setflags(write=False)
+            self.__dict__["_sample_size"] = cached
+        return cached
 
     @property
     def information_fractions(self) -> np.ndarray:

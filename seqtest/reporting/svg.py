@@ -280,6 +280,8 @@ class _Canvas:
 
 
 def _key(prefix: str, *payload: Any) -> str:
+    """An id for a chart's defs (clip paths), the same for the same chart at the same
+    size and different otherwise, so two charts on one page never share one."""
     digest = hashlib.sha1(repr(payload).encode("utf-8")).hexdigest()[:10]
     return f"seqtest-{prefix}-{digest}"
 
@@ -354,7 +356,7 @@ def z_path_svg(analysis: Any, plan: Any = None, *, title: str | None = None,
         low = min([0.0, *z, *_finite(fut), *(planned[2] if planned and planned[2] else [])])
         lo_y, hi_y = max(-Z_CAP, min(-1.0, low * 1.08 - 0.2)), top
     xmax = max(1.0, max(xs)) if not by_size else max(xs) * 1.05
-    c = _Canvas(width, height, _key("z", name, xs, z, eff, fut, planned), name)
+    c = _Canvas(width, height, _key("z", width, height, name, xs, z, eff, fut, planned), name)
     box = _Box(64, 54, width - 20, height - 150, 0.0, xmax, lo_y, hi_y)
     c.clip(box)
     _title_line(c, f"{name}: looks against the stopping boundaries")
@@ -506,7 +508,7 @@ def effect_svg(analysis: Any, *, title: str | None = None, width: float = 720.0,
     if open_top:
         ymax += 2 * pad
     slots = len(looks) + (1 if adjusted else 0)
-    c = _Canvas(width, height, _key("effect", name, est, lo, hi, adjusted), name)
+    c = _Canvas(width, height, _key("effect", width, height, name, est, lo, hi, adjusted), name)
     box = _Box(72, 40, width - 20, height - 130, 0.4, slots + 0.6, ymin, ymax)
     c.clip(box)
     _title_line(c, f"{name}: the effect at each look")
@@ -597,7 +599,7 @@ def simulation_svg(result: Any, *, title: str | None = None, width: float = 720.
     interim = ("stop_efficacy_upper", "stop_efficacy_lower", "stop_futility")
     done = "complete_not_significant"
     share = [{o: float(row.get(o) or 0) / reps for o in (*interim, done)} for row in rows]
-    c = _Canvas(width, height, _key("sim", name, share), name)
+    c = _Canvas(width, height, _key("sim", width, height, name, share), name)
     stacked = [sum(s[o] for o in interim) for s in share]
     top_a = max(stacked) if max(stacked) > 0 else 0.01
     top_a *= 1.18
