@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from seqtest.cli.common import UsageError, read_plan
+from seqtest.core.vocabulary import METRIC_KINDS
 
 __all__ = ["register"]
 
@@ -28,7 +29,7 @@ def register(sub: Any) -> None:
     r.add_argument("--plan", required=True, help="plan document from 'seqtest plan --json'")
     r.add_argument("--trust-plan", action="store_true", dest="trust_plan",
                    help="skip checking the plan's computed numbers against its inputs")
-    r.add_argument("--metric", choices=("binary", "continuous", "rate"), default=None,
+    r.add_argument("--metric", choices=METRIC_KINDS, default=None,
                    help="metric kind when the plan has none")
     r.add_argument("--final", action="store_true",
                    help="declare the last look final (spend all remaining alpha)")

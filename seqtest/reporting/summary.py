@@ -529,12 +529,30 @@ def _outlook(decision: str, units: EffectUnits, proj: Mapping | None, mixture: b
 
 # -- plans --------------------------------------------------------------------------
 
+def _hypothesis_line(metric: Mapping | None) -> str | None:
+    """The test against a margin, in one line (None without margin or direction)."""
+    if not metric or not any(k in metric for k in ("margin", "better", "hypothesis")):
+        return None
+    margin = float(metric.get("margin", 0.0))
+    better = metric.get("better", "higher")
+    scale = metric.get("scale", "difference")
+    size = f"{margin:+.4g}" + (" (relative)" if scale == "relative" else "")
+    if metric.get("hypothesis") == "non_inferiority":
+        what = f"non-inferiority: the treatment is not worse by more than the margin {size}"
+    elif margin:
+        what = f"superiority by a margin: the treatment is better by more than {size}"
+    else:
+        what = "superiority"
+    return f"  test: {what}; {better} is better"
+
+
 def plan_summary(plan: Any) -> str:
     """A plan in a few plain lines: kind, sides, alpha, power, boundaries, sizes.
 
     Reads a :class:`~seqtest.planning.design.Plan` or a
     :class:`~seqtest.planning.mixture.MixturePlan` by its attributes."""
     side = "two-sided" if plan.sides == 2 else "one-sided"
+    hyp = _hypothesis_line(getattr(plan, "metric", None))
     if hasattr(plan, "tau2"):
         lines = [f"Plan: mixture SPRT (look at any time), {side} alpha {plan.alpha:g}",
                  f"  mixing variance tau^2 = {plan.tau2:.6g} (chosen by rule: "
@@ -544,6 +562,8 @@ def plan_summary(plan: Any) -> str:
                          f"({plan.scale} scale)")
         if plan.max_n_per_arm:
             lines.append(f"  complete at {plan.max_n_per_arm:,} per arm without a rejection")
+        if hyp:
+            lines.append(hyp)
         return "\n".join(lines)
     lines = [f"Plan: {plan.looks} look(s), {side} alpha {plan.alpha:g}, power {plan.power:g}",
              f"  efficacy: {plan.efficacy.label}",
@@ -551,6 +571,8 @@ def plan_summary(plan: Any) -> str:
               f"({'binding' if plan.binding else 'non-binding'})")
              if plan.futility is not None else "  futility: none",
              f"  inflation over the fixed design: {plan.inflation:.4f}"]
+    if hyp:
+        lines.append(hyp)
     if plan.metric:
         ss = plan.sample_size()
         e0 = ss.expected_null / ss.total
