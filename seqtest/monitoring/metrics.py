@@ -152,7 +152,8 @@ def _hint(kind: str, unknown: Sequence[str]) -> str:
     if not owners:
         return ""
     what = "is a total" if len(unknown) == 1 else "are totals"
-    return f" ({', '.join(unknown)} {what} of a {' or '.join(owners)} metric)"
+    article = "an" if owners[0][0] in "aeiou" else "a"
+    return f" ({', '.join(unknown)} {what} of {article} {' or '.join(owners)} metric)"
 
 
 # ---------------------------------------------------------------------------
@@ -613,9 +614,11 @@ def _means_and_variances(kind: str, c: Mapping[str, np.ndarray], t: Mapping[str,
         cxx = [_centred(a, "covariate", "covariate_sq") for a in (c, t)]
         cxy = [a["cross"] - a["sum"] * (a["covariate"] / a["n"]) for a in (c, t)]
         sxx = cxx[0] + cxx[1]
+        # a covariate without variation carries nothing: no adjustment (a centred sum
+        # below 1e-10 of the raw one is rounding: the sums cancel to that precision)
+        varies = sxx > 1e-10 * (c["covariate_sq"] + t["covariate_sq"])
         with np.errstate(divide="ignore", invalid="ignore"):
-            # a covariate without variation carries nothing: no adjustment
-            theta = np.where(sxx > 0, (cxy[0] + cxy[1]) / np.where(sxx > 0, sxx, 1.0), 0.0)
+            theta = np.where(varies, (cxy[0] + cxy[1]) / np.where(varies, sxx, 1.0), 0.0)
         xbar = (c["covariate"] + t["covariate"]) / (c["n"] + t["n"])
         out: list[np.ndarray] = []
         for a, yy, xx, xy in zip((c, t), cyy, cxx, cxy, strict=True):
