@@ -308,3 +308,52 @@ def test_non_inferiority_holds_alpha_at_the_margin(metric, data, effect):
                                                "effect": {"mde_multiple": 1.0}}),
                      4_000, seed=6)
     assert not power.null and power.rate > 0.85
+
+
+# ---------------------------------------------------------------------------
+# The command line
+# ---------------------------------------------------------------------------
+
+
+def _cli(args: list[str], capsys) -> tuple[int, str, str]:
+    from seqtest.cli import main
+    rc = main(args)
+    out, err = capsys.readouterr()
+    return rc, out, err
+
+
+def test_cli_plan_with_a_margin_and_the_new_kinds_is_the_library_plan(capsys, tmp_path):
+    path = tmp_path / "plan.json"
+    rc, _, _ = _cli(["plan", "--sides", "1", "--alpha", "0.025", "--looks", "3",
+                     "--metric", "ratio", "--numerator-mean", "1.5", "--denominator-mean",
+                     "3", "--numerator-sd", "1.8", "--denominator-sd", "1.4",
+                     "--covariance", "1", "--mde", "0", "--margin", "0.05", "--better",
+                     "lower", "--hypothesis", "non_inferiority", "--json", str(path)],
+                    capsys)
+    assert rc == 0
+    lib = seqtest.design(alpha=0.025, sides=1, looks=3, metric={
+        "kind": "ratio", "numerator_mean": 1.5, "denominator_mean": 3.0,
+        "numerator_sd": 1.8, "denominator_sd": 1.4, "covariance": 1.0, "mde": 0.0,
+        "margin": 0.05, "better": "lower", "hypothesis": "non_inferiority",
+        "allocation": 1.0})
+    import json
+    assert seqtest.plan_from_dict(json.loads(path.read_text())) == lib
+    for args in (["--metric", "adjusted", "--sd", "2", "--correlation", "0.6",
+                  "--mde", "0.3"],
+                 ["--metric", "count", "--baseline", "2", "--dispersion", "1.5",
+                  "--mde", "0.2"]):
+        rc, out, _ = _cli(["plan", "--looks", "2", *args], capsys)
+        assert rc == 0 and "maximum users per arm" in out
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--metric", "binary", "--baseline", "0.3", "--mde", "0", "--margin", "0.05",
+      "--hypothesis", "non_inferiority"], "metric.margin: got 0.05 for a non_inferiority"),
+    (["--margin", "-0.05"], "--margin needs --metric"),
+    (["--metric", "adjusted", "--sd", "1", "--mde", "0.1"], "metric.correlation: missing"),
+    (["--metric", "count", "--baseline", "2", "--mde", "0.1"], "metric.sd, "
+                                                               "metric.dispersion"),
+])
+def test_cli_plan_refuses_bad_metric_options_with_status_2(args, words, capsys):
+    rc, _, err = _cli(["plan", "--sides", "1", "--alpha", "0.025", *args], capsys)
+    assert rc == 2 and words in err and len(err.strip().splitlines()) == 1

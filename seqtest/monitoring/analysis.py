@@ -25,7 +25,7 @@ from scipy import special
 
 from seqtest.core import checks, jsonable
 from seqtest.core.scales import null_on_test_scale
-from seqtest.core.vocabulary import CAUTION, Decision, decision_from_code
+from seqtest.core.vocabulary import CAUTION, METRIC_KINDS, Decision, decision_from_code
 from seqtest.monitoring import metrics
 from seqtest.monitoring.rules import (
     FRACTION_BASES,
@@ -419,8 +419,8 @@ def plan_metric(plan: Any, metric: str | None, allocation: float | None
     pm = getattr(plan, "metric", None) or {}
     kind = metric or pm.get("kind")
     if kind is None:
-        raise ValueError("metric: the plan has no metric; give metric='binary', "
-                         "'continuous' or 'rate'")
+        raise ValueError("metric: the plan has no metric; give metric= one of "
+                         f"{', '.join(METRIC_KINDS)}")
     if pm and metric and metric != pm.get("kind"):
         raise ValueError(f"metric: got {metric!r} but the plan is for {pm.get('kind')!r}")
     alloc = float(allocation if allocation is not None else pm.get("allocation", 1.0))

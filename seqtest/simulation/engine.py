@@ -493,24 +493,20 @@ def _plan_scale(plan: Any) -> str:
 
 
 def _design_means(plan: Any) -> tuple[float, float, bool]:
-    """(control mean, treatment mean, relative?) the plan is powered for."""
+    """(control mean, treatment mean, relative?) the plan is powered for (a mixture
+    plan's from its metric when it tests against a margin, else from its mde)."""
     m = _plan_metric(plan)
-    if m is not None and m.get("kind") == "ratio":
-        base = m["numerator_mean"] / m["denominator_mean"]
-        m_t = base * (1.0 + m["mde"]) if m.get("relative") else base + m["mde"]
-        return base, m_t, bool(m.get("relative")) or m.get("scale") == "relative"
-    if m is not None and (m.get("margin") or not isinstance(plan, Plan)):
-        base = m.get("baseline", 0.0) or 0.0
-        m_t = base * (1.0 + m["mde"]) if m.get("relative") else base + m["mde"]
-        return base, m_t, bool(m.get("relative")) or m.get("scale") == "relative"
-    if isinstance(plan, Plan):
-        if m is None:
-            raise ValueError("effect.mde_multiple: the plan has no metric, so it has no "
-                             "design effect; give effect.difference or effect.relative")
-        base = m.get("baseline", 0.0) or 0.0
+    if m is not None and (isinstance(plan, Plan) or m.get("margin")):
+        if m.get("kind") == "ratio":
+            base = m["numerator_mean"] / m["denominator_mean"]
+        else:
+            base = m.get("baseline", 0.0) or 0.0
         rel = bool(m.get("relative")) or m.get("scale") == "relative"
         m_t = base * (1.0 + m["mde"]) if m.get("relative") else base + m["mde"]
         return base, m_t, rel
+    if isinstance(plan, Plan):
+        raise ValueError("effect.mde_multiple: the plan has no metric, so it has no "
+                         "design effect; give effect.difference or effect.relative")
     if getattr(plan, "mde", None) is None:
         raise ValueError("effect.mde_multiple: the mixture plan has no mde; give "
                          "effect.difference or effect.relative")
