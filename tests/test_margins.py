@@ -357,3 +357,20 @@ def test_cli_plan_with_a_margin_and_the_new_kinds_is_the_library_plan(capsys, tm
 def test_cli_plan_refuses_bad_metric_options_with_status_2(args, words, capsys):
     rc, _, err = _cli(["plan", "--sides", "1", "--alpha", "0.025", *args], capsys)
     assert rc == 2 and words in err and len(err.strip().splitlines()) == 1
+
+
+def test_a_rule_refuses_an_effect_computed_at_another_null():
+    # The experiment layer computes each comparison's effect itself: an effect at 0 for
+    # a plan with a margin would test the wrong hypothesis, so it is refused.
+    from seqtest.monitoring.metrics import effect
+    from seqtest.monitoring.rules import rule_for
+    plan = seqtest.design(alpha=0.025, sides=1, looks=2, metric={
+        "kind": "continuous", "sd": 1.0, "mde": 0.0, "margin": -0.2,
+        "hypothesis": "non_inferiority"})
+    c, t = {"n": 100, "mean": 1.0, "sd": 1.0}, {"n": 100, "mean": 1.0, "sd": 1.0}
+    rule = rule_for(plan, max_n=1_000)
+    with pytest.raises(ValueError, match=r"eff: computed at the null 0.0 but the plan "
+                                         r"tests at its margin -0.2"):
+        rule.evaluate(effect("continuous", c, t), final=False, warnings=[])
+    table = rule.evaluate(effect("continuous", c, t, null=-0.2), final=False, warnings=[])
+    assert table.decision == "continue"

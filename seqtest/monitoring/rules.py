@@ -213,6 +213,14 @@ def orientation(plan: Any) -> tuple[float, float]:
     return null_and_sign(getattr(plan, "metric", None))
 
 
+def _check_null(eff: Effect, plan: Any) -> None:
+    """The effect must be computed at the plan's null (its margin)."""
+    null = orientation(plan)[0]
+    if not math.isclose(float(eff.null), null, rel_tol=1e-12, abs_tol=1e-15):
+        raise ValueError(f"eff: computed at the null {eff.null!r} but the plan tests at "
+                         f"its margin {null!r}; compute the effect with null={null!r}")
+
+
 def _interval(eff: Effect, critical: Any, sides: int, sign: float
               ) -> tuple[np.ndarray, np.ndarray]:
     """``eff.interval``; a one-sided plan where lower is better bounds the effect from
@@ -390,8 +398,10 @@ class GroupSequentialRule:
         return future
 
     def evaluate(self, eff: Effect, *, final: bool, warnings: list[str]) -> LookTable:
-        """Boundaries, intervals and decisions of the looks."""
+        """Boundaries, intervals and decisions of the looks (``eff`` computed at the
+        plan's null: :func:`orientation`)."""
         plan = self.plan
+        _check_null(eff, plan)
         t_all = self.fractions(eff)
         k = t_all.size
         reached = np.flatnonzero(t_all >= 1.0)
@@ -537,6 +547,7 @@ class MixtureRule:
 
     def evaluate(self, eff: Effect, *, final: bool, warnings: list[str]) -> LookTable:
         plan = self.plan
+        _check_null(eff, plan)
         size = np.maximum(_arr(eff.n_control), _arr(eff.n_treatment))
         res = always_valid_effect(eff, plan)
         self._result = res

@@ -557,7 +557,10 @@ def plan_summary(plan: Any) -> str:
         lines = [f"Plan: mixture SPRT (look at any time), {side} alpha {plan.alpha:g}",
                  f"  mixing variance tau^2 = {plan.tau2:.6g} (chosen by rule: "
                  f"{plan.tau2_rule})"]
-        if plan.mde is not None:
+        if plan.mde is not None and hyp:
+            lines.append(f"  tuned to the effect powered for, {plan.mde:g} from the null "
+                         f"towards the better side ({plan.scale} scale)")
+        elif plan.mde is not None:
             lines.append(f"  tuned to the minimum detectable effect {plan.mde:g} "
                          f"({plan.scale} scale)")
         if plan.max_n_per_arm:
