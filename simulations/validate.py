@@ -39,6 +39,17 @@ Grids
     traffic (the full grid adds a 1% baseline and the relative scale with unequal
     arms).
 
+Metric kinds and margins
+------------------------
+Each tail of a ratio metric (clicks per session, users randomised, the delta method),
+a metric adjusted for a pre-period covariate (rho 0.7) and over-dispersed counts
+analysed with their own variance (negative binomial, variance twice the mean: the
+data on which Poisson rates leak), 5-look O'Brien-Fleming-type plans; and one-sided
+tests with the true effect at the margin (non-inferiority of a proportion). The full
+grid adds one-sided and relative-scale cells, random traffic, mixture plans for the
+adjusted metric, the counts at the same maximum as the stress cell that leaks, and
+margins on the relative scale, where lower is better and for superiority by a margin.
+
 The rule
 --------
 A plan promises an error for each direction it can reject in: alpha for the upper
@@ -193,6 +204,101 @@ def _tail_cells(full: bool, reps: int, random_reps: int) -> list[tuple]:
     return out
 
 
+METRIC_GROUP = "metric kinds and margins"
+
+#: ratio data per user: 1 + Poisson(2) sessions, clicks Poisson(sessions x 0.5 x G),
+#: G gamma with shape 2 and mean 1; the plan from its per-user moments (mean clicks
+#: 1.5, var 1.5 + 0.25 (11 x 1.5 - 9) = 3.375; sessions 3, var 2; covariance 0.5 x 2)
+RATIO_CELL = ({"kind": "ratio", "numerator_mean": 1.5, "denominator_mean": 3.0,
+               "numerator_sd": math.sqrt(3.375), "denominator_sd": math.sqrt(2.0),
+               "covariance": 1.0, "mde": 0.2, "relative": True},
+              {"kind": "ratio", "rate": 0.5, "denominator_mean": 3.0, "dispersion": 2.0})
+ADJUSTED_CELL = ({"kind": "adjusted", "sd": 1.0, "correlation": 0.7, "mde": 0.1},
+                 {"kind": "pre_period", "mean": 4.0, "sd": 1.0, "correlation": 0.7})
+#: the stress cell's over-dispersed counts, analysed with their own variance (a plan
+#: with 4x the mde of the rate plan, so users are drawn one by one at a fair cost)
+COUNT_CELL = ({"kind": "count", "baseline": 2.0, "dispersion": 2.0, "mde": 0.4},
+              {"kind": "counts", "rate": 2.0, "dispersion": 2.0})
+
+
+def _metric_cells(full: bool, reps: int, random_reps: int) -> list[tuple]:
+    """The metric kinds (each tail at its level) and the tests against a margin (the
+    true effect at the margin); see the module docstring."""
+    out: list[tuple] = []
+
+    def cell(cid: str, plan: dict, data: dict, n: int, *, traffic: dict | None = None,
+             effect: dict | None = None, labels: dict, exact: bool = True) -> None:
+        extra: dict = {} if effect is None else {"effect": effect}
+        out.append((cid, METRIC_GROUP, plan, _scenario(cid, data, traffic, **extra), n,
+                    {"labels": labels, "exact": exact}))
+
+    kinds = (("ratio", RATIO_CELL), ("adjusted", ADJUSTED_CELL), ("count", COUNT_CELL))
+    for name, (metric, data) in kinds:
+        for sides in (2, 1) if full else (2,):
+            cell(f"metric-{name}-K5-s{sides}", _gs("obrien-fleming-type", 5, sides, metric),
+                 data, reps, labels={"data": name, "K": 5, "sides": sides})
+    ni = {"kind": "binary", "baseline": 0.3, "mde": 0.0, "margin": -0.05,
+          "hypothesis": "non_inferiority"}
+    cell("margin-binary-non-inferiority-K5-s1", _gs("obrien-fleming-type", 5, 1, ni),
+         {"kind": "binary", "rate": 0.3}, reps, effect={"difference": -0.05},
+         labels={"data": "binary", "case": "non-inferiority at the margin -5 points",
+                 "K": 5, "sides": 1})
+    if not full:
+        return out
+    # the relative scale and random traffic for the new kinds
+    rel_ratio = {**RATIO_CELL[0], "scale": "relative"}
+    cell("metric-ratio-relative-K5-s2", _gs("obrien-fleming-type", 5, 2, rel_ratio),
+         RATIO_CELL[1], reps, labels={"data": "ratio", "case": "relative scale", "K": 5,
+                                      "sides": 2})
+    for name, (metric, data) in kinds:
+        cell(f"metric-{name}-random-K5-s2", _gs("obrien-fleming-type", 5, 2, metric), data,
+             random_reps, traffic=RANDOM_TRAFFIC,
+             labels={"data": name, "traffic": "random", "K": 5, "sides": 2})
+    # mixture plans for the adjusted metric (continuous monitoring, 100 looks)
+    for sides in (2, 1):
+        cell(f"metric-adjusted-mixture-s{sides}",
+             {"mixture": {"alpha": _alpha(sides), "sides": sides, "metric": ADJUSTED_CELL[0],
+                          "max_n_per_arm": 3_000}},
+             ADJUSTED_CELL[1], reps, traffic={"mode": "fixed", "looks": 100}, exact=False,
+             labels={"data": "adjusted", "case": "mixture SPRT", "sides": sides,
+                     "looks": 100})
+    # the same data, users and looks as the stress cell whose Poisson rates leak
+    rate_plan = make_plan(_gs("obrien-fleming-type", 5, 2, METRICS["counts"][0]))
+    same_max = int(rate_plan.sample_size().total)
+    cell("metric-count-same-data-as-stress-K5-s2",
+         _gs("obrien-fleming-type", 5, 2, COUNT_CELL[0]), COUNT_CELL[1], reps,
+         traffic={"mode": "fixed", "max_total": same_max},
+         labels={"data": "count", "case": f"stress cell's data, {same_max:,} users",
+                 "K": 5, "sides": 2})
+    # margins: relative scale, lower is better, superiority by a margin, other kinds
+    margin_cells = [
+        ("binary-relative", {"kind": "binary", "baseline": 0.1, "mde": 0.0,
+                             "relative": True, "scale": "relative", "margin": -0.1,
+                             "hypothesis": "non_inferiority"},
+         {"kind": "binary", "rate": 0.1}, {"relative": -0.1}, "relative margin -10%"),
+        ("rate-relative", {"kind": "rate", "baseline": 2.0, "mde": 0.0, "relative": True,
+                           "scale": "relative", "margin": -0.05,
+                           "hypothesis": "non_inferiority"},
+         {"kind": "counts", "rate": 2.0}, {"relative": -0.05}, "relative margin -5%"),
+        ("continuous-lower", {"kind": "continuous", "sd": 1.0, "mde": 0.0, "margin": 0.1,
+                              "better": "lower", "hypothesis": "non_inferiority"},
+         {"kind": "normal", "mean": 3.0, "sd": 1.0}, {"difference": 0.1},
+         "lower is better, margin +0.1"),
+        ("ratio-relative", {**RATIO_CELL[0], "mde": 0.0, "scale": "relative",
+                            "margin": -0.1, "hypothesis": "non_inferiority"},
+         RATIO_CELL[1], {"relative": -0.1}, "ratio, relative margin -10%"),
+        ("binary-superiority", {"kind": "binary", "baseline": 0.1, "mde": 0.03,
+                                "margin": 0.01, "hypothesis": "superiority"},
+         {"kind": "binary", "rate": 0.1}, {"difference": 0.01},
+         "superiority by 1 point, at the margin"),
+    ]
+    for name, metric, data, effect, case in margin_cells:
+        cell(f"margin-{name}-K5-s1", _gs("obrien-fleming-type", 5, 1, metric), data, reps,
+             effect=effect, labels={"data": metric["kind"], "case": case, "K": 5,
+                                    "sides": 1})
+    return out
+
+
 def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None
                ) -> list[Cell]:
     """The cells of the ``reduced`` or ``full`` grid (see the module docstring)."""
@@ -240,6 +346,10 @@ def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None
 
     # each tail at its level: unequal arms, rare outcomes, the relative scale
     for cell in _tail_cells(full, reps, random_reps):
+        add(*cell[:5], **cell[5])
+
+    # ratio, adjusted and robust count metrics; tests against a margin
+    for cell in _metric_cells(full, reps, random_reps):
         add(*cell[:5], **cell[5])
 
     # futility boundaries

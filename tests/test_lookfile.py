@@ -40,7 +40,7 @@ def test_expected_columns_follow_the_documented_layout(kind):
     assert cols == [f"{arm}_{f}" for arm in ("control", "treatment")
                     for f in METRIC_FIELDS[kind]]
     with pytest.raises(ValueError, match="kind"):
-        expected_columns("ratio")
+        expected_columns("proportion")
 
 
 # headers that all mean control_n, control_successes, treatment_n, treatment_successes

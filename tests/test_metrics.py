@@ -218,6 +218,19 @@ def test_vectorised_shapes_match_elementwise(kind, scale):
     elif kind == "continuous":
         c = {"n": size, "sum": size * 2.0, "sum_sq": size * 5.0}
         t = {"n": size, "sum": size * 2.2, "sum_sq": size * 6.5}
+    elif kind == "count":
+        c = {"n": size, "events": np.floor(size * 2.0), "events_sq": np.floor(size * 9.0)}
+        t = {"n": size + 3, "events": np.floor(size * 2.1), "events_sq": np.floor(size * 9.5)}
+    elif kind == "ratio":
+        c = {"n": size, "numerator": size * 3.0, "denominator": size * 2.0,
+             "numerator_sq": size * 20.0, "denominator_sq": size * 6.0, "cross": size * 9.0}
+        t = {"n": size, "numerator": size * 3.3, "denominator": size * 2.1,
+             "numerator_sq": size * 23.0, "denominator_sq": size * 6.5, "cross": size * 10.0}
+    elif kind == "adjusted":
+        c = {"n": size, "sum": size * 2.0, "sum_sq": size * 5.0, "covariate": size * 1.9,
+             "covariate_sq": size * 4.8, "cross": size * 4.6}
+        t = {"n": size + 5, "sum": size * 2.2, "sum_sq": size * 6.5,
+             "covariate": size * 2.0, "covariate_sq": size * 5.2, "cross": size * 5.1}
     else:
         c = {"exposure": size * 1.5, "events": np.floor(size * 0.2)}
         t = {"exposure": size * 1.4, "events": np.floor(size * 0.25)}
@@ -504,8 +517,9 @@ def test_validate_looks_unknown_and_missing_arms():
 
 def test_validate_looks_bad_containers_and_kind():
     with pytest.raises(ValueError,
-                       match="kind: got .*; allowed is one of binary, continuous, rate"):
-        validate_looks("ratio", _binary_looks())
+                       match="kind: got .*; allowed is one of binary, continuous, rate, "
+                             "ratio, adjusted, count"):
+        validate_looks("proportion", _binary_looks())
     with pytest.raises(LookDataError, match="looks is empty"):
         validate_looks("binary", [])
     with pytest.raises(LookDataError, match="look 2: expected a mapping"):

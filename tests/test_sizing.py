@@ -255,7 +255,7 @@ def test_plan_metric_and_method():
 # ---------------------------------------------------------------------------
 
 BAD_METRICS = [
-    (dict(kind="ratio", mde=0.1), "metric.kind"),
+    (dict(kind="proportion", mde=0.1), "metric.kind"),
     (dict(mde=0.1), "metric.kind"),
     (dict(kind="binary", baseline=0.1), "metric.mde"),
     (dict(kind="binary", baseline=0.1, mde=0.0), "metric.mde"),

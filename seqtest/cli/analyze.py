@@ -13,6 +13,7 @@ import textwrap
 from typing import Any
 
 from seqtest.cli.common import UsageError, read_plan, table, write
+from seqtest.core.vocabulary import METRIC_KINDS
 
 __all__ = ["analysis_text", "read_looks", "register"]
 
@@ -72,7 +73,7 @@ def add_look_inputs(p: argparse.ArgumentParser) -> None:
     p.add_argument("--plan", required=True, help="plan document from 'seqtest plan --json'")
     p.add_argument("--trust-plan", action="store_true", dest="trust_plan",
                    help="skip checking the plan's computed numbers against its inputs")
-    p.add_argument("--metric", choices=("binary", "continuous", "rate"), default=None,
+    p.add_argument("--metric", choices=METRIC_KINDS, default=None,
                    help="metric kind when the plan has none")
     p.add_argument("--final", action="store_true",
                    help="declare the last look final (spend all remaining alpha)")

@@ -8,7 +8,7 @@ import warnings
 from typing import Any
 
 from seqtest.cli.common import UsageError, table, write
-from seqtest.core.vocabulary import CAUTION
+from seqtest.core.vocabulary import BETTER, CAUTION, HYPOTHESES, METRIC_KINDS
 
 __all__ = ["make_plan", "plan_rows", "plan_summary", "register"]
 
@@ -51,17 +51,44 @@ def add_plan_options(p: argparse.ArgumentParser) -> None:
                         "spending names); none by default")
     p.add_argument("--binding", action="store_true",
                    help="make the futility boundary binding (default: non-binding)")
-    p.add_argument("--metric", choices=("binary", "continuous", "rate"), default=None,
+    p.add_argument("--metric", choices=METRIC_KINDS, default=None,
                    help="metric kind, for sample sizes")
     p.add_argument("--baseline", type=float, default=None,
-                   help="control rate (binary, rate) or mean (continuous)")
-    p.add_argument("--mde", type=float, default=None, help="minimum detectable effect")
+                   help="control rate (binary, rate), mean (continuous, adjusted) or mean "
+                        "count per unit (count)")
+    p.add_argument("--mde", type=float, default=None,
+                   help="minimum detectable effect: the true effect the plan is powered "
+                        "for (with a margin it may be 0: no true difference)")
     p.add_argument("--relative", action="store_true", help="--mde is relative to baseline")
-    p.add_argument("--sd", type=float, default=None, help="standard deviation (continuous)")
+    p.add_argument("--sd", type=float, default=None,
+                   help="standard deviation (continuous, adjusted; count: of the per-unit "
+                        "counts)")
     p.add_argument("--allocation", type=float, default=1.0,
                    help="treatment users per control user (1)")
     p.add_argument("--scale", choices=("difference", "relative"), default=None,
                    help="analysis scale of the effect (difference)")
+    p.add_argument("--correlation", type=float, default=None,
+                   help="adjusted: expected correlation of the metric with its pre-period "
+                        "covariate")
+    p.add_argument("--dispersion", type=float, default=None,
+                   help="count: negative binomial shape k of the per-unit counts (variance "
+                        "mean + mean^2/k), instead of --sd")
+    for name, what in (("numerator-mean", "mean numerator per unit"),
+                       ("denominator-mean", "mean denominator per unit"),
+                       ("numerator-sd", "sd of the numerator per unit"),
+                       ("denominator-sd", "sd of the denominator per unit"),
+                       ("covariance", "covariance of numerator and denominator per unit")):
+        p.add_argument(f"--{name}", type=float, default=None,
+                       dest=name.replace("-", "_"), help=f"ratio: a pilot's {what}")
+    p.add_argument("--margin", type=float, default=None,
+                   help="null value of the effect on the analysis scale for a test against "
+                        "a margin (e.g. -0.01: not worse by more than 1 point); needs "
+                        "--hypothesis")
+    p.add_argument("--better", choices=BETTER, default=None,
+                   help="which way of the metric is good (higher)")
+    p.add_argument("--hypothesis", choices=HYPOTHESES, default=None,
+                   help="what a test against --margin is to show: non_inferiority or "
+                        "superiority (by more than the margin)")
 
 
 
@@ -75,18 +102,26 @@ def _fractions(text: str | None) -> list[float] | None:
                          "numbers such as 0.25,0.5,1") from None
 
 
+#: Metric options passed to the metric description as they are (their kinds are
+#: checked by seqtest.planning.sizing.check_metric, which names the field at fault).
+_METRIC_OPTIONS = ("baseline", "sd", "correlation", "dispersion", "numerator_mean",
+                   "denominator_mean", "numerator_sd", "denominator_sd", "covariance",
+                   "margin", "better", "hypothesis")
+
+
 def _metric(args: argparse.Namespace) -> dict | None:
     if args.metric is None:
-        for opt in ("baseline", "mde", "sd"):
-            if getattr(args, opt) is not None:
-                raise UsageError(f"--{opt} needs --metric (binary, continuous or rate)")
+        for opt in ("mde", *_METRIC_OPTIONS):
+            if getattr(args, opt, None) is not None:
+                raise UsageError(f"--{opt.replace('_', '-')} needs --metric "
+                                 f"({', '.join(METRIC_KINDS)})")
         return None
     m: dict = {"kind": args.metric}
     if args.mde is None:
         raise UsageError("--mde: the minimum detectable effect is needed with --metric")
     m["mde"] = args.mde
-    for opt in ("baseline", "sd"):
-        if getattr(args, opt) is not None:
+    for opt in _METRIC_OPTIONS:
+        if getattr(args, opt, None) is not None:
             m[opt] = getattr(args, opt)
     if args.relative:
         m["relative"] = True

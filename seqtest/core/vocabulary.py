@@ -12,8 +12,10 @@ from typing import SupportsInt
 __all__ = [
     "ARMS",
     "CAUTION",
+    "BETTER",
     "DECISIONS",
     "Decision",
+    "HYPOTHESES",
     "METRIC_KINDS",
     "PLAN_KINDS",
     "SCALES",
@@ -60,10 +62,22 @@ def decision_from_code(code: SupportsInt) -> Decision:
 
 #: Plan kinds, as written in plan documents, on the command line and in the service.
 PLAN_KINDS: tuple[str, ...] = ("group_sequential", "mixture")
-#: Metric kinds: what the per-arm totals describe.
-METRIC_KINDS: tuple[str, ...] = ("binary", "continuous", "rate")
+#: Metric kinds: what the per-arm totals describe (binary: units with the outcome;
+#: continuous: values per unit; rate: Poisson events over exposure; ratio: a sum over a
+#: sum per unit, by the delta method; adjusted: a continuous metric adjusted for a
+#: pre-period covariate; count: events per unit with a variance that does not assume
+#: Poisson).
+METRIC_KINDS: tuple[str, ...] = ("binary", "continuous", "rate", "ratio", "adjusted",
+                                 "count")
 #: Scales of an effect: treatment minus control, or treatment / control - 1.
 SCALES: tuple[str, ...] = ("difference", "relative")
+#: Which way of an effect is good for the metric: a higher value (sign-ups, revenue)
+#: or a lower one (load time, refunds).
+BETTER: tuple[str, str] = ("higher", "lower")
+#: What a test against the null value (the margin) is to show: that the treatment is
+#: better by more than the margin (superiority; margin 0 is the plain test) or that it
+#: is not worse by more than the margin (non-inferiority).
+HYPOTHESES: tuple[str, str] = ("superiority", "non_inferiority")
 #: The two arms of a two-arm comparison, by role.
 ARMS: tuple[str, str] = ("control", "treatment")
 

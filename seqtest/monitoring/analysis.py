@@ -8,7 +8,9 @@ is an :class:`Analysis`.
 
 Decisions (:class:`~seqtest.core.vocabulary.Decision`): ``continue``,
 ``stop_efficacy`` (with the direction), ``stop_futility``, or
-``complete_not_significant`` at the final look.
+``complete_not_significant`` at the final look. A plan whose metric has a margin tests
+at it (the z, the unadjusted and the stage-wise p-values are at the margin), and one
+where lower is better decides on ``-z`` (see :mod:`seqtest.monitoring.rules`).
 """
 
 from __future__ import annotations
@@ -22,13 +24,15 @@ import numpy as np
 from scipy import special
 
 from seqtest.core import checks, jsonable
-from seqtest.core.vocabulary import CAUTION, Decision, decision_from_code
+from seqtest.core.scales import null_on_test_scale
+from seqtest.core.vocabulary import CAUTION, METRIC_KINDS, Decision, decision_from_code
 from seqtest.monitoring import metrics
 from seqtest.monitoring.rules import (
     FRACTION_BASES,
     FinalInference,
     LookTable,
     Projection,
+    orientation,
     rule_for,
 )
 from seqtest.planning.design import Plan
@@ -62,7 +66,9 @@ class LookResult:
         ``1 / se^2``, and the fraction of the maximum reached (by sample, by
         information, or for a mixture plan the larger arm against its cap).
     efficacy_z, futility_z : float, float or None
-        Boundaries on the z scale of the test at this look.
+        Boundaries on the z scale of the test at this look (a one-sided plan where
+        lower is better stops for efficacy when ``z`` falls to ``efficacy_z``, which is
+        then negative, and for futility when it stays above ``futility_z``).
     p_threshold : float
         The p-value this look had to reach to stop for efficacy (the efficacy boundary
         on the p scale; for a mixture plan, alpha for the always-valid p-value).
@@ -127,8 +133,11 @@ class Analysis:
     decision : Decision
         At the last analysed look.
     direction : str or None
-        ``"treatment_better"`` or ``"control_better"`` for an efficacy stop (the sign
-        of the effect: whether larger is better is the user's to say).
+        For an efficacy stop: ``"treatment_better"`` (on the better side of the null:
+        higher, or lower when the metric says lower is better; by more than the margin
+        of a superiority test), ``"treatment_non_inferior"`` (a non-inferiority test:
+        not worse than the control by more than the margin), or ``"control_better"``
+        (the other side, two-sided plans).
     stopped_at : int or None
         1-based look of a stop.
     looks : list of LookResult
@@ -146,6 +155,13 @@ class Analysis:
         Whether the plan's futility boundary is binding (None: no futility boundary).
     srm_threshold : float
         p-value below which a look's sample-ratio check is a mismatch.
+    margin : float
+        The null value the looks were tested at (0 without a margin), on the effect's
+        scale.
+    hypothesis : str
+        ``"superiority"`` or ``"non_inferiority"``.
+    better : str
+        ``"higher"`` or ``"lower"``: which way of the metric is good.
     """
 
     decision: Decision
@@ -164,6 +180,9 @@ class Analysis:
     alpha: float | None = None
     binding: bool | None = None
     srm_threshold: float = 0.001
+    margin: float = 0.0
+    hypothesis: str = "superiority"
+    better: str = "higher"
 
     @property
     def metric(self) -> str:
@@ -281,7 +300,8 @@ def analyze(
         raise checks.fail("looks", [], "at least one look of totals")
 
     arms = metrics.validate_looks(kind, list(looks))
-    eff = metrics.effect(kind, arms["control"], arms["treatment"], scale=scale)
+    null, _ = orientation(plan)
+    eff = metrics.effect(kind, arms["control"], arms["treatment"], scale=scale, null=null)
     warnings: list[str] = list(getattr(plan, "notes", ()))
     degenerate = np.atleast_1d(np.asarray(eff.degenerate, bool))
     for j in np.flatnonzero(degenerate):
@@ -295,21 +315,34 @@ def analyze(
     if small.any():
         warnings.append(metrics.small_sample_message(kind, [int(j) + 1
                                                             for j in np.flatnonzero(small)]))
+    if kind == "rate":
+        disp = metrics.dispersion_check(arms)
+        if disp is not None and disp.flagged[:last].any():
+            warnings.append(metrics.dispersion_message(
+                disp, [int(j) + 1 for j in np.flatnonzero(disp.flagged[:last])]))
     records = _records(eff, table, kind, alloc, srm_threshold, small, plan.sides, warnings)
     fin = rule.final_inference(eff, table, warnings)
     proj = rule.projection(eff, table, daily_traffic)
+    pm_hyp = pm.get("hypothesis", "superiority") if pm else "superiority"
     direction = None
     if table.decision == Decision.STOP_EFFICACY:
         assert table.stop is not None
-        z_stop = float(np.atleast_1d(eff.test_estimate)[table.stop])
-        direction = "treatment_better" if z_stop > 0 else "control_better"
+        t_stop = float(np.atleast_1d(eff.test_estimate)[table.stop])
+        better_side = table.sign * (t_stop - null_on_test_scale(null, eff.test_scale)) > 0
+        if not better_side:
+            direction = "control_better"
+        elif pm_hyp == "non_inferiority":
+            direction = "treatment_non_inferior"
+        else:
+            direction = "treatment_better"
     stopped = None if table.stop is None else table.stop + 1
     return Analysis(decision=table.decision, direction=direction, stopped_at=stopped,
                     looks=records, final=fin, projection=proj, warnings=warnings,
                     metric_kind=kind, scale=scale,
                     test_scale=table.test_scale or eff.test_scale,
                     plan_kind=rule.kind, sides=int(plan.sides), alpha=float(plan.alpha),
-                    binding=_binding(plan), srm_threshold=srm_threshold)
+                    binding=_binding(plan), srm_threshold=srm_threshold, margin=null,
+                    hypothesis=pm_hyp, better=(pm or {}).get("better", "higher"))
 
 
 def _binding(plan: Any) -> bool | None:
@@ -347,7 +380,10 @@ def _records(eff: metrics.Effect, table: LookTable, kind: str, alloc: float,
     t_est = col(eff.test_estimate) if table.test_estimate is None else table.test_estimate
     t_se = col(eff.test_se) if table.se is None else table.se
     skew = np.broadcast_to(col(eff.skewness), col(eff.z).shape)
-    unadj = sides * special.ndtr(-np.abs(z)) if sides == 2 else special.ndtr(-z)
+    sign = table.sign
+    unadj = sides * special.ndtr(-np.abs(z)) if sides == 2 else special.ndtr(-sign * z)
+    # one-sided where lower is better: the boundaries on the scale of the z shown
+    shown = sign if sides == 1 else 1.0
     out = []
     for j in range(table.analysed):
         srm_p = srm_at_look(kind, n_c[j], n_t[j], alloc, srm_threshold, j + 1, warnings)
@@ -361,8 +397,9 @@ def _records(eff: metrics.Effect, table: LookTable, kind: str, alloc: float,
             skewness=0.0 if table.z is not None else float(skew[j]),
             information=float(col(eff.information)[j]),
             information_fraction=float(table.fraction[j]),
-            efficacy_z=float(table.efficacy_z[j]),
-            futility_z=None if table.futility_z is None else float(table.futility_z[j]),
+            efficacy_z=shown * float(table.efficacy_z[j]),
+            futility_z=None if table.futility_z is None
+            else shown * float(table.futility_z[j]),
             p_threshold=float(table.p_threshold[j]), unadjusted_p=float(unadj[j]),
             interval_lower=float(table.interval_lower[j]),
             interval_upper=float(table.interval_upper[j]),
@@ -382,8 +419,8 @@ def plan_metric(plan: Any, metric: str | None, allocation: float | None
     pm = getattr(plan, "metric", None) or {}
     kind = metric or pm.get("kind")
     if kind is None:
-        raise ValueError("metric: the plan has no metric; give metric='binary', "
-                         "'continuous' or 'rate'")
+        raise ValueError("metric: the plan has no metric; give metric= one of "
+                         f"{', '.join(METRIC_KINDS)}")
     if pm and metric and metric != pm.get("kind"):
         raise ValueError(f"metric: got {metric!r} but the plan is for {pm.get('kind')!r}")
     alloc = float(allocation if allocation is not None else pm.get("allocation", 1.0))

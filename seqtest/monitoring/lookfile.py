@@ -16,7 +16,10 @@ column per total::
 The totals of each metric kind are those of
 :data:`seqtest.monitoring.metrics.METRIC_FIELDS` (binary: ``n``, ``successes``;
 continuous: ``n``, ``sum``, ``sum_sq`` or ``n``, ``mean``, ``sd``; rate: ``exposure``,
-``events``). Names are read in any letter case with ``_``, ``.``, ``-`` or a space
+``events`` and optionally ``events_sq``; ratio: ``n``, ``numerator``, ``denominator``,
+``numerator_sq``, ``denominator_sq``, ``cross``; adjusted: ``n``, ``sum``, ``sum_sq``,
+``covariate``, ``covariate_sq``, ``cross``; count: ``n``, ``events``, ``events_sq``).
+Names are read in any letter case with ``_``, ``.``, ``-`` or a space
 between words; the wide layout also takes ``<total>_<arm>``. Other names accepted for a
 total are in :data:`FIELD_ALIASES` (``users`` for ``n``, ``conversions`` for
 ``successes``, ...), and in the wide layout ``c`` and ``t`` for ``control`` and
@@ -55,7 +58,12 @@ import numpy as np
 
 from seqtest.core.errors import InputError, LookDataError
 from seqtest.core.vocabulary import ARMS
-from seqtest.monitoring.metrics import ALTERNATIVE_FIELDS, METRIC_FIELDS, validate_looks
+from seqtest.monitoring.metrics import (
+    ALTERNATIVE_FIELDS,
+    METRIC_FIELDS,
+    OPTIONAL_FIELDS,
+    validate_looks,
+)
 
 __all__ = [
     "FIELD_ALIASES",
@@ -75,7 +83,8 @@ LAYOUTS: tuple[str, ...] = ("wide", "long")
 
 #: Every name accepted for a total -> the total (the canonical names map to themselves).
 FIELD_ALIASES: dict[str, str] = {
-    **{f: f for fields in (*METRIC_FIELDS.values(), *ALTERNATIVE_FIELDS.values())
+    **{f: f for fields in (*METRIC_FIELDS.values(), *ALTERNATIVE_FIELDS.values(),
+                           *OPTIONAL_FIELDS.values())
        for f in fields},
     "users": "n",
     "conversions": "successes",
@@ -105,7 +114,8 @@ def name_key(name: object) -> str:
 
 
 def _fields_of(kind: str) -> tuple[str, ...]:
-    return METRIC_FIELDS[kind] + tuple(f for f in ALTERNATIVE_FIELDS.get(kind, ())
+    return METRIC_FIELDS[kind] + tuple(f for f in (*ALTERNATIVE_FIELDS.get(kind, ()),
+                                                   *OPTIONAL_FIELDS.get(kind, ()))
                                        if f not in METRIC_FIELDS[kind])
 
 
@@ -113,6 +123,8 @@ def _totals_text(kind: str) -> str:
     text = ", ".join(METRIC_FIELDS[kind])
     if kind in ALTERNATIVE_FIELDS:
         text += f" (or {', '.join(ALTERNATIVE_FIELDS[kind])})"
+    if kind in OPTIONAL_FIELDS:
+        text += f", and optionally {', '.join(OPTIONAL_FIELDS[kind])}"
     return text
 
 
@@ -147,6 +159,8 @@ def columns_help(width: int = 79) -> str:
             if kind in ALTERNATIVE_FIELDS:
                 line += f" (or {', '.join(ALTERNATIVE_FIELDS[kind])} for "
                 line += f"{', '.join(METRIC_FIELDS[kind])})"
+            if kind in OPTIONAL_FIELDS:
+                line += f" (optional: {', '.join(OPTIONAL_FIELDS[kind])})"
             out.append(textwrap.fill(line, width, initial_indent=f"  {kind:<{label - 2}}",
                                      subsequent_indent=" " * label))
         return out

@@ -1,7 +1,7 @@
 """Per-arm cumulative totals -> effect estimate, standard error, z and information.
 
 Two arms are compared, ``"control"`` and ``"treatment"``; the effect is always
-treatment relative to control. Three kinds of metric are supported, each with its
+treatment relative to control. Six kinds of metric are supported, each with its
 canonical cumulative totals (see :data:`METRIC_FIELDS`):
 
 ``"binary"``
@@ -12,7 +12,24 @@ canonical cumulative totals (see :data:`METRIC_FIELDS`):
     accepted as well and converted.
 ``"rate"``
     ``exposure`` (e.g. user-days), ``events`` (count of events); the rate is
-    ``events / exposure``.
+    ``events / exposure``, its variance Poisson's. Optional ``events_sq``, the sum of
+    the squared per-unit counts when each unit brings one unit of exposure (then
+    ``exposure`` counts the units), lets the dispersion be checked
+    (:func:`dispersion_check`).
+``"ratio"``
+    A sum over a sum per randomisation unit (revenue per session when users are
+    randomised): ``n`` (units), ``numerator`` and ``denominator`` (their sums over the
+    units), ``numerator_sq`` and ``denominator_sq`` (sums of the squared per-unit
+    values), ``cross`` (sum of the per-unit products numerator x denominator). The
+    metric is ``numerator / denominator``; per-unit denominators are >= 0.
+``"adjusted"``
+    A continuous metric ``y`` with a pre-period covariate ``x`` per unit (usually the
+    same metric before the experiment): ``n``, ``sum``, ``sum_sq`` (of ``y``),
+    ``covariate``, ``covariate_sq`` (sums of ``x`` and ``x^2``), ``cross`` (sum of
+    ``x y``). The effect is the regression-adjusted difference of means.
+``"count"``
+    Events per unit with a variance that does not assume Poisson: ``n`` (units),
+    ``events`` (their sum), ``events_sq`` (sum of the squared per-unit counts).
 
 The functions here are pure numpy and vectorised: every total may be an array of
 any shape (for instance ``(replications, looks)`` in simulation) and the results
@@ -49,6 +66,7 @@ __all__ = [
     "LookDataError",
     "SRMResult",
     "arm_unit_variances",
+    "dispersion_check",
     "effect",
     "srm_check",
     "unit_variance",
@@ -60,11 +78,20 @@ METRIC_FIELDS: dict[str, tuple[str, ...]] = {
     "binary": ("n", "successes"),
     "continuous": ("n", "sum", "sum_sq"),
     "rate": ("exposure", "events"),
+    "ratio": ("n", "numerator", "denominator", "numerator_sq", "denominator_sq", "cross"),
+    "adjusted": ("n", "sum", "sum_sq", "covariate", "covariate_sq", "cross"),
+    "count": ("n", "events", "events_sq"),
 }
 
 #: Alternative totals accepted for a kind (converted to the canonical ones).
 ALTERNATIVE_FIELDS: dict[str, tuple[str, ...]] = {
     "continuous": ("n", "mean", "sd"),
+}
+
+#: Totals a kind accepts besides its canonical ones: given for every arm at every look
+#: or not at all.
+OPTIONAL_FIELDS: dict[str, tuple[str, ...]] = {
+    "rate": ("events_sq",),
 }
 
 assert tuple(METRIC_FIELDS) == METRIC_KINDS
@@ -73,9 +100,25 @@ assert tuple(METRIC_FIELDS) == METRIC_KINDS
 MAX_TOTAL = 1e30
 
 # Totals that are counts of units or events: whole numbers, never negative.
-_WHOLE_FIELDS = frozenset({"n", "successes", "events"})
-# Totals that can only grow from one look to the next.
-_MONOTONE_FIELDS: tuple[str, ...] = ("n", "successes", "exposure", "events")
+_WHOLE_FIELDS = frozenset({"n", "successes", "events", "events_sq"})
+# Totals that are never negative (sums of squares, exposure, per-unit denominators).
+_NONNEGATIVE_FIELDS = frozenset({"exposure", "sd", "denominator", "numerator_sq",
+                                 "denominator_sq", "covariate_sq"})
+# Totals that can only grow from one look to the next, per kind (sums of squares of
+# the new kinds too: each unit adds a square).
+_MONOTONE_FIELDS: dict[str, tuple[str, ...]] = {
+    "binary": ("n", "successes"),
+    "continuous": ("n",),
+    "rate": ("exposure", "events", "events_sq"),
+    "ratio": ("n", "denominator", "numerator_sq", "denominator_sq"),
+    "adjusted": ("n", "sum_sq", "covariate_sq"),
+    "count": ("n", "events", "events_sq"),
+}
+# Kinds whose z is the unpooled (Welch-type) statistic of two means with their own
+# variances: everything but the score-tested binary and rate metrics.
+MEAN_KINDS = ("continuous", "ratio", "adjusted", "count")
+# Units needed per arm to estimate a per-unit variance.
+_MIN_UNITS = {"binary": 1, "continuous": 2, "rate": 0, "ratio": 2, "adjusted": 2, "count": 2}
 
 
 def _check_kind(kind: object) -> str:
@@ -97,7 +140,20 @@ def _expected_text(kind: str) -> str:
     text = ", ".join(METRIC_FIELDS[kind])
     if kind in ALTERNATIVE_FIELDS:
         text += f" (or {', '.join(ALTERNATIVE_FIELDS[kind])})"
+    if kind in OPTIONAL_FIELDS:
+        text += f", and optionally {', '.join(OPTIONAL_FIELDS[kind])}"
     return text
+
+
+def _hint(kind: str, unknown: Sequence[str]) -> str:
+    """Which kind the unknown fields belong to, when that is clear."""
+    owners = [k for k, f in METRIC_FIELDS.items()
+              if k != kind and set(unknown) <= set(f) | set(OPTIONAL_FIELDS.get(k, ()))]
+    if not owners:
+        return ""
+    what = "is a total" if len(unknown) == 1 else "are totals"
+    article = "an" if owners[0][0] in "aeiou" else "a"
+    return f" ({', '.join(unknown)} {what} of {article} {' or '.join(owners)} metric)"
 
 
 # ---------------------------------------------------------------------------
@@ -121,16 +177,18 @@ def _number(value: object, look: int, arm: str, field: str) -> float:
 
 
 def _arm_fields(kind: str, totals: Mapping, look: int, arm: str) -> tuple[str, ...]:
-    """Which field set (canonical or alternative) an arm's totals use."""
+    """Which field set (canonical or alternative, with the optional fields given) an
+    arm's totals use."""
     keys = set(totals)
     canonical = METRIC_FIELDS[kind]
     alternative = ALTERNATIVE_FIELDS.get(kind, ())
-    allowed = set(canonical) | set(alternative)
+    optional = OPTIONAL_FIELDS.get(kind, ())
+    allowed = set(canonical) | set(alternative) | set(optional)
     unknown = sorted(str(k) for k in keys - allowed)
     if unknown:
         raise LookDataError(
             f"unknown field{'s' if len(unknown) > 1 else ''} {', '.join(unknown)}; "
-            f"a {kind} metric expects {_expected_text(kind)}",
+            f"a {kind} metric expects {_expected_text(kind)}{_hint(kind, unknown)}",
             look=look,
             arm=arm,
             field=unknown[0],
@@ -154,15 +212,47 @@ def _arm_fields(kind: str, totals: Mapping, look: int, arm: str) -> tuple[str, .
             arm=arm,
             field=missing[0],
         )
-    return fields
+    return tuple(fields) + tuple(f for f in optional if f in keys)
+
+
+def _square_floor(v: Mapping[str, float], total: str, square: str, n: float, look: int,
+                  arm: str) -> float:
+    """The centred sum of squares ``square - total^2 / n``; refuses a negative one
+    beyond rounding (of the order of the float precision of the larger term)."""
+    floor = v[total] * v[total] / n
+    sq = v[square]
+    if sq < floor - 1e-9 * max(abs(sq), floor, 1.0):
+        raise LookDataError(
+            f"{_fmt(sq)} is below {total}^2 / n = {_fmt(floor)}, which would make the "
+            "variance negative; the sums are impossible together",
+            look=look, arm=arm, field=square)
+    return max(sq - floor, 0.0)
+
+
+def _check_cross(v: Mapping[str, float], names: tuple[str, str], squares: tuple[float, float],
+                 n: float, look: int, arm: str) -> None:
+    """The centred cross product must satisfy Cauchy-Schwarz with the centred sums of
+    squares (a covariance matrix cannot have a negative variance in any direction)."""
+    a, b = names
+    cov = v["cross"] - v[a] * v[b] / n
+    bound = math.sqrt(squares[0] * squares[1])
+    scale = max(abs(v["cross"]), abs(v[a] * v[b] / n), 1.0)
+    if abs(cov) > bound + 1e-9 * scale:
+        raise LookDataError(
+            f"{_fmt(v['cross'])} gives a centred cross product {_fmt(cov)} beyond "
+            f"sqrt({a} and {b} centred sums of squares) = {_fmt(bound)}: a correlation "
+            "above 1 in absolute value, which makes the variance of a combination "
+            "negative; the sums are impossible together",
+            look=look, arm=arm, field="cross")
 
 
 def _canonical_arm(kind: str, totals: Mapping, look: int, arm: str) -> dict[str, float]:
-    """Check one arm at one look and return its canonical totals."""
+    """Check one arm at one look and return its canonical totals (and the optional ones
+    given)."""
     fields = _arm_fields(kind, totals, look, arm)
     v = {f: _number(totals[f], look, arm, f) for f in fields}
     for f, x in v.items():
-        if f in _WHOLE_FIELDS or f in ("exposure", "sd"):
+        if f in _WHOLE_FIELDS or f in _NONNEGATIVE_FIELDS or f == "n":
             if x < 0:
                 raise LookDataError(f"{_fmt(x)} is negative", look=look, arm=arm, field=f)
         if f in _WHOLE_FIELDS and not x.is_integer():
@@ -177,6 +267,8 @@ def _canonical_arm(kind: str, totals: Mapping, look: int, arm: str) -> dict[str,
                 arm=arm,
                 field="exposure",
             )
+        if "events_sq" in v:
+            _check_unit_counts(v, v["exposure"], look, arm, "exposure")
         return v
     n = v["n"]
     if n == 0:
@@ -195,31 +287,51 @@ def _canonical_arm(kind: str, totals: Mapping, look: int, arm: str) -> dict[str,
                 field="successes",
             )
         return v
-    # continuous
     if n < 2:
         raise LookDataError(
-            "n is 1; a continuous metric needs at least 2 units per arm to estimate "
+            f"n is 1; a {kind} metric needs at least 2 units per arm to estimate "
             "the variance",
             look=look,
             arm=arm,
             field="n",
         )
-    if "mean" in v:
+    if kind == "continuous" and "mean" in v:
         mean, sd = v["mean"], v["sd"]
         total = n * mean
         return {"n": n, "sum": total, "sum_sq": (n - 1.0) * sd * sd + total * mean}
-    total, sum_sq = v["sum"], v["sum_sq"]
-    floor = total * total / n
-    # Allow rounding of the order of the float precision of the larger term.
-    if sum_sq < floor - 1e-9 * max(abs(sum_sq), floor, 1.0):
-        raise LookDataError(
-            f"{_fmt(sum_sq)} is below sum^2 / n = {_fmt(floor)}, which would make "
-            "the variance negative",
-            look=look,
-            arm=arm,
-            field="sum_sq",
-        )
+    if kind == "continuous":
+        _square_floor(v, "sum", "sum_sq", n, look, arm)
+    elif kind == "count":
+        _check_unit_counts(v, n, look, arm, "n")
+    elif kind == "ratio":
+        if v["denominator"] == 0:
+            raise LookDataError(
+                "denominator is 0; a ratio metric needs a positive denominator total in "
+                "every arm at every look", look=look, arm=arm, field="denominator")
+        sx = _square_floor(v, "numerator", "numerator_sq", n, look, arm)
+        sy = _square_floor(v, "denominator", "denominator_sq", n, look, arm)
+        _check_cross(v, ("numerator", "denominator"), (sx, sy), n, look, arm)
+    else:  # adjusted
+        sy = _square_floor(v, "sum", "sum_sq", n, look, arm)
+        sx = _square_floor(v, "covariate", "covariate_sq", n, look, arm)
+        _check_cross(v, ("sum", "covariate"), (sy, sx), n, look, arm)
     return v
+
+
+def _check_unit_counts(v: Mapping[str, float], n: float, look: int, arm: str,
+                       size: str) -> None:
+    """``events_sq`` of whole per-unit counts: at least ``events`` (``k^2 >= k``) and
+    at least ``events^2 / n`` (a variance >= 0); ``n`` whole."""
+    if not float(n).is_integer():
+        raise LookDataError(
+            f"{_fmt(n)} is not a whole number; with events_sq the {size} counts the "
+            "units (one unit of exposure each)", look=look, arm=arm, field=size)
+    if v["events_sq"] < v["events"]:
+        raise LookDataError(
+            f"{_fmt(v['events_sq'])} is below events = {_fmt(v['events'])}; whole counts "
+            "have squares at least as large, so the sums are impossible together",
+            look=look, arm=arm, field="events_sq")
+    _square_floor(v, "events", "events_sq", n, look, arm)
 
 
 def validate_looks(kind: str, looks: Sequence[Mapping]) -> dict[str, dict[str, np.ndarray]]:
@@ -246,11 +358,16 @@ def validate_looks(kind: str, looks: Sequence[Mapping]) -> dict[str, dict[str, n
         If `kind` is unknown.
     LookDataError
         Naming the look, the arm and the field, for: missing, unknown or mixed
-        fields; values that are not finite numbers; negative counts or exposure;
-        counts that are not whole numbers; successes above n; n of 0 (or 1 for a
-        continuous metric) or exposure of 0; a negative sd; sum_sq below sum^2/n
-        (a negative variance); a total among n, successes, exposure, events that
-        is smaller than at the previous look; unknown or missing arms.
+        fields; values that are not finite numbers; negative counts, exposure,
+        denominators or sums of squares; counts that are not whole numbers;
+        successes above n; n of 0 (or 1 for a metric with a per-unit variance) or
+        exposure of 0; a ratio metric's denominator total of 0; a negative sd; sums
+        of squares impossible given the sums (``sum_sq`` below ``sum^2 / n``, a
+        cross product beyond Cauchy-Schwarz: a negative variance); ``events_sq``
+        below ``events``; an optional total given for one arm or look and not
+        another (a covariate or squared counts posted for one arm only); a total
+        that can only grow (units, events, exposure, denominators, sums of squares)
+        smaller than at the previous look; unknown or missing arms.
     """
     kind = _check_kind(kind)
     if isinstance(looks, Mapping) or isinstance(looks, str | bytes):
@@ -261,6 +378,8 @@ def validate_looks(kind: str, looks: Sequence[Mapping]) -> dict[str, dict[str, n
     out: dict[str, dict[str, list[float]]] = {
         a: {f: [] for f in METRIC_FIELDS[kind]} for a in ARMS
     }
+    optional: tuple[str, ...] | None = None   # the optional totals given, set by look 1
+    first_seen = ""
     for i, look in enumerate(looks, start=1):
         if not isinstance(look, Mapping):
             raise LookDataError(
@@ -289,7 +408,21 @@ def validate_looks(kind: str, looks: Sequence[Mapping]) -> dict[str, dict[str, n
                     arm=arm,
                 )
             values = _canonical_arm(kind, totals, i, arm)
-            for f in _MONOTONE_FIELDS:
+            given = tuple(f for f in OPTIONAL_FIELDS.get(kind, ()) if f in values)
+            if optional is None:
+                optional, first_seen = given, f"{arm} at look {i}"
+                for f in given:
+                    for a in ARMS:
+                        out[a][f] = []
+            elif given != optional:
+                odd = sorted(set(given) ^ set(optional))
+                has = "has" if set(odd) <= set(given) else "lacks"
+                raise LookDataError(
+                    f"{has} {', '.join(odd)} where {first_seen} "
+                    f"{'does not' if has == 'has' else 'does'}; give "
+                    f"{', '.join(odd)} for every arm at every look, or not at all",
+                    look=i, arm=arm, field=odd[0])
+            for f in _MONOTONE_FIELDS[kind]:
                 if f in values and i > 1:
                     prev = out[arm][f][-1]
                     if values[f] < prev:
@@ -300,7 +433,7 @@ def validate_looks(kind: str, looks: Sequence[Mapping]) -> dict[str, dict[str, n
                             arm=arm,
                             field=f,
                         )
-            for f in METRIC_FIELDS[kind]:
+            for f in (*METRIC_FIELDS[kind], *given):
                 out[arm][f].append(values[f])
     return {
         a: {f: np.asarray(vals, dtype=float) for f, vals in fields.items()}
@@ -424,14 +557,23 @@ def _arm_arrays(kind: str, totals: Mapping, name: str) -> dict[str, np.ndarray]:
     if missing:
         raise InputError(f"{name}: missing {', '.join(missing)}; a {kind} metric expects "
                          f"{_expected_text(kind)}")
+    fields = (*fields, *(f for f in OPTIONAL_FIELDS.get(kind, ()) if f in totals))
     arrays = {f: np.asarray(totals[f], dtype=float) for f in fields}
     size_field = "exposure" if kind == "rate" else "n"
     size = arrays[size_field]
-    bad = ~(size >= 2.0) if kind == "continuous" else ~(size > 0)
+    need = _MIN_UNITS[kind]
+    bad = ~(size >= need) if need >= 2 else ~(size > 0)
     if np.any(bad):
         first = size[bad].flat[0] if size.ndim else size
-        need = "at least 2" if kind == "continuous" else "positive"
-        raise InputError(f"{name}.{size_field}: got {_fmt(float(first))}; allowed is {need}")
+        allowed = f"at least {need}" if need >= 2 else "positive"
+        raise InputError(f"{name}.{size_field}: got {_fmt(float(first))}; allowed is {allowed}")
+    if kind == "ratio":
+        den = arrays["denominator"]
+        bad = ~(den > 0)
+        if np.any(bad):
+            first = den[bad].flat[0] if den.ndim else den
+            raise InputError(f"{name}.denominator: got {_fmt(float(first))}; allowed is a "
+                             "positive total (a ratio needs a denominator)")
     if "mean" in arrays:
         n = arrays["n"]
         total = n * arrays["mean"]
@@ -443,8 +585,55 @@ def _arm_arrays(kind: str, totals: Mapping, name: str) -> dict[str, np.ndarray]:
     return arrays
 
 
-def _arm_mean_and_variance(kind: str, a: Mapping[str, np.ndarray]):
-    """Per-arm mean and the estimated variance of that mean."""
+def _centred(a: Mapping[str, np.ndarray], total: str, square: str) -> np.ndarray:
+    """``square - total^2 / n`` (>= 0: rounding below 0 is clipped)."""
+    return np.maximum(a[square] - a[total] * (a[total] / a["n"]), 0.0)
+
+
+def _means_and_variances(kind: str, c: Mapping[str, np.ndarray], t: Mapping[str, np.ndarray]
+                         ) -> tuple[np.ndarray, ...]:
+    """``(n_c, m_c, w_c, n_t, m_t, w_t)``: per-arm units, the arm's value (mean, ratio,
+    or adjusted mean) and the estimated variance of that value, for the kinds tested
+    by the unpooled statistic of two means (:data:`MEAN_KINDS`; binary and rate only
+    for the first release's Wald statistics).
+
+    - continuous: the mean, ``w = s^2 / n`` with ``s^2`` the sample variance;
+    - count: the same for the per-unit counts (a variance that does not assume
+      Poisson: see :func:`effect`);
+    - ratio: ``R = sum(x) / sum(y)`` with the delta-method variance (Deng, Knoblich and
+      Lu 2018) ``w = (s_xx - 2 R s_xy + R^2 s_yy) / (n mean(y)^2)``, the sample
+      variance of the per-unit residuals ``x - R y`` (which sum to 0) over
+      ``n mean(y)^2``;
+    - adjusted: the regression-adjusted mean ``mean(y) - theta (mean(x) - xbar)`` with
+      ``theta`` the within-arm pooled slope of ``y`` on ``x`` and ``xbar`` the mean of
+      ``x`` over both arms, ``w = s^2(y - theta x) / n`` (Deng, Xu, Kohavi and Walker
+      2013, ``theta`` treated as known).
+    """
+    if kind == "adjusted":
+        cyy = [_centred(a, "sum", "sum_sq") for a in (c, t)]
+        cxx = [_centred(a, "covariate", "covariate_sq") for a in (c, t)]
+        cxy = [a["cross"] - a["sum"] * (a["covariate"] / a["n"]) for a in (c, t)]
+        sxx = cxx[0] + cxx[1]
+        # a covariate without variation carries nothing: no adjustment (a centred sum
+        # below 1e-10 of the raw one is rounding: the sums cancel to that precision)
+        varies = sxx > 1e-10 * (c["covariate_sq"] + t["covariate_sq"])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            theta = np.where(varies, (cxy[0] + cxy[1]) / np.where(varies, sxx, 1.0), 0.0)
+        xbar = (c["covariate"] + t["covariate"]) / (c["n"] + t["n"])
+        out: list[np.ndarray] = []
+        for a, yy, xx, xy in zip((c, t), cyy, cxx, cxy, strict=True):
+            n = a["n"]
+            mean = a["sum"] / n - theta * (a["covariate"] / n - xbar)
+            resid = np.maximum(yy - 2.0 * theta * xy + theta * theta * xx, 0.0)
+            out += [n, mean, resid / (n - 1.0) / n]
+        return tuple(out)
+    return (*_arm_mean_and_variance(kind, c), *_arm_mean_and_variance(kind, t))
+
+
+def _arm_mean_and_variance(kind: str, a: Mapping[str, np.ndarray]
+                           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per-arm value and the estimated variance of that value (all kinds but adjusted,
+    which pools across arms: see :func:`_means_and_variances`)."""
     if kind == "binary":
         n = a["n"]
         mean = a["successes"] / n
@@ -457,6 +646,21 @@ def _arm_mean_and_variance(kind: str, a: Mapping[str, np.ndarray]):
         mean = a["sum"] / n
         centred = np.maximum(a["sum_sq"] - a["sum"] * mean, 0.0)
         return n, mean, centred / (n - 1.0) / n
+    if kind == "count":
+        n = a["n"]
+        return n, a["events"] / n, _centred(a, "events", "events_sq") / (n - 1.0) / n
+    if kind == "ratio":
+        n = a["n"]
+        x, y = a["numerator"], a["denominator"]
+        ratio = x / y
+        # sum of (x_i - R y_i)^2 = Sxx - 2 R Sxy + R^2 Syy (the residuals sum to 0);
+        # written with centred sums, which lose fewer digits
+        cxx = _centred(a, "numerator", "numerator_sq")
+        cyy = _centred(a, "denominator", "denominator_sq")
+        cxy = a["cross"] - x * (y / n)
+        resid = np.maximum(cxx - 2.0 * ratio * cxy + ratio * ratio * cyy, 0.0)
+        mean_y = y / n
+        return n, ratio, resid / (n - 1.0) / n / (mean_y * mean_y)
     exposure = a["exposure"]
     events = a["events"]
     return exposure, events / exposure, np.maximum(events, 0.5) / (exposure * exposure)
@@ -478,17 +682,18 @@ def effect(
 
     Parameters
     ----------
-    kind : {"binary", "continuous", "rate"}
+    kind : {"binary", "continuous", "rate", "ratio", "adjusted", "count"}
         Metric kind.
     control, treatment : mapping
         Field name -> array-like of cumulative totals (see :data:`METRIC_FIELDS`;
         continuous totals may be ``n, mean, sd``). All arrays broadcast together;
         any shape, e.g. ``(replications, looks)``.
     scale : {"difference", "relative"}
-        ``"difference"``: treatment mean minus control mean. ``"relative"``:
-        treatment mean / control mean - 1 (for positive-valued metrics).
+        ``"difference"``: treatment value minus control value. ``"relative"``:
+        treatment / control - 1 (for positive-valued metrics).
     null : float
-        Null value of the effect on the chosen scale, used for `z`.
+        Null value of the effect on the chosen scale, used for `z` (the margin of a
+        non-inferiority or superiority-by-a-margin test; 0 for no effect).
 
     Returns
     -------
@@ -497,23 +702,48 @@ def effect(
 
     Notes
     -----
-    Variance estimator: unpooled, each arm's mean with its own plug-in variance
-    (Wald / Welch), so ``se**2 = w_t + w_c`` on the difference scale with
+    Binary and rate metrics: the score statistic restricted to the null, with the
+    skewness correction (:mod:`seqtest.core.score`).
 
-    - binary: ``w = p (1 - p) / n``, ``p = successes / n``;
+    The other kinds (:data:`MEAN_KINDS`): each arm's value ``m`` with its own
+    estimated variance ``w`` (unpooled, Welch type), ``se**2 = w_t + w_c`` on the
+    difference scale and ``z = (estimate - null) / se``, with
+
     - continuous: ``w = s**2 / n``, ``s**2 = (sum_sq - sum**2 / n) / (n - 1)``;
       ``(mean_t - mean_c) / se`` is exactly Welch's t statistic;
-    - rate: ``w = events / exposure**2`` (Poisson count, variance equal to its mean).
+    - count: the same on the per-unit counts, ``s**2 = (events_sq - events**2 / n) /
+      (n - 1)``: the robust (sandwich) variance of the mean count, which holds
+      whatever the counts' variance (Poisson or over-dispersed: negative binomial,
+      zero-inflated, ...), where the Poisson variance of a rate metric is too small
+      for over-dispersed counts (Huber 1967; White 1980; for counts Cameron and
+      Trivedi 2013, sec. 3.2.3);
+    - ratio: ``m = numerator / denominator`` and the delta-method variance of a ratio
+      of two means over the same units (Deng, Knoblich and Lu 2018, KDD, eq. for
+      ``Var(X_bar / Y_bar)``), ``w = (s_x**2 - 2 R s_xy + R**2 s_y**2) / (n mu_y**2)``
+      with sample (co)variances of the per-unit numerators ``x`` and denominators
+      ``y``; it accounts for units contributing several denominators (sessions of
+      one user are not independent);
+    - adjusted: the regression adjustment with a pre-period covariate ``x`` (Deng, Xu,
+      Kohavi and Walker 2013, WSDM): ``theta`` is the slope of ``y`` on ``x`` pooled
+      within the arms, ``sum_a c_xy,a / sum_a c_xx,a`` (centred sums per arm: the
+      treatment's shift of ``y`` does not enter it), each arm's value is
+      ``mean(y) - theta (mean(x) - xbar)`` (``xbar`` over both arms, so the
+      difference is ``(ybar_t - ybar_c) - theta (xbar_t - xbar_c)``: exactly the
+      treatment coefficient of least squares of ``y`` on a treatment indicator and
+      ``x``), and ``w = s**2(y - theta x) / n`` per arm (``theta`` taken as known,
+      as in the reference; its own uncertainty adds a relative ``O(1/n)``), which is
+      ``(1 - rho**2)`` times the unadjusted variance for a correlation ``rho``.
 
     On the relative scale the standard error comes from the first-order delta
-    method for a ratio of independent means,
-    ``se**2 = w_t / m_c**2 + m_t**2 w_c / m_c**4``.
+    method for a ratio of independent arm values,
+    ``se**2 = w_t / m_c**2 + m_t**2 w_c / m_c**4``, and the test runs on the log ratio
+    (:mod:`seqtest.core.scales`).
 
     Accuracy: these are large-sample approximations with relative error of order
     ``1/n`` in the variance; ``z`` is asymptotically standard normal under the null.
     They are poor when an arm has few successes or events, and the delta method
-    is poor when the control mean is close to zero relative to its standard
-    error (coefficient of variation of the control mean above about 0.1).
+    is poor when the control value is close to zero relative to its standard
+    error (coefficient of variation of the control value above about 0.1).
 
     Degenerate cases (never silent ``nan`` or ``inf`` in `z`):
 
@@ -521,19 +751,26 @@ def effect(
       variance of that arm uses half a success/failure/event instead (zero-count
       floor); the estimate itself is unchanged. Thus ``se > 0`` always for these
       kinds.
-    - A continuous metric with zero sample variance in both arms, or a relative
-      effect with a control mean of 0: the flag ``degenerate`` is True, ``se`` is
-      ``inf``, ``information`` and ``z`` are 0 (no evidence either way), and for a
-      zero control mean on the relative scale the ``estimate`` is ``nan``.
+    - Zero estimated variance in both arms (continuous, count, ratio, adjusted), or a
+      relative effect with a control value of 0: the flag ``degenerate`` is True,
+      ``se`` is ``inf``, ``information`` and ``z`` are 0 (no evidence either way),
+      and for a zero control value on the relative scale the ``estimate`` is ``nan``.
 
     References
     ----------
     .. [1] Welch, B. L. (1947). The generalization of "Student's" problem when
        several different population variances are involved. Biometrika 34, 28-35.
-    .. [2] Agresti, A. (2013). Categorical Data Analysis, 3rd ed., Wiley,
-       Sec. 3.1 (Wald interval for a difference of proportions).
-    .. [3] Casella, G. and Berger, R. L. (2002). Statistical Inference, 2nd ed.,
+    .. [2] Casella, G. and Berger, R. L. (2002). Statistical Inference, 2nd ed.,
        Sec. 5.5.4 (the delta method).
+    .. [3] Deng, A., Knoblich, U. and Lu, J. (2018). Applying the delta method in
+       metric analytics: a practical guide with novel ideas. KDD 2018, 233-242.
+    .. [4] Deng, A., Xu, Y., Kohavi, R. and Walker, T. (2013). Improving the
+       sensitivity of online controlled experiments by utilizing pre-experiment
+       data. WSDM 2013, 123-132.
+    .. [5] White, H. (1980). A heteroskedasticity-consistent covariance matrix
+       estimator and a direct test for heteroskedasticity. Econometrica 48, 817-838.
+    .. [6] Cameron, A. C. and Trivedi, P. K. (2013). Regression Analysis of Count
+       Data, 2nd ed., Cambridge University Press, sec. 3.2.
     """
     kind = _check_kind(kind)
     scale = _check_scale(scale)
@@ -542,9 +779,7 @@ def effect(
     t = _arm_arrays(kind, treatment, "treatment")
     if kind in ("binary", "rate"):
         return _score_effect(kind, scale, null_value, c, t)
-    n_c, m_c, w_c = _arm_mean_and_variance(kind, c)
-    n_t, m_t, w_t = _arm_mean_and_variance(kind, t)
-    n_c, m_c, w_c, n_t, m_t, w_t = np.broadcast_arrays(n_c, m_c, w_c, n_t, m_t, w_t)
+    n_c, m_c, w_c, n_t, m_t, w_t = np.broadcast_arrays(*_means_and_variances(kind, c, t))
     test_scale = test_scale_of(kind, scale)
     with np.errstate(divide="ignore", invalid="ignore"):
         if scale == "difference":
@@ -655,7 +890,7 @@ def unit_variance(kind: str, **params: float) -> np.ndarray | float:
         variance of the difference is ``(v_c + v_t / ratio) / n_c``, so reaching
         information ``I`` needs ``n_c = I * (v_c + v_t / ratio)``.
     """
-    kind = _check_kind(kind)
+    kind = str(checks.choice("kind", kind, tuple(_UNIT_PARAMS)))
     name = _UNIT_PARAMS[kind]
     if set(params) != {name}:
         raise InputError(f"unit_variance: got the parameters "
@@ -708,7 +943,7 @@ def arm_unit_variances(
         ``u_c = m_t**2 v_c / m_c**4``; for a continuous metric on the relative
         scale pass ``(mean, sd)`` pairs as `control` and `treatment`.
     """
-    kind = _check_kind(kind)
+    kind = str(checks.choice("kind", kind, tuple(_UNIT_PARAMS)))
     scale = _check_scale(scale)
     name = _UNIT_PARAMS[kind]
     if kind == "continuous":
@@ -853,10 +1088,11 @@ def srm_check(
 # ---------------------------------------------------------------------------
 
 #: Smallest count of successes and of failures (binary), of events (rate), and of
-#: units (continuous) per arm below which a look is flagged (common practice: the
+#: units (the other kinds) per arm below which a look is flagged (common practice: the
 #: normal approximation of a proportion wants at least about 5 to 10 of each; a mean of
-#: skewed values wants a few dozen units).
-SMALL_COUNTS = {"binary": 5, "rate": 5, "continuous": 30}
+#: skewed values, a ratio or an adjusted mean wants a few dozen units).
+SMALL_COUNTS = {"binary": 5, "rate": 5, "continuous": 30, "ratio": 30, "adjusted": 30,
+                "count": 30}
 
 
 def small_sample(kind: str, arms: Mapping[str, Mapping[str, np.ndarray]]) -> np.ndarray:
@@ -881,9 +1117,10 @@ def small_sample(kind: str, arms: Mapping[str, Mapping[str, np.ndarray]]) -> np.
 
 def small_sample_message(kind: str, looks: Sequence[int]) -> str:
     """The warning for looks flagged by :func:`small_sample` (1-based numbers)."""
+    kind = _check_kind(kind)
     what = {"binary": "fewer than 5 successes or 5 failures in an arm",
-            "rate": "fewer than 5 events in an arm",
-            "continuous": "fewer than 30 units in an arm"}[_check_kind(kind)]
+            "rate": "fewer than 5 events in an arm"}.get(
+                kind, f"fewer than {SMALL_COUNTS[kind]} units in an arm")
     which = ", ".join(str(k) for k in looks)
     return (f"look{'s' if len(looks) > 1 else ''} {which}: {what}, where the normal "
             "approximation behind the z statistic, the boundaries and the intervals is "
@@ -891,3 +1128,91 @@ def small_sample_message(kind: str, looks: Sequence[int]) -> str:
             "or events, per arm, and a few dozen units for skewed values); the error rates "
             "and intervals are approximate there. Check the plan at these sizes with "
             "`seqtest simulate`.")
+
+
+# ---------------------------------------------------------------------------
+# Counts that vary more than Poisson
+# ---------------------------------------------------------------------------
+
+#: A rate metric's look is flagged when an arm's dispersion index (sample variance of
+#: the per-unit counts over their mean) is above this AND the Poisson dispersion test
+#: rejects at :data:`DISPERSION_P`. At an index D the Poisson z is too large by
+#: ``sqrt(D)``: a nominal two-sided 0.05 test rejects ``2 Phi(-1.96 / sqrt(D))``, 0.062
+#: at D = 1.1 (and 0.17 at D = 2), so 1.1 is where the error rate visibly departs.
+DISPERSION_LIMIT = 1.1
+#: The level of the dispersion test (chi-square with n - 1 degrees of freedom of
+#: ``(n - 1) D`` under Poisson counts; Fisher 1950, Cochran 1954); small because the
+#: check is repeated at every look and arm.
+DISPERSION_P = 0.001
+
+
+@dataclass(frozen=True)
+class DispersionCheck:
+    """Result of :func:`dispersion_check` per look (arrays over the looks).
+
+    Attributes
+    ----------
+    index_control, index_treatment : ndarray
+        Dispersion index per arm: sample variance of the per-unit counts over their
+        mean (1 for Poisson counts; ``nan`` with no events).
+    p_control, p_treatment : ndarray
+        Upper-tail p-value of the dispersion test per arm.
+    flagged : ndarray of bool
+        An arm's index is above :data:`DISPERSION_LIMIT` with its p-value below
+        :data:`DISPERSION_P`.
+    """
+
+    index_control: np.ndarray
+    index_treatment: np.ndarray
+    p_control: np.ndarray
+    p_treatment: np.ndarray
+    flagged: np.ndarray
+
+
+def dispersion_check(arms: Mapping[str, Mapping[str, np.ndarray]]) -> DispersionCheck | None:
+    """Do a rate metric's counts vary more than Poisson? (None without ``events_sq``.)
+
+    ``arms`` is what :func:`validate_looks` returns for a rate metric; ``events_sq`` is
+    the sum of the squared per-unit counts, each unit with one unit of exposure, so
+    ``exposure`` is the number of units ``n``. Per arm, the index is
+    ``D = s^2 / mean`` with ``s^2 = (events_sq - events^2 / n) / (n - 1)``, and the
+    Poisson dispersion test refers ``(n - 1) D`` to chi-square with ``n - 1`` degrees
+    of freedom (Fisher's index of dispersion; Cochran 1954, Biometrics 10, 417-451),
+    upper tail by ``scipy.special.chdtrc``. Units with unequal exposure inflate the
+    index even for Poisson counts: use a ratio metric (events over exposure per unit)
+    for them.
+    """
+    if any("events_sq" not in a for a in arms.values()):
+        return None
+    idx, pv = [], []
+    for arm in ARMS:
+        a = arms[arm]
+        n = np.asarray(a["exposure"], float)
+        ev = np.asarray(a["events"], float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            var = np.maximum(a["events_sq"] - ev * ev / n, 0.0) / (n - 1.0)
+            d = np.where((ev > 0) & (n > 1), var / (ev / n), np.nan)
+            df = np.maximum(n - 1.0, 1.0)
+            p = np.where(np.isfinite(d), special.chdtrc(df, df * np.nan_to_num(d)), 1.0)
+        idx.append(d)
+        pv.append(p)
+    flagged = np.zeros(np.shape(idx[0]), bool)
+    for d, p in zip(idx, pv, strict=True):
+        flagged |= (np.nan_to_num(d) > DISPERSION_LIMIT) & (p < DISPERSION_P)
+    return DispersionCheck(idx[0], idx[1], pv[0], pv[1], flagged)
+
+
+def dispersion_message(check: DispersionCheck, looks: Sequence[int]) -> str:
+    """The warning for looks flagged by :func:`dispersion_check` (1-based numbers)."""
+    j = int(looks[-1]) - 1
+    d = max(float(np.nan_to_num(check.index_control[j])),
+            float(np.nan_to_num(check.index_treatment[j])))
+    leak = 2.0 * float(special.ndtr(-1.959963984540054 / math.sqrt(d)))
+    which = ", ".join(str(k) for k in looks)
+    return (f"look{'s' if len(looks) > 1 else ''} {which}: the counts vary more than "
+            f"Poisson (dispersion index {d:.2f} at look {j + 1}, above "
+            f"{DISPERSION_LIMIT:g} with a dispersion test p below {DISPERSION_P:g}); a "
+            "rate metric's Poisson variance is then too small, so z is too large and the "
+            f"error rates do not hold (a nominal two-sided 0.05 test rejects about "
+            f"{leak:.2f} at this index). Post the totals as a count metric (n, events, "
+            "events_sq), whose variance does not assume Poisson.")

@@ -25,6 +25,16 @@ Mixture plans (:class:`MixtureRule`)
     (:mod:`seqtest.core.normal_mixture`); a look stops for efficacy once the p-value
     reaches alpha, and completes at the plan's cap.
 
+Margins and the better direction
+    A plan whose metric has a margin tests the null ``effect = margin`` (the effect's
+    z is computed at it: :func:`seqtest.monitoring.metrics.effect` with
+    ``null=margin``), and a metric where lower is better is decided on ``-z``, so
+    that a one-sided plan rejects for an effect on the better side of the margin and
+    a two-sided plan's upper boundary is the better side (:func:`orientation`).
+    Repeated intervals, the stage-wise p-value (at the margin), the adjusted interval
+    and the median-unbiased estimate follow; intervals are about the effect itself
+    and do not move with the margin.
+
 References
 ----------
 .. [1] Lan, K. K. G. and DeMets, D. L. (1983). Biometrika 70, 659-663.
@@ -35,7 +45,7 @@ References
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -53,11 +63,13 @@ from seqtest.monitoring import inference
 from seqtest.monitoring.metrics import Effect
 from seqtest.planning.design import Plan
 from seqtest.planning.mixture import MixturePlan
+from seqtest.planning.sizing import null_and_sign
 
 __all__ = [
     "FinalInference",
     "always_valid_effect",
     "GroupSequentialRule",
+    "orientation",
     "LookTable",
     "MixtureRule",
     "Projection",
@@ -159,6 +171,9 @@ class LookTable:
         When the rule tests on other statistics than the effect's own (the mixture test
         on the log ratio, without the score's skewness correction): what it used, so
         that a look shows the numbers its decision was made on.
+    sign : float
+        -1 when lower is better (decisions were taken on ``-z`` against the boundaries
+        shown), else 1 (:func:`orientation`).
     """
 
     analysed: int
@@ -179,6 +194,7 @@ class LookTable:
     test_estimate: np.ndarray | None = None
     se: np.ndarray | None = None
     z: np.ndarray | None = None
+    sign: float = 1.0
 
 
 def _arr(x: Any) -> np.ndarray:
@@ -190,13 +206,40 @@ def _unadjusted_p(z: np.ndarray, sides: int) -> np.ndarray:
     return sides * special.ndtr(-np.abs(zz)) if sides == 2 else special.ndtr(-zz)
 
 
-def _naive(eff: Effect, j: int, alpha: float, sides: int) -> dict[str, float]:
+def orientation(plan: Any) -> tuple[float, float]:
+    """``(null, sign)`` of a plan: the null value of the effect (the metric's margin, 0
+    without one) and the sign that makes the better side positive (-1 when lower is
+    better). Decisions are taken on ``sign * z``."""
+    return null_and_sign(getattr(plan, "metric", None))
+
+
+def _check_null(eff: Effect, plan: Any) -> None:
+    """The effect must be computed at the plan's null (its margin)."""
+    null = orientation(plan)[0]
+    if not math.isclose(float(eff.null), null, rel_tol=1e-12, abs_tol=1e-15):
+        raise ValueError(f"eff: computed at the null {eff.null!r} but the plan tests at "
+                         f"its margin {null!r}; compute the effect with null={null!r}")
+
+
+def _interval(eff: Effect, critical: Any, sides: int, sign: float
+              ) -> tuple[np.ndarray, np.ndarray]:
+    """``eff.interval``; a one-sided plan where lower is better bounds the effect from
+    above (its lower limit is the end of the range)."""
+    if sides == 2 or sign > 0:
+        return eff.interval(critical, sides)
+    _, hi = eff.interval(critical, 2)
+    end = -1.0 if (eff.kind == "binary" or eff.scale == "relative") else -np.inf
+    return np.full(np.shape(hi), end), np.asarray(hi, float)
+
+
+def _naive(eff: Effect, j: int, alpha: float, sides: int, sign: float = 1.0
+           ) -> dict[str, float]:
     """The fixed-sample analysis of look ``j`` alone (it ignores the looks)."""
-    lo, hi = eff.interval(float(-special.ndtri(alpha / sides)), sides)
+    lo, hi = _interval(eff, float(-special.ndtri(alpha / sides)), sides, sign)
     return {"naive_estimate": float(_arr(eff.estimate)[j]),
             "naive_ci_lower": float(np.atleast_1d(lo)[j]),
             "naive_ci_upper": float(np.atleast_1d(hi)[j]),
-            "naive_p_value": float(_unadjusted_p(np.array(_arr(eff.z)[j]), sides))}
+            "naive_p_value": float(_unadjusted_p(np.array(sign * _arr(eff.z)[j]), sides))}
 
 
 def _looks_text(looks: list[int]) -> str:
@@ -245,6 +288,7 @@ class GroupSequentialRule:
         self.fraction_basis = fraction_basis
         self.max_information = max_information
         self._spending = self._efficacy_spending()
+        self.null, self.sign = orientation(plan)
 
     # -- boundaries on observed fractions ---------------------------------------------
     def _efficacy_spending(self) -> SpendingFunction:
@@ -371,8 +415,10 @@ class GroupSequentialRule:
         return future
 
     def evaluate(self, eff: Effect, *, final: bool, warnings: list[str]) -> LookTable:
-        """Boundaries, intervals and decisions of the looks."""
+        """Boundaries, intervals and decisions of the looks (``eff`` computed at the
+        plan's null: :func:`orientation`)."""
         plan = self.plan
+        _check_null(eff, plan)
         t_all = self.fractions(eff)
         k = t_all.size
         reached = np.flatnonzero(t_all >= 1.0)
@@ -392,7 +438,7 @@ class GroupSequentialRule:
         a_all, b_all = self.boundaries(t_ext, final=True)
         a, b = a_all[:last], None if b_all is None else b_all[:last]
         a_int = self.interval_boundaries(t_ext, a_all, final=True)[:last]
-        z = _arr(eff.z)[:last]
+        z = self.sign * _arr(eff.z)[:last]
         degenerate = np.atleast_1d(np.asarray(eff.degenerate, bool))[:last]
         codes = self.region(a, b).classify(z, degenerate=degenerate)
         if last_final:
@@ -422,14 +468,14 @@ class GroupSequentialRule:
             a_int = a_int[:last]
         k_all = np.atleast_1d(np.asarray(eff.z)).size
         crit = np.concatenate([a_int, np.full(k_all - last, np.inf)])
-        lo, hi = eff.interval(crit, plan.sides)
+        lo, hi = _interval(eff, crit, plan.sides, self.sign)
         return LookTable(
             analysed=last, fraction=t, efficacy_z=a, futility_z=b,
             p_threshold=plan.sides * special.ndtr(-a),
             interval_lower=np.atleast_1d(lo)[:last], interval_upper=np.atleast_1d(hi)[:last],
             codes=codes, always_valid_p=None, stop=stop, decision=decision,
             last_final=last_final, future_fractions=future,
-            future_efficacy=a_all[last:])
+            future_efficacy=a_all[last:], sign=self.sign)
 
     # -- at the stop ------------------------------------------------------------------
     def final_inference(self, eff: Effect, table: LookTable, warnings: list[str]
@@ -438,7 +484,8 @@ class GroupSequentialRule:
         if table.stop is None:
             return None
         j = table.stop
-        z = _arr(eff.z)[: j + 1]
+        sign = self.sign
+        z = sign * _arr(eff.z)[: j + 1]
         if np.atleast_1d(np.asarray(eff.degenerate, bool))[j]:
             warnings.append(f"look {j + 1}: no variation in either arm, so no adjusted "
                             "p-value or interval can be computed")
@@ -463,18 +510,23 @@ class GroupSequentialRule:
         region = self.region(table.efficacy_z[: j + 1], b, binding_only=True)
         sw = inference.stagewise(z, info, region, alpha=plan.alpha, sides=plan.sides,
                                  r=plan.r)
-        # theta is on the test scale, in the units of test_estimate; its information at
+        # theta is the distance from the null on the test scale towards the better side,
+        # in the units of test_estimate (z is centred at the null); its information at
         # the stop is 1 / test_se^2 (for a score statistic that is the restricted one)
         th_scale = 1.0 / float(_arr(eff.test_se)[j]) ** 2 / info[-1]
         ts = eff.test_scale
+        t_null = null_on_test_scale(eff.null, ts)
 
         def back(theta: float) -> float:
-            return float(from_test_scale(theta / math.sqrt(th_scale), ts))
+            return float(from_test_scale(t_null + sign * theta / math.sqrt(th_scale), ts))
 
+        lo, hi = back(sw.ci_lower), back(sw.ci_upper)
+        if sign < 0:
+            lo, hi = hi, lo
         return FinalInference(
-            p_value=sw.p_value, ci_lower=back(sw.ci_lower), ci_upper=back(sw.ci_upper),
+            p_value=sw.p_value, ci_lower=lo, ci_upper=hi,
             median_unbiased=back(sw.median_unbiased),
-            **_naive(eff, j, plan.alpha, plan.sides))
+            **_naive(eff, j, plan.alpha, plan.sides, sign))
 
     def projection(self, eff: Effect, table: LookTable, daily_traffic: float | None
                    ) -> Projection | None:
@@ -483,7 +535,7 @@ class GroupSequentialRule:
             return None
         plan = self.plan
         j = table.analysed - 1
-        z_now, t_now = float(_arr(eff.z)[j]), float(table.fraction[j])
+        z_now, t_now = self.sign * float(_arr(eff.z)[j]), float(table.fraction[j])
         future, fa = table.future_fractions, table.future_efficacy
         # the planned effect in the direction the data point to (two-sided plans);
         # one-sided plans test the positive direction only
@@ -516,6 +568,7 @@ class MixtureRule:
 
     def evaluate(self, eff: Effect, *, final: bool, warnings: list[str]) -> LookTable:
         plan = self.plan
+        _check_null(eff, plan)
         size = np.maximum(_arr(eff.n_control), _arr(eff.n_treatment))
         res = always_valid_effect(eff, plan)
         self._result = res
@@ -531,6 +584,7 @@ class MixtureRule:
                            / t_se, 0.0)
         codes = np.atleast_1d(res.decision_code).astype(np.int8).copy()
         k = codes.size
+        sign = orientation(plan)[1]
         if final and codes[-1] == _CONTINUE:
             codes[-1] = _COMPLETE
         stop_at = np.flatnonzero(codes != _CONTINUE)
@@ -553,7 +607,7 @@ class MixtureRule:
             last_final=decision != Decision.CONTINUE, future_fractions=np.empty(0),
             future_efficacy=np.empty(0), test_scale=test_scale,
             test_estimate=np.atleast_1d(t_est)[:last], se=np.atleast_1d(t_se)[:last],
-            z=np.atleast_1d(t_z)[:last])
+            z=np.atleast_1d(t_z)[:last], sign=sign)
 
     def final_inference(self, eff: Effect, table: LookTable, warnings: list[str]
                         ) -> FinalInference | None:
@@ -564,7 +618,7 @@ class MixtureRule:
         return FinalInference(
             p_value=float(table.always_valid_p[j]), ci_lower=float(table.interval_lower[j]),
             ci_upper=float(table.interval_upper[j]), median_unbiased=None,
-            **_naive(eff, j, self.plan.alpha, self.plan.sides))
+            **_naive(eff, j, self.plan.alpha, self.plan.sides, orientation(self.plan)[1]))
 
     def projection(self, eff: Effect, table: LookTable, daily_traffic: float | None
                    ) -> Projection | None:
@@ -581,20 +635,46 @@ def rule_for(plan: Any, **options: Any) -> GroupSequentialRule | MixtureRule:
                      "a plan document")
 
 
+def flip(value: Any, scale: str) -> Any:
+    """An effect seen from the other arm's side: ``-d`` on the difference scale,
+    ``1 / (1 + r) - 1`` on the relative one (both decreasing involutions, so interval
+    ends swap)."""
+    v = np.asarray(value, float)
+    if scale == "relative":
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out = np.expm1(-np.log1p(v))
+    else:
+        out = -v
+    return float(out) if out.ndim == 0 else out
+
+
 def always_valid_effect(eff: Effect, plan: MixturePlan, *, null: float | None = None) -> Any:
     """:func:`~seqtest.core.normal_mixture.always_valid` on an
     :class:`~seqtest.monitoring.metrics.Effect` (looks on the last axis): the effect's
     scale must be the plan's; the null defaults to the one the effect was computed with;
-    the size of the larger arm is passed as ``n`` for the plan's cap."""
+    the size of the larger arm is passed as ``n`` for the plan's cap. A plan where lower
+    is better is tested on the effect seen from the control's side (:func:`flip`), so
+    that a one-sided plan rejects for a lower treatment value; the interval and the
+    direction are mapped back."""
     if not isinstance(plan, MixturePlan):
         raise ValueError(f"plan: got {type(plan).__name__}; allowed is a MixturePlan")
     if eff.scale != plan.scale:
         raise ValueError(f"eff: the effect is on the {eff.scale} scale but the plan on the "
                          f"{plan.scale} scale; compute the effect with scale={plan.scale!r}")
     n = np.maximum(np.asarray(eff.n_control, float), np.asarray(eff.n_treatment, float))
+    theta0 = eff.null if null is None else null
+    sign = orientation(plan)[1]
+    if sign < 0:
+        theta0 = flip(theta0, eff.scale)
     if eff.scale == "relative":
-        return always_valid(eff.log_ratio_estimate, eff.log_ratio_se, plan,
-                            null=eff.null if null is None else null, n=n, scale=eff.scale,
-                            on_log_ratio=True)
-    return always_valid(eff.estimate, eff.se, plan, null=eff.null if null is None else null,
-                        n=n, scale=eff.scale)
+        log_est = np.asarray(eff.log_ratio_estimate, float)
+        res = always_valid(sign * log_est, eff.log_ratio_se, plan, null=theta0, n=n,
+                           scale=eff.scale, on_log_ratio=True)
+    else:
+        res = always_valid(sign * np.asarray(eff.estimate, float), eff.se, plan,
+                           null=theta0, n=n, scale=eff.scale)
+    if sign > 0:
+        return res
+    return replace(res, ci_lower=flip(res.ci_upper, eff.scale),
+                   ci_upper=flip(res.ci_lower, eff.scale),
+                   direction_sign=-np.asarray(res.direction_sign))

@@ -12,7 +12,20 @@ information ``1 / se^2`` that monitoring uses):
 
 - binary: ``p (1 - p)`` per user;
 - continuous: ``sd^2`` per user (``sd_treatment`` may differ from ``sd``);
-- rate: ``lambda`` per unit of exposure (Poisson counts), so sizes are exposures.
+- rate: ``lambda`` per unit of exposure (Poisson counts), so sizes are exposures;
+- ratio: the delta-method variance of the ratio from a pilot's per-unit moments,
+  ``(s_x^2 - 2 R s_xy + R^2 s_y^2) / mu_y^2`` (Deng, Knoblich and Lu 2018), the
+  treatment's scaled by ``(R_t / R_c)^2`` (it multiplies the numerators);
+- adjusted: ``sd^2 (1 - rho^2)`` with ``rho`` the expected correlation of the metric
+  with its pre-period covariate (Deng, Xu, Kohavi and Walker 2013);
+- count: ``sd^2`` of the per-unit counts, or ``m + m^2 / k`` for a negative
+  binomial shape ``k`` at each arm's mean.
+
+A margin (a null value ``d0`` other than 0) measures the design effect from it:
+``delta = (m_t - m_c) - d0`` (or ``log(m_t / m_c) - log(1 + d0)``), and binary and rate
+metrics take the score test's variances restricted to the margin
+(:func:`seqtest.core.score.design_variances` with ``null=d0``; Farrington and Manning
+1990).
 
 The result is exact for the normal approximation the plans rest on; the
 fixed-sample formula ``2 (z_{1-a/2} + z_{1-b})^2 sigma^2 / delta^2`` is the
@@ -22,6 +35,11 @@ References
 ----------
 .. [1] Jennison, C. and Turnbull, B. W. (2000). Group Sequential Methods with
        Applications to Clinical Trials, chapter 3.
+.. [2] Farrington, C. P. and Manning, G. (1990). Test statistics and sample size
+       formulae for comparative binomial trials with null hypothesis of non-zero risk
+       difference or non-unity relative risk. Statistics in Medicine 9, 1447-1454.
+.. [3] Chow, S.-C., Shao, J. and Wang, H. (2008). Sample Size Calculations in
+       Clinical Research, 2nd ed., sections 3.2 and 4.2 (non-inferiority).
 """
 
 from __future__ import annotations
@@ -34,20 +52,26 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from seqtest.core import checks, score
+from seqtest.core.vocabulary import BETTER, HYPOTHESES, METRIC_KINDS
 
 if TYPE_CHECKING:
     from seqtest.planning.design import Plan
 
 __all__ = ["SampleSize", "sample_size", "max_sizes", "check_metric", "delta_and_unit",
-           "METRIC_KINDS"]
+           "METRIC_KINDS", "null_and_sign"]
 
-METRIC_KINDS = ("binary", "continuous", "rate")
+_COMMON = {"kind", "mde", "relative", "allocation", "scale", "margin", "better",
+           "hypothesis"}
 _ALLOWED = {
-    "binary": {"kind", "baseline", "mde", "relative", "allocation", "scale"},
-    "continuous": {"kind", "baseline", "sd", "sd_treatment", "mde", "relative",
-                   "allocation", "scale"},
-    "rate": {"kind", "baseline", "mde", "relative", "allocation", "scale"},
+    "binary": _COMMON | {"baseline"},
+    "continuous": _COMMON | {"baseline", "sd", "sd_treatment"},
+    "rate": _COMMON | {"baseline"},
+    "ratio": _COMMON | {"numerator_mean", "denominator_mean", "numerator_sd",
+                        "denominator_sd", "covariance"},
+    "adjusted": _COMMON | {"baseline", "sd", "sd_treatment", "correlation"},
+    "count": _COMMON | {"baseline", "sd", "sd_treatment", "dispersion"},
 }
+assert tuple(_ALLOWED) == METRIC_KINDS
 
 
 def _num(name: str, v: Any, lo: float = -math.inf, hi: float = math.inf,
@@ -59,12 +83,32 @@ def _num(name: str, v: Any, lo: float = -math.inf, hi: float = math.inf,
 def check_metric(metric: dict) -> dict:
     """Validate a metric description and return it normalised (plain JSON types).
 
-    Fields: ``kind`` (binary, continuous, rate); ``mde`` the minimum detectable
-    effect (absolute, or relative to the baseline when ``relative`` is true);
-    ``baseline`` (control rate or mean; required for binary, rate and relative
-    effects); ``sd`` (continuous); ``sd_treatment`` (optional); ``allocation``
-    (treatment users per control user, default 1); ``scale`` of the analysis:
-    ``difference`` (default) or ``relative``.
+    Fields of every kind: ``kind`` (see :data:`METRIC_KINDS`); ``mde`` the effect
+    the plan is powered for (absolute, or relative to the baseline when ``relative``
+    is true); ``allocation`` (treatment users per control user, default 1); ``scale``
+    of the analysis: ``difference`` (default) or ``relative``.
+
+    Per kind: ``baseline`` (control rate or mean; required for binary, rate, count and
+    relative effects); ``sd`` (continuous, adjusted; count: the sd of the per-unit
+    counts) and ``sd_treatment`` (optional); ``correlation`` (adjusted: the expected
+    correlation of the metric with its pre-period covariate, in (-1, 1));
+    ``dispersion`` (count, instead of ``sd``: the negative binomial shape ``k`` of
+    the per-unit counts, variance ``m + m^2 / k``); ``numerator_mean``,
+    ``denominator_mean``, ``numerator_sd``, ``denominator_sd``, ``covariance``
+    (ratio: a pilot's per-unit moments of the numerator and the denominator; the
+    baseline is ``numerator_mean / denominator_mean``).
+
+    A test against a margin (a null value other than zero): ``margin`` is the null
+    value of the effect on the plan's scale (difference, or relative lift), ``better``
+    says which way of the metric is good (``higher``, the default, or ``lower``), and
+    ``hypothesis`` what the test is to show: ``non_inferiority`` (the treatment is not
+    worse than the control by more than the margin, so the margin lies on the worse
+    side: negative when higher is better) or ``superiority`` (better by more than the
+    margin: the margin lies on the better side, or is 0). A non-zero margin needs the
+    hypothesis stated, so that a margin on the wrong side is caught; with any of the
+    three fields the ``mde`` must lie on the better side of the margin. They are kept
+    in the normalised description only when given (plans without them read as
+    before).
     """
     if not isinstance(metric, dict):
         raise ValueError(f"metric: got {metric!r}; allowed is a mapping with a 'kind'")
@@ -88,10 +132,8 @@ def check_metric(metric: dict) -> dict:
                              what="a ratio in (0, 100]")
     if "mde" not in metric:
         raise ValueError("metric.mde: missing; give the minimum detectable effect")
-    out["mde"] = _num("mde", metric["mde"], what="a non-zero finite number")
-    if out["mde"] == 0:
-        raise ValueError("metric.mde: got 0; allowed is a non-zero effect")
-    need_base = kind in ("binary", "rate") or rel or scale == "relative"
+    out["mde"] = _num("mde", metric["mde"], what="a finite number")
+    need_base = kind in ("binary", "rate", "count") or rel or scale == "relative"
     if kind == "binary":
         out["baseline"] = _num("baseline", metric.get("baseline"), 0.0, 1.0,
                                what="a rate in (0, 1)")
@@ -101,11 +143,28 @@ def check_metric(metric: dict) -> dict:
     elif kind == "rate":
         out["baseline"] = _num("baseline", metric.get("baseline"), 0.0,
                                what="a positive rate per unit of exposure")
+    elif kind == "ratio":
+        _ratio_moments(metric, out)
+    elif kind == "count":
+        out["baseline"] = _num("baseline", metric.get("baseline"), 0.0,
+                               what="a positive mean count per unit")
+        _count_spread(metric, out)
     else:
         out["sd"] = _num("sd", metric.get("sd"), 0.0, what="a positive standard deviation")
         if "sd_treatment" in metric and metric["sd_treatment"] is not None:
             out["sd_treatment"] = _num("sd_treatment", metric["sd_treatment"], 0.0,
                                        what="a positive standard deviation")
+        if kind == "adjusted":
+            if "correlation" not in metric:
+                raise ValueError("metric.correlation: missing; give the expected correlation "
+                                 "of the metric with its pre-period covariate (e.g. from the "
+                                 "weeks before the experiment)")
+            out["correlation"] = _num("correlation", metric["correlation"], -1.0, 1.0,
+                                      what="a correlation in (-1, 1)")
+            if abs(out["correlation"]) >= 1:
+                raise ValueError(f"metric.correlation: got {metric['correlation']!r}; "
+                                 "allowed is a correlation in (-1, 1) (at 1 the covariate "
+                                 "would explain the metric entirely)")
         if need_base:
             out["baseline"] = _num("baseline", metric.get("baseline"),
                                    what="the control mean (non-zero)")
@@ -114,48 +173,205 @@ def check_metric(metric: dict) -> dict:
                                  "non-zero control mean")
         elif "baseline" in metric and metric["baseline"] is not None:
             out["baseline"] = _num("baseline", metric["baseline"])
+    _margin(metric, out)
     m_c, m_t = _means(out)
     if kind == "binary" and not 0 < m_t < 1:
         raise ValueError(f"metric.mde: the treatment rate would be {m_t:g}; allowed effects "
                          "keep it inside (0, 1)")
-    if kind == "rate" and m_t <= 0:
-        raise ValueError(f"metric.mde: the treatment rate would be {m_t:g}; it must stay "
-                         "positive")
+    if kind in ("rate", "count", "ratio") and m_t <= 0:
+        raise ValueError(f"metric.mde: the treatment {'rate' if kind == 'rate' else 'mean'} "
+                         f"would be {m_t:g}; it must stay positive")
+    if out["scale"] == "relative" and (m_c <= 0 or m_t <= 0):
+        raise ValueError(f"metric.mde: the control and treatment means would be {m_c:g} and "
+                         f"{m_t:g}; a relative effect needs both positive")
+    if kind == "count" and "dispersion" in out and _variances(out)[1] <= 0:
+        raise ValueError("metric.mde: the treatment mean gives no variance")
     return out
 
 
+def _ratio_moments(metric: dict, out: dict) -> None:
+    """A pilot's per-unit moments of a ratio metric's numerator and denominator."""
+    for name in ("numerator_mean", "denominator_mean", "numerator_sd", "denominator_sd",
+                 "covariance"):
+        if name not in metric:
+            raise ValueError(f"metric.{name}: missing; a ratio metric is sized from a "
+                             "pilot's per-unit numerator_mean, denominator_mean, "
+                             "numerator_sd, denominator_sd and covariance")
+    out["numerator_mean"] = _num("numerator_mean", metric["numerator_mean"], 0.0,
+                                 what="a positive mean numerator per unit")
+    out["denominator_mean"] = _num("denominator_mean", metric["denominator_mean"], 0.0,
+                                   what="a positive mean denominator per unit")
+    out["numerator_sd"] = _num("numerator_sd", metric["numerator_sd"], 0.0, open_lo=False,
+                               what="a standard deviation >= 0")
+    out["denominator_sd"] = _num("denominator_sd", metric["denominator_sd"], 0.0,
+                                 open_lo=False, what="a standard deviation >= 0")
+    cov = _num("covariance", metric["covariance"], what="a finite covariance")
+    bound = out["numerator_sd"] * out["denominator_sd"]
+    if abs(cov) > bound * (1 + 1e-12):
+        raise ValueError(f"metric.covariance: got {cov!r}; allowed is at most numerator_sd x "
+                         f"denominator_sd = {bound:g} in absolute value (a correlation "
+                         "within [-1, 1])")
+    out["covariance"] = cov
+    if _ratio_unit_variance(out, out["numerator_mean"] / out["denominator_mean"]) <= 0:
+        raise ValueError("metric.numerator_sd: the moments give the ratio no variance "
+                         "(numerator exactly proportional to the denominator); check them")
+
+
+def _count_spread(metric: dict, out: dict) -> None:
+    """A count metric's per-unit spread: sd (and sd_treatment) or a dispersion."""
+    has_sd = metric.get("sd") is not None
+    has_k = metric.get("dispersion") is not None
+    if has_sd == has_k:
+        raise ValueError("metric.sd, metric.dispersion: give one of them: the sd of the "
+                         "per-unit counts (e.g. from a pilot), or the negative binomial "
+                         "shape k (variance mean + mean^2 / k)")
+    if has_sd:
+        out["sd"] = _num("sd", metric["sd"], 0.0, what="a positive standard deviation")
+        if metric.get("sd_treatment") is not None:
+            out["sd_treatment"] = _num("sd_treatment", metric["sd_treatment"], 0.0,
+                                       what="a positive standard deviation")
+    else:
+        if metric.get("sd_treatment") is not None:
+            raise ValueError("metric.sd_treatment: goes with sd, not with dispersion")
+        out["dispersion"] = _num("dispersion", metric["dispersion"], 0.0,
+                                 what="a positive negative binomial shape")
+
+
+def _margin(metric: dict, out: dict) -> None:
+    """The margin, the better direction and the hypothesis (see :func:`check_metric`)."""
+    given = [f for f in ("margin", "better", "hypothesis") if f in metric]
+    if not given:
+        if out["mde"] == 0:
+            raise ValueError("metric.mde: got 0; allowed is a non-zero effect")
+        return
+    better = metric.get("better", "higher")
+    if better not in BETTER:
+        raise ValueError(f"metric.better: got {better!r}; allowed are "
+                         f"{', '.join(BETTER)} (which way of the metric is good)")
+    margin = _num("margin", metric.get("margin", 0.0), what="a finite number")
+    if out["scale"] == "relative" and not margin > -1:
+        raise ValueError(f"metric.margin: got {margin!r}; a relative margin must be above -1")
+    hyp = metric.get("hypothesis")
+    if hyp is None:
+        if margin != 0:
+            raise ValueError(f"metric.hypothesis: missing; a margin ({margin:g}) needs the "
+                             "hypothesis: non_inferiority (not worse by more than the "
+                             "margin) or superiority (better by more than the margin)")
+        hyp = "superiority"
+    if hyp not in HYPOTHESES:
+        raise ValueError(f"metric.hypothesis: got {hyp!r}; allowed are "
+                         f"{', '.join(HYPOTHESES)}")
+    sign = 1.0 if better == "higher" else -1.0
+    worse = "negative" if sign > 0 else "positive"
+    if hyp == "non_inferiority" and not sign * margin < 0:
+        raise ValueError(
+            f"metric.margin: got {margin!r} for a non_inferiority test where {better} is "
+            f"better; allowed is a {worse} margin (how much worse than the control the "
+            "treatment may be), e.g. " + ("-0.01" if sign > 0 else "0.01"))
+    if hyp == "superiority" and sign * margin < 0:
+        better_side = "positive" if sign > 0 else "negative"
+        raise ValueError(
+            f"metric.margin: got {margin!r} for a superiority test where {better} is "
+            f"better; allowed is 0 or a {better_side} margin (how much better the "
+            "treatment must be); a margin on the worse side is a non_inferiority test")
+    out["margin"] = margin
+    out["better"] = better
+    out["hypothesis"] = hyp
+    m_c, m_t = _means(out)
+    if out["scale"] == "relative":
+        away = sign * ((m_t / m_c - 1.0) - margin) if m_c != 0 else math.nan
+    else:
+        away = sign * ((m_t - m_c) - margin)
+    if not away > 0:
+        side = "above" if sign > 0 else "below"
+        raise ValueError(
+            f"metric.mde: got {out['mde']!r}, which is not {side} the margin {margin:g} "
+            f"({better} is better); the plan is powered for an effect the test can accept, "
+            f"so give the effect expected under the alternative, {side} the margin (e.g. 0 "
+            "for a non-inferiority test: no true difference)")
+
+
+def null_and_sign(metric: dict | None) -> tuple[float, float]:
+    """``(null, sign)`` of a checked metric description (or None): the null value of the
+    effect (the margin, 0 without one) and +1 when higher is better, -1 when lower is.
+
+    Decisions are taken on ``sign * z``: a one-sided plan rejects for an effect on the
+    better side of the null, and a two-sided plan's upper tail is the better side."""
+    if not metric:
+        return 0.0, 1.0
+    return float(metric.get("margin", 0.0)), (-1.0 if metric.get("better") == "lower"
+                                              else 1.0)
+
+
 def _means(m: dict) -> tuple[float, float]:
-    base = m.get("baseline", 0.0)
+    if m["kind"] == "ratio":
+        base = m["numerator_mean"] / m["denominator_mean"]
+    else:
+        base = m.get("baseline", 0.0)
     m_c = base
     m_t = base * (1.0 + m["mde"]) if m["relative"] else base + m["mde"]
     return m_c, m_t
 
 
+def _ratio_unit_variance(m: dict, ratio: float) -> float:
+    """Per-unit variance of a ratio estimate (times n) at the ratio ``ratio``, by the
+    delta method: ``(s_x^2 - 2 R s_xy + R^2 s_y^2) / mu_y^2`` (Deng, Knoblich and Lu
+    2018)."""
+    sx, sy, cov = m["numerator_sd"], m["denominator_sd"], m["covariance"]
+    mu_y = m["denominator_mean"]
+    return (sx * sx - 2.0 * ratio * cov + ratio * ratio * sy * sy) / (mu_y * mu_y)
+
+
 def _variances(m: dict) -> tuple[float, float]:
+    """Per-unit variances of each arm's value (its variance times the arm's units) at
+    the design means."""
     m_c, m_t = _means(m)
-    if m["kind"] == "binary":
+    kind = m["kind"]
+    if kind == "binary":
         return m_c * (1 - m_c), m_t * (1 - m_t)
-    if m["kind"] == "rate":
+    if kind == "rate":
         return m_c, m_t
+    if kind == "ratio":
+        # the treatment multiplies each unit's numerator by m_t / m_c: the per-unit
+        # coefficient of variation of the residual x - R y is unchanged
+        v_c = _ratio_unit_variance(m, m_c)
+        return v_c, v_c * (m_t / m_c) ** 2
+    if kind == "count" and "dispersion" in m:
+        k = m["dispersion"]
+        return m_c + m_c * m_c / k, m_t + m_t * m_t / k
     sd = m["sd"]
-    return sd * sd, m.get("sd_treatment", sd) ** 2
+    v_c, v_t = sd * sd, m.get("sd_treatment", sd) ** 2
+    if kind == "adjusted":
+        # regression adjustment removes the share rho^2 of the variance (Deng, Xu,
+        # Kohavi and Walker 2013)
+        keep = 1.0 - m["correlation"] ** 2
+        return v_c * keep, v_t * keep
+    return v_c, v_t
 
 
 def delta_and_unit(m: dict) -> tuple[float, float]:
-    """Design effect on the analysis scale and control users per unit of information,
-    for a metric already checked by :func:`check_metric`."""
+    """Design effect on the analysis scale, measured from the null and towards the
+    better side, and control users per unit of information, for a metric already
+    checked by :func:`check_metric`.
+
+    ``delta = sign (effect - null)`` on the test scale: ``(m_t - m_c) - margin`` on the
+    difference scale, ``log(m_t / m_c) - log(1 + margin)`` on the relative one (``sign``
+    -1 when lower is better, so a plan powered in the better direction has ``delta >
+    0``; without a margin and a stated direction the sign is the mde's, as before)."""
     m_c, m_t = _means(m)
     v_c, v_t = _variances(m)
     q = m["allocation"]
+    null, sign = null_and_sign(m)
     if m["scale"] == "relative":
         # relative effects are tested on the log ratio (see seqtest.core.scales), whose
         # delta-method variance is v_c / (n_c m_c^2) + v_t / (n_t m_t^2)
-        delta = math.log(m_t / m_c)
+        delta = math.log(m_t / m_c) - math.log1p(null)
         unit = v_c / (m_c * m_c) + v_t / (q * m_t * m_t)
     else:
-        delta = m_t - m_c if m["kind"] != "continuous" or m["relative"] else m["mde"]
+        plain = m["kind"] == "continuous" and not m["relative"]
+        delta = (m["mde"] if plain else m_t - m_c) - null
         unit = v_c + v_t / q
-    return delta, unit
+    return sign * delta, unit
 
 
 @dataclass(frozen=True)
@@ -212,9 +428,10 @@ def max_control(plan: Plan, m: dict) -> tuple[float, float, float, float]:
     design effect (``v1``) differ, so the maximum is ``n_c = v1 (D1 / delta)^2`` with
     the drift ``D1`` at which the plan's boundaries, seen on the alternative's scale
     (``sqrt(v0 / v1)`` times the boundary, with the skewness term), give the planned
-    power (Farrington and Manning 1990 for one look); ``I_max = n_c / v0``. Continuous
-    metrics: ``n_c = (drift / delta)^2 (v_c + v_t / q)`` and ``I_max = (drift /
-    delta)^2``.
+    power (Farrington and Manning 1990 for one look); ``I_max = n_c / v0``; with a
+    margin the variances are restricted to it. The other kinds: ``n_c = (drift /
+    delta)^2 (v_c + v_t / q)`` and ``I_max = (drift / delta)^2``, ``delta`` measured
+    from the margin (:func:`delta_and_unit`).
     """
     q = m["allocation"]
     if m["kind"] in ("binary", "rate"):
@@ -222,7 +439,7 @@ def max_control(plan: Plan, m: dict) -> tuple[float, float, float, float]:
         return _score_sizes(m["kind"], m["scale"], *_means(m), q,
                             tuple(plan.info_fractions.tolist()),
                             tuple(plan.efficacy_z.tolist()), fut, plan.sides, plan.alpha,
-                            plan.power, plan.r)
+                            plan.power, plan.r, null_and_sign(m)[0])
     delta, unit = delta_and_unit(m)
     i_max = plan.max_information(delta)
     return i_max * unit, (plan.fixed_drift / delta) ** 2 * unit, delta, i_max
@@ -231,11 +448,13 @@ def max_control(plan: Plan, m: dict) -> tuple[float, float, float, float]:
 @functools.lru_cache(maxsize=256)
 def _score_sizes(kind: str, scale: str, m_c: float, m_t: float, q: float,
                  t: tuple[float, ...], a: tuple[float, ...], b: tuple[float, ...] | None,
-                 sides: int, alpha: float, power: float, r: int
+                 sides: int, alpha: float, power: float, r: int, null: float = 0.0
                  ) -> tuple[float, float, float, float]:
     """:func:`max_control` for binary and rate metrics (cached: a plan is sized once
-    per process, however often its sample size is asked for)."""
-    dv = score.design_variances(kind, m_c, m_t, allocation=q, scale=scale)
+    per process, however often its sample size is asked for). A negative design
+    effect (a plan where lower is better) is sized as the mirror image
+    (:func:`seqtest.core.score.group_sequential_size`)."""
+    dv = score.design_variances(kind, m_c, m_t, allocation=q, scale=scale, null=null)
     n_c, _ = score.group_sequential_size(dv, t, a, sides=sides, power=power, allocation=q,
                                          r=r, futility_z=b)
     n_fixed, _ = score.fixed_sample_size(dv, alpha=alpha, power=power, sides=sides,

@@ -99,6 +99,6 @@ DECISION_WORDS: dict[str, str] = {
 def decision_words(decision: object, direction: object = None) -> str:
     """A decision in a few words, with the direction of an efficacy stop."""
     text = DECISION_WORDS.get(str(decision), str(decision))
-    if direction in ("treatment_better", "control_better"):
+    if direction in ("treatment_better", "control_better", "treatment_non_inferior"):
         text += f" ({str(direction).replace('_', ' ')})"
     return text

@@ -313,19 +313,27 @@ def summarize(analysis: Any, *, noun: str | None = None) -> Summary:
         interval_kind = "confidence_sequence" if mixture else "repeated"
         p_kind = "always_valid" if mixture else None
         p = _f(at.get("always_valid_p")) if mixture else None
-    # one-sided intervals have no upper end (inf, written as None in JSON)
-    if sides == 1 or (sides is None and hi is None):
+    # one-sided intervals have no upper end (inf, written as None in JSON); where lower
+    # is better, no lower end
+    upper_only = sides == 1 and r.get("better") == "lower"
+    if upper_only:
+        lo = None
+    elif sides == 1 or (sides is None and hi is None):
         hi = None
+    margin = _f(r.get("margin")) or 0.0
     c_val, t_val = _f(at.get("control_value")), _f(at.get("treatment_value"))
     relative = None
     if units.scale == "difference" and est is not None and c_val:
         relative = est / c_val
 
     headline = _headline(decision, r, k, mixture, alpha, p)
+    if decision == "stop_efficacy" and margin:
+        headline = _margin_headline(r, k, units, margin)
     # a continuing mixture plan gives its p-value in the headline already
     shown_p = None if (mixture and decision == "continue") else p
     effect = _effect_sentence(decision, units, est, relative, c_val, t_val, stop_look, lo,
-                              hi, interval_kind, num.level_text(alpha), shown_p, p_kind)
+                              hi, interval_kind, num.level_text(alpha), shown_p, p_kind,
+                              upper_only=upper_only, margin=margin)
     outlook = _outlook(decision, units, proj, mixture, last)
     small = [int(x["look"]) for x in looks if x.get("small_sample")]
     caveat = None
@@ -388,6 +396,22 @@ def _headline(decision: str, r: Mapping, k: int, mixture: bool, alpha: float | N
     return f"Decision at look {k}: {decision}."
 
 
+def _margin_headline(r: Mapping, k: int, units: EffectUnits, margin: float) -> str:
+    """An efficacy stop of a test against a margin: non-inferior, or better by more
+    than the margin (or, two-sided, worse by more than it)."""
+    d = num.decimals_for([units.factor * margin], 2)
+    size = units.effect(abs(margin), d, sign=False)
+    direction = r.get("direction")
+    if direction == "treatment_non_inferior":
+        return (f"Stop at look {k}: the treatment is non-inferior, not worse than the "
+                f"control by more than the margin of {size}.")
+    if direction == "control_better":
+        return (f"Stop at look {k}: the treatment is worse than the control by more than "
+                f"the margin of {size}.")
+    return (f"Stop at look {k}: the treatment is better than the control by more than "
+            f"the margin of {size}.")
+
+
 def _interval_name(kind: str, level: str | None, one_sided: bool) -> str:
     lv = ("one-sided " if one_sided else "") + (f"{level} " if level else "")
     if kind == "adjusted":
@@ -400,7 +424,8 @@ def _interval_name(kind: str, level: str | None, one_sided: bool) -> str:
 def _effect_sentence(decision: str, units: EffectUnits, est: float | None,
                      relative: float | None, c_val: float | None, t_val: float | None,
                      look: int, lo: float | None, hi: float | None, interval_kind: str,
-                     level: str | None, p: float | None, p_kind: str | None) -> str:
+                     level: str | None, p: float | None, p_kind: str | None, *,
+                     upper_only: bool = False, margin: float = 0.0) -> str:
     noun = units.noun
     if est is None:
         return (f"The effect cannot be estimated at look {look} (no variation in the "
@@ -435,20 +460,28 @@ def _effect_sentence(decision: str, units: EffectUnits, est: float | None,
     else:
         way = "rose" if est > 0 else "fell"
         first = f"{noun[0].upper()}{noun[1:]} {way} by about {mag}{paren}"
-    name = _interval_name(interval_kind, level, lo is not None and hi is None)
-    if lo is None:
+    name = _interval_name(interval_kind, level,
+                          (lo is not None and hi is None) or upper_only)
+    # what the interval is compared with: no difference, or the margin
+    null_text = "no difference" if not margin else \
+        f"the margin {units.effect(margin, num.decimals_for([units.factor * margin], 2))}"
+    if upper_only and hi is not None:
+        second = f"{name} ends at {units.effect(hi, d)}"
+        if hi >= margin:
+            second += f"; it includes {null_text}"
+    elif lo is None:
         second = f"{name} cannot be computed"
     elif hi is None:
         second = f"{name} starts at {units.effect(lo, d)}"
-        if lo <= 0:
-            second += "; it includes no difference"
+        if lo <= margin:
+            second += f"; it includes {null_text}"
     elif lo > hi:
         second = (f"{name} is empty ({units.effect(lo, d)} above {units.effect(hi, d)}): the "
                   "looks do not agree with one constant effect")
     else:
         second = f"{name} runs {units.span(lo, hi, d)}"
-        if lo <= 0 <= hi:
-            second += "; it includes no difference"
+        if lo <= margin <= hi:
+            second += f"; it includes {null_text}"
     if p is not None and p_kind:
         second += f" ({_p_equals(p, 'adjusted' if p_kind == 'adjusted' else 'always-valid')})"
     return f"{first}; {second}."
@@ -496,21 +529,44 @@ def _outlook(decision: str, units: EffectUnits, proj: Mapping | None, mixture: b
 
 # -- plans --------------------------------------------------------------------------
 
+def _hypothesis_line(metric: Mapping | None) -> str | None:
+    """The test against a margin, in one line (None without margin or direction)."""
+    if not metric or not any(k in metric for k in ("margin", "better", "hypothesis")):
+        return None
+    margin = float(metric.get("margin", 0.0))
+    better = metric.get("better", "higher")
+    scale = metric.get("scale", "difference")
+    size = f"{margin:+.4g}" + (" (relative)" if scale == "relative" else "")
+    if metric.get("hypothesis") == "non_inferiority":
+        what = f"non-inferiority: the treatment is not worse by more than the margin {size}"
+    elif margin:
+        what = f"superiority by a margin: the treatment is better by more than {size}"
+    else:
+        what = "superiority"
+    return f"  test: {what}; {better} is better"
+
+
 def plan_summary(plan: Any) -> str:
     """A plan in a few plain lines: kind, sides, alpha, power, boundaries, sizes.
 
     Reads a :class:`~seqtest.planning.design.Plan` or a
     :class:`~seqtest.planning.mixture.MixturePlan` by its attributes."""
     side = "two-sided" if plan.sides == 2 else "one-sided"
+    hyp = _hypothesis_line(getattr(plan, "metric", None))
     if hasattr(plan, "tau2"):
         lines = [f"Plan: mixture SPRT (look at any time), {side} alpha {plan.alpha:g}",
                  f"  mixing variance tau^2 = {plan.tau2:.6g} (chosen by rule: "
                  f"{plan.tau2_rule})"]
-        if plan.mde is not None:
+        if plan.mde is not None and hyp:
+            lines.append(f"  tuned to the effect powered for, {plan.mde:g} from the null "
+                         f"towards the better side ({plan.scale} scale)")
+        elif plan.mde is not None:
             lines.append(f"  tuned to the minimum detectable effect {plan.mde:g} "
                          f"({plan.scale} scale)")
         if plan.max_n_per_arm:
             lines.append(f"  complete at {plan.max_n_per_arm:,} per arm without a rejection")
+        if hyp:
+            lines.append(hyp)
         return "\n".join(lines)
     lines = [f"Plan: {plan.looks} look(s), {side} alpha {plan.alpha:g}, power {plan.power:g}",
              f"  efficacy: {plan.efficacy.label}",
@@ -518,6 +574,8 @@ def plan_summary(plan: Any) -> str:
               f"({'binding' if plan.binding else 'non-binding'})")
              if plan.futility is not None else "  futility: none",
              f"  inflation over the fixed design: {plan.inflation:.4f}"]
+    if hyp:
+        lines.append(hyp)
     if plan.metric:
         ss = plan.sample_size()
         e0 = ss.expected_null / ss.total

@@ -37,7 +37,18 @@ Data are drawn as per-arm totals at each look, increment by increment:
   heavy tails), in blocks of at most 4 million values so memory stays bounded;
 - counts: events ``Poisson(lambda m)``, or, with a dispersion ``k``, the sum of
   ``m`` negative binomial counts, which is negative binomial with shape ``m k``
-  (exact).
+  (exact); analysed as a count metric, which needs the sum of the squared counts,
+  every user's count is drawn (Poisson, or Poisson with a gamma-distributed mean),
+  in blocks of at most 1 million users;
+- ratio: every user's denominator ``1 + Poisson(denominator_mean - 1)``, gamma
+  multiplier ``G`` (shape ``dispersion``, mean 1) and numerator ``Poisson(D rate G)``,
+  summed with their squares and products, in blocks of at most 1 million users;
+- pre_period: the exact joint law of the bivariate normal sufficient statistics of
+  the new users: their two means ``N(mu, Sigma / m)`` and, independent of them, their
+  centred scatter matrix ``Wishart(m - 1, Sigma)``, drawn by Bartlett's decomposition
+  (``L A A' L'`` with ``L`` the Cholesky factor of ``Sigma`` and ``A`` lower
+  triangular, ``A_11^2 ~ chi2(m - 1)``, ``A_22^2 ~ chi2(m - 2)``, ``A_21 ~ N(0, 1)``;
+  Bartlett 1933, Anderson 2003 sec. 7.2).
 
 Traffic: ``fixed`` and ``uneven`` give every replicate the same per-arm counts
 ``ceil(n_arm_max * tau)`` at look time ``tau``; ``random`` draws the users arriving
@@ -71,6 +82,8 @@ References
        Applications to Clinical Trials, chapters 1, 7 and 19.
 .. [3] Cochran, W. G. (1934). The distribution of quadratic forms in a normal
        system. Proc. Cambridge Philos. Soc. 30, 178-191.
+.. [4] Anderson, T. W. (2003). An Introduction to Multivariate Statistical Analysis,
+       3rd ed., Wiley, sec. 7.2 (Bartlett's decomposition of the Wishart law).
 """
 
 from __future__ import annotations
@@ -89,7 +102,7 @@ from seqtest.core.normal_mixture import always_valid
 from seqtest.core.region import Region, first_stop
 from seqtest.core.vocabulary import Decision
 from seqtest.monitoring import metrics
-from seqtest.monitoring.rules import GroupSequentialRule
+from seqtest.monitoring.rules import GroupSequentialRule, flip, orientation
 from seqtest.planning.design import Plan
 from seqtest.planning.documents import plan_from_dict
 from seqtest.simulation import DEFAULT_CHUNK
@@ -114,7 +127,8 @@ OUTCOMES: tuple[str, ...] = ("stop_efficacy_upper", "stop_efficacy_lower",
 
 _MAX_CELLS = 1_000_000          # replicates x looks per chunk (memory bound)
 _LOGNORMAL_BLOCK = 4_000_000    # log-normal values drawn at once
-_MIN_UNITS = {"binary": 1, "continuous": 2, "rate": 1}
+_UNIT_BLOCK = 1_000_000         # users drawn one by one at once (ratio, counts)
+_MIN_UNITS = {"binary": 1, "continuous": 2, "rate": 1, "ratio": 2, "adjusted": 2, "count": 2}
 
 
 # ---------------------------------------------------------------------------
@@ -464,23 +478,35 @@ class _Job:
     chunk: int
     keep_paths: bool
     screen: bool = False  # settle replicates by the exact screen (random traffic)
+    null: float = 0.0     # the plan's margin: the null value of the effect
+    sign: float = 1.0     # -1 where lower is better: decisions on -z
 
 
 def _plan_metric(plan: Any) -> dict | None:
     return getattr(plan, "metric", None) or None
 
 
-def _design_means(plan: Any) -> tuple[float, float, bool]:
-    """(control mean, treatment mean, relative?) the plan is powered for."""
-    m = _plan_metric(plan)
+def _plan_scale(plan: Any) -> str:
     if isinstance(plan, Plan):
-        if m is None:
-            raise ValueError("effect.mde_multiple: the plan has no metric, so it has no "
-                             "design effect; give effect.difference or effect.relative")
-        base = m.get("baseline", 0.0) or 0.0
+        return str((_plan_metric(plan) or {}).get("scale", "difference"))
+    return str(plan.scale)
+
+
+def _design_means(plan: Any) -> tuple[float, float, bool]:
+    """(control mean, treatment mean, relative?) the plan is powered for (a mixture
+    plan's from its metric when it tests against a margin, else from its mde)."""
+    m = _plan_metric(plan)
+    if m is not None and (isinstance(plan, Plan) or m.get("margin")):
+        if m.get("kind") == "ratio":
+            base = m["numerator_mean"] / m["denominator_mean"]
+        else:
+            base = m.get("baseline", 0.0) or 0.0
         rel = bool(m.get("relative")) or m.get("scale") == "relative"
         m_t = base * (1.0 + m["mde"]) if m.get("relative") else base + m["mde"]
         return base, m_t, rel
+    if isinstance(plan, Plan):
+        raise ValueError("effect.mde_multiple: the plan has no metric, so it has no "
+                         "design effect; give effect.difference or effect.relative")
     if getattr(plan, "mde", None) is None:
         raise ValueError("effect.mde_multiple: the mixture plan has no mde; give "
                          "effect.difference or effect.relative")
@@ -488,13 +514,28 @@ def _design_means(plan: Any) -> tuple[float, float, bool]:
     return (1.0, 1.0 + plan.mde, True) if rel else (0.0, plan.mde, False)
 
 
+def _margin(plan: Any) -> tuple[float, float]:
+    """The plan's ``(null, sign)`` (:func:`seqtest.monitoring.rules.orientation`)."""
+    return orientation(plan)
+
+
 def _arms(plan: Any, sc: Scenario) -> tuple[dict, dict, float, float]:
-    """Per-arm data parameters, the true effect on the analysis scale, and m_c."""
+    """Per-arm data parameters, the true effect on the analysis scale, and m_c.
+
+    With a margin, ``mde_multiple`` is measured from it: 0 is the margin (the null),
+    1 the effect the plan is powered for."""
     m_c = sc.control_mean()
+    null = _margin(plan)[0]
     if sc.effect_type == "difference":
         m_t = m_c + sc.effect
     elif sc.effect_type == "relative":
         m_t = m_c * (1.0 + sc.effect)
+    elif null != 0:
+        b_c, b_t, _ = _design_means(plan)
+        if _plan_scale(plan) == "relative":
+            m_t = m_c * (1.0 + null + sc.effect * ((b_t / b_c - 1.0) - null))
+        else:
+            m_t = m_c + null + sc.effect * ((b_t - b_c) - null)
     else:
         b_c, b_t, rel = _design_means(plan)
         if rel:
@@ -516,6 +557,16 @@ def _arms(plan: Any, sc: Scenario) -> tuple[dict, dict, float, float]:
     elif k == "normal":
         ctrl = {"mean": d["mean"], "sd": d["sd"]}
         trt = {"mean": m_t, "sd": d.get("sd_treatment", d["sd"])}
+    elif k == "ratio":
+        if not m_t > 0:
+            raise ValueError(f"effect: gives a treatment rate of {m_t:g}; allowed effects "
+                             "keep it > 0")
+        base = {"denominator_mean": d["denominator_mean"],
+                "dispersion": d.get("dispersion")}
+        ctrl, trt = {**base, "rate": d["rate"]}, {**base, "rate": m_t}
+    elif k == "pre_period":
+        base = {"sd": d["sd"], "correlation": d["correlation"], "pre_mean": d["mean"]}
+        ctrl, trt = {**base, "mean": d["mean"]}, {**base, "mean": m_t}
     elif k == "lognormal":
         if not m_t > 0:
             raise ValueError(f"effect: gives a treatment mean of {m_t:g}; allowed effects "
@@ -537,7 +588,7 @@ def _arms(plan: Any, sc: Scenario) -> tuple[dict, dict, float, float]:
 def _check_kind(plan: Any, sc: Scenario) -> tuple[str, str]:
     """(analysis kind, scale) after checking the plan's metric against the data."""
     m = _plan_metric(plan)
-    kind = sc.analysis_kind
+    kind = sc.analysis_kind_for(None if m is None else m.get("kind"))
     if m is not None and m.get("kind") != kind:
         raise ValueError(f"data.kind: the scenario's {sc.data_kind} data are analysed as "
                          f"a {kind} metric but the plan is for a {m.get('kind')} metric")
@@ -545,7 +596,8 @@ def _check_kind(plan: Any, sc: Scenario) -> tuple[str, str]:
         scale = (m or {}).get("scale", "difference")
     else:
         scale = plan.scale
-    if scale == "relative" and sc.data_kind == "normal" and sc.data["mean"] == 0:
+    if scale == "relative" and sc.data_kind in ("normal", "pre_period") and \
+            sc.data["mean"] == 0:
         raise ValueError("data.mean: got 0; a plan on the relative scale needs a non-zero "
                          "control mean")
     return kind, scale
@@ -650,7 +702,8 @@ def _job(plan: Any, sc: Scenario, seed: int, chunk: int, keep_paths: bool,
         mode=sc.traffic.mode, fixed_counts=fixed, days=sc.traffic.days, cv=sc.traffic.cv,
         cap=sc.traffic.cap, at_max=sc.traffic.final == "at_max", obey=fut_obey,
         naive_z=float(-special.ndtri(plan.alpha / sides)), seed=int(seed), chunk=chunk,
-        keep_paths=keep_paths, screen=use_screen)
+        keep_paths=keep_paths, screen=use_screen, null=_margin(plan)[0],
+        sign=_margin(plan)[1])
 
 
 # ---------------------------------------------------------------------------
@@ -749,12 +802,119 @@ def _lognormal_sums(rng: np.random.Generator, m: np.ndarray, p: dict,
     return s1.reshape(m.shape), s2.reshape(m.shape)
 
 
+def _unit_sums(rng: np.random.Generator, m: np.ndarray,
+               draw: Callable[[np.random.Generator, int], tuple[np.ndarray, ...]],
+               tick: Callable[[float], None] | None = None) -> list[np.ndarray]:
+    """Per cell of ``m`` (new users per replicate and look), the sums of the per-user
+    values ``draw(rng, size)`` returns (drawn user by user in blocks of at most
+    :data:`_UNIT_BLOCK` users; ``tick(share)`` after each block)."""
+    b = np.ascontiguousarray(m, dtype=np.int64).ravel()
+    out: list[np.ndarray] | None = None
+    ends = np.cumsum(b)
+    i = 0
+    while i < b.size:
+        base = ends[i - 1] if i else 0
+        stop = max(i + 1, int(np.searchsorted(ends, base + _UNIT_BLOCK, side="right")))
+        seg = b[i:stop]
+        total = int(ends[stop - 1] - base)
+        values = draw(rng, total)
+        if out is None:
+            out = [np.zeros(b.size) for _ in values]
+        if total:
+            nz = seg > 0
+            offs = (np.cumsum(seg) - seg)[nz]
+            for acc, v in zip(out, values, strict=True):
+                acc[i:stop][nz] = np.add.reduceat(v, offs)
+        i = stop
+        if tick is not None:
+            tick(i / b.size)
+    assert out is not None
+    return [a.reshape(m.shape) for a in out]
+
+
+def _count_draw(p: dict) -> Callable[[np.random.Generator, int], tuple[np.ndarray, ...]]:
+    """Per-user counts (Poisson, or gamma-mixed Poisson with shape ``dispersion``) and
+    their squares."""
+    def draw(rng: np.random.Generator, size: int) -> tuple[np.ndarray, ...]:
+        if p["dispersion"] is None:
+            y = rng.poisson(p["rate"], size)
+        else:
+            k = p["dispersion"]
+            y = rng.poisson(rng.gamma(k, p["rate"] / k, size))
+        y = y.astype(float)
+        return y, y * y
+    return draw
+
+
+def _ratio_draw(p: dict) -> Callable[[np.random.Generator, int], tuple[np.ndarray, ...]]:
+    """Per-user denominators and numerators of the ratio data model, with the squares
+    and the product."""
+    def draw(rng: np.random.Generator, size: int) -> tuple[np.ndarray, ...]:
+        d = 1.0 + rng.poisson(p["denominator_mean"] - 1.0, size)
+        lam = d * p["rate"]
+        if p["dispersion"] is not None:
+            k = p["dispersion"]
+            lam = lam * rng.gamma(k, 1.0 / k, size)
+        x = rng.poisson(lam).astype(float)
+        return x, d, x * x, d * d, x * d
+    return draw
+
+
+def _pre_period_sums(rng: np.random.Generator, m: np.ndarray, p: dict
+                     ) -> tuple[np.ndarray, ...]:
+    """Sums of y, y^2, x, x^2, x y over ``m`` new users with ``(y, x)`` bivariate normal
+    (means ``mean`` and ``pre_mean``, common sd, correlation): the two means and,
+    independent of them, the centred scatter matrix by Bartlett's decomposition
+    (exact for every ``m``; ``m = 1`` has no scatter, ``m = 0`` no sums)."""
+    sd, rho = p["sd"], p["correlation"]
+    rest = math.sqrt(1.0 - rho * rho)
+    mm = np.maximum(m, 1).astype(float)
+    z1 = rng.standard_normal(m.shape)
+    z2 = rng.standard_normal(m.shape)
+    y_bar = p["mean"] + sd * z1 / np.sqrt(mm)
+    x_bar = p["pre_mean"] + sd * (rho * z1 + rest * z2) / np.sqrt(mm)
+    a11 = np.sqrt(2.0 * rng.standard_gamma(0.5 * np.maximum(m - 1, 0)))
+    a22 = np.sqrt(2.0 * rng.standard_gamma(0.5 * np.maximum(m - 2, 0)))
+    a21 = np.where(m >= 2, rng.standard_normal(m.shape), 0.0)
+    # W = L A A' L' with L = sd [[1, 0], [rho, rest]] (rows y, x)
+    s2 = sd * sd
+    w_yy = s2 * a11 * a11
+    w_xy = s2 * (rho * a11 * a11 + rest * a11 * a21)
+    w_xx = s2 * (rho * rho * a11 * a11 + 2.0 * rho * rest * a11 * a21
+                 + (1.0 - rho * rho) * (a21 * a21 + a22 * a22))
+    used = m > 0
+    mf = m.astype(float)
+    sy = np.where(used, mf * y_bar, 0.0)
+    sx = np.where(used, mf * x_bar, 0.0)
+    syy = np.where(used, w_yy + mf * y_bar * y_bar, 0.0)
+    sxx = np.where(used, w_xx + mf * x_bar * x_bar, 0.0)
+    sxy = np.where(used, w_xy + mf * x_bar * y_bar, 0.0)
+    return sy, syy, sx, sxx, sxy
+
+
 def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict,
                 tick: Callable[[float], None] | None = None) -> dict:
     m = np.ascontiguousarray(np.broadcast_to(_increments(cum), cum.shape))
     kind = job.data_kind
     if kind == "binary":
         return {"n": cum, "successes": np.cumsum(rng.binomial(m, p["p"]), axis=1)}
+    if kind == "counts" and job.kind == "count":
+        ev, ev2 = _unit_sums(rng, m, _count_draw(p), tick)
+        return {"n": cum, "events": np.cumsum(ev, axis=1),
+                "events_sq": np.cumsum(ev2, axis=1)}
+    if kind == "ratio":
+        sums = _unit_sums(rng, m, _ratio_draw(p), tick)
+        names = ("numerator", "denominator", "numerator_sq", "denominator_sq", "cross")
+        return {"n": cum, **{f: np.cumsum(v, axis=1) for f, v in zip(names, sums,
+                                                                     strict=True)}}
+    if kind == "pre_period":
+        pre = _pre_period_sums(rng, m, p)
+        fields = ("sum", "sum_sq", "covariate", "covariate_sq", "cross")
+        out = {"n": cum, **{f: np.cumsum(v, axis=1) for f, v in zip(fields, pre,
+                                                                    strict=True)}}
+        if job.kind == "continuous":
+            return {f: out[f] for f in ("n", "sum", "sum_sq")}
+        return out
     if kind == "counts":
         lam = p["rate"] * m
         if p["dispersion"] is None:
@@ -845,6 +1005,14 @@ def _safe_totals(job: _Job, totals: dict, valid: np.ndarray) -> dict:
         dummy = {"n": 1.0, "successes": 0.0}
     elif job.kind == "continuous":
         dummy = {"n": 2.0, "sum": 0.0, "sum_sq": 1.0}
+    elif job.kind == "count":
+        dummy = {"n": 2.0, "events": 1.0, "events_sq": 1.0}
+    elif job.kind == "ratio":
+        dummy = {"n": 2.0, "numerator": 1.0, "denominator": 2.0, "numerator_sq": 1.0,
+                 "denominator_sq": 2.0, "cross": 1.0}
+    elif job.kind == "adjusted":
+        dummy = {"n": 2.0, "sum": 0.0, "sum_sq": 1.0, "covariate": 0.0, "covariate_sq": 1.0,
+                 "cross": 0.0}
     else:
         dummy = {"exposure": 1.0, "events": 0.0}
     return {f: np.where(valid, v, dummy[f]) for f, v in totals.items()}
@@ -981,8 +1149,9 @@ def _run_chunk(job: _Job, index: int, n: int,
     k = job.times.size
     valid, frac, end = _valid_looks(job, n_c, n_t, end)
     eff = metrics.effect(job.kind, _safe_totals(job, ctrl, valid),
-                         _safe_totals(job, trt, valid), scale=job.scale)
-    z = np.where(valid, eff.z, 0.0)
+                         _safe_totals(job, trt, valid), scale=job.scale, null=job.null)
+    # decisions on sign * z: the better side is the upper one (rules.orientation)
+    z = np.where(valid, job.sign * eff.z, 0.0)
     rows = np.arange(n)
     last = end - 1
     calls = computed = 0
@@ -990,7 +1159,15 @@ def _run_chunk(job: _Job, index: int, n: int,
         se = np.where(valid, eff.se, np.inf)
         est = np.where(valid & np.isfinite(se), eff.estimate, 0.0)
         size = np.maximum(n_c, n_t)
-        res = always_valid(est, se, job.plan, n=size)
+        null = job.null
+        if job.sign < 0:
+            # the effect seen from the control's side (rules.always_valid_effect)
+            if job.scale == "relative":
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    se = np.where(np.isfinite(se), se / np.square(1.0 + est), np.inf)
+            est = flip(est, job.scale)
+            null = flip(null, job.scale)
+        res = always_valid(est, se, job.plan, n=size, null=null)
         first = np.asarray(res.first_rejection)
         sidx = np.asarray(res.stop_index)
         stop = np.where((sidx >= 0) & (sidx < end), sidx, last)
@@ -1047,8 +1224,19 @@ def _label(plan: Any) -> str:
     return text
 
 
+def _at_null(plan: Any, sc: Scenario, job: _Job) -> bool:
+    """The true effect is the null the plan tests (0, or the plan's margin)."""
+    if job.null == 0:
+        return sc.is_null
+    if sc.effect_type == "mde_multiple":
+        return sc.effect == 0.0
+    _, _, m_t, m_c = _arms(plan, sc)
+    true = (m_t / m_c - 1.0) if job.scale == "relative" else (m_t - m_c)
+    return math.isclose(true, job.null, rel_tol=1e-9, abs_tol=1e-12)
+
+
 def _design_rate(plan: Any, sc: Scenario, job: _Job) -> float | None:
-    if sc.is_null:
+    if _at_null(plan, sc, job):
         return float(plan.alpha)
     if sc.effect_type != "mde_multiple" or job.mixture:
         return None
@@ -1242,6 +1430,7 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
     tails = _tails(rej_up, rej_down, reps, job.alpha, job.sides, confidence)
     mean_total = total / reps
     var = max(0.0, (total_sq - total * total / reps) / max(reps - 1, 1))
+    at_null = _at_null(plan, sc, job)
     design = _design_rate(plan, sc, job)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_frac = np.where(frac_count > 0, frac_sum / np.maximum(frac_count, 1), np.nan)
@@ -1261,11 +1450,11 @@ def _combine(plan: Any, sc: Scenario, job: _Job, reps: int, confidence: float,
         plan_kind="mixture" if job.mixture else "group_sequential", plan_label=_label(plan),
         alpha=job.alpha, sides=job.sides, data_kind=sc.data_kind, analysis_kind=job.kind,
         scale=job.scale, traffic=sc.traffic.mode, futility="obey" if job.obey else "ignore",
-        reps=reps, seed=job.seed, chunk_size=job.chunk, null=sc.is_null,
+        reps=reps, seed=job.seed, chunk_size=job.chunk, null=at_null,
         true_effect=float(true), confidence=confidence, rejections=rej,
         rejections_upper=rej_up, rejections_lower=rej_down, rate=rej / reps, ci_lower=lo,
         ci_upper=hi, tails=tails, design_rate=design,
-        verdict=_verdict(sc.is_null, lo, hi, job.alpha, design, tails),
+        verdict=_verdict(at_null, lo, hi, job.alpha, design, tails),
         look_times=job.times.copy(),
         mean_fraction=mean_frac, stops=stops, expected_total=mean_total,
         expected_total_se=math.sqrt(var / reps), max_total=float(job.n_max), naive=nv,

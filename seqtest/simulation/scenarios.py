@@ -23,7 +23,20 @@ Data models (``[data] kind``) and the analysis metric they are read with:
 ``"counts"``
     Events per unit of exposure (one unit per user), Poisson with mean ``rate``;
     with ``dispersion = k`` the count is gamma-mixed Poisson (negative binomial,
-    variance ``m + m**2 / k``). Analysed as ``rate``.
+    variance ``m + m**2 / k``). Analysed as ``rate`` (Poisson variance), or as
+    ``count`` (the per-unit counts' own variance) when the plan's metric or
+    ``[analysis] kind`` says so.
+``"ratio"``
+    A ratio metric per user (e.g. clicks per session): each user has ``1 +
+    Poisson(denominator_mean - 1)`` sessions and a clicks rate ``rate`` times a gamma
+    multiplier of mean 1 and shape ``dispersion`` (users differ; none without it), and
+    Poisson clicks given both. The metric is clicks over sessions, ``rate`` in the
+    control arm. Analysed as ``ratio``.
+``"pre_period"``
+    Normal values ``N(mean, sd**2)`` with a pre-period value per user from the same
+    distribution, correlated ``correlation`` with it (the treatment moves the value, not
+    the pre-period one). Analysed as ``adjusted`` (or ``continuous``, to see the
+    variance the covariate removes).
 
 The true effect moves the treatment arm's mean: ``difference`` (treatment mean
 minus control mean), ``relative`` (treatment mean / control mean - 1) or
@@ -44,6 +57,7 @@ from typing import Any
 
 __all__ = [
     "ANALYSIS_KIND",
+    "ANALYSIS_KINDS",
     "DATA_KINDS",
     "TRAFFIC_MODES",
     "Scenario",
@@ -57,6 +71,17 @@ ANALYSIS_KIND: dict[str, str] = {
     "normal": "continuous",
     "lognormal": "continuous",
     "counts": "rate",
+    "ratio": "ratio",
+    "pre_period": "adjusted",
+}
+#: Every metric kind a data model may be analysed with (the first is the default).
+ANALYSIS_KINDS: dict[str, tuple[str, ...]] = {
+    "binary": ("binary",),
+    "normal": ("continuous",),
+    "lognormal": ("continuous",),
+    "counts": ("rate", "count"),
+    "ratio": ("ratio",),
+    "pre_period": ("adjusted", "continuous"),
 }
 DATA_KINDS: tuple[str, ...] = tuple(ANALYSIS_KIND)
 TRAFFIC_MODES: tuple[str, ...] = ("fixed", "uneven", "random")
@@ -68,6 +93,8 @@ _DATA_FIELDS: dict[str, dict[str, bool]] = {
     "normal": {"mean": True, "sd": True, "sd_treatment": False},
     "lognormal": {"mean": True, "sd": True, "zero_share": False},
     "counts": {"rate": True, "dispersion": False},
+    "ratio": {"rate": True, "denominator_mean": True, "dispersion": False},
+    "pre_period": {"mean": True, "sd": True, "correlation": True},
 }
 _TOP_FIELDS = {"name", "description", "data", "effect", "allocation", "traffic", "analysis"}
 _TRAFFIC_FIELDS = {
@@ -75,7 +102,7 @@ _TRAFFIC_FIELDS = {
     "uneven": {"mode", "fractions", "extra_looks", "max_total"},
     "random": {"mode", "extra_looks", "looks", "max_total", "days", "cv", "cap", "final"},
 }
-_ANALYSIS_FIELDS = {"futility", "naive"}
+_ANALYSIS_FIELDS = {"futility", "naive", "kind"}
 FINAL_RULES: tuple[str, ...] = ("at_max", "scheduled")
 
 
@@ -198,6 +225,10 @@ class Scenario:
         error of a non-binding plan whose futility stops are not followed.
     naive : bool
         Also report the naive baseline (nominal alpha at every look).
+    kind : str or None
+        The metric kind the data are analysed with (one of
+        :data:`ANALYSIS_KINDS` for the data model); None: the plan's metric kind when
+        the data allow it, else :data:`ANALYSIS_KIND`'s.
     """
 
     name: str
@@ -210,10 +241,22 @@ class Scenario:
     futility: str = "obey"
     naive: bool = True
     description: str = ""
+    kind: str | None = None
 
     @property
     def analysis_kind(self) -> str:
-        """The :mod:`seqtest.monitoring.metrics` kind the data are analysed with."""
+        """The :mod:`seqtest.monitoring.metrics` kind the data are analysed with when no
+        plan says otherwise (see :meth:`analysis_kind_for`)."""
+        return self.kind or ANALYSIS_KIND[self.data_kind]
+
+    def analysis_kind_for(self, plan_kind: str | None) -> str:
+        """The kind the data are analysed with under a plan whose metric is of kind
+        ``plan_kind`` (None: no metric): the scenario's own, else the plan's when the
+        data allow it, else the default."""
+        if self.kind is not None:
+            return self.kind
+        if plan_kind in ANALYSIS_KINDS[self.data_kind]:
+            return str(plan_kind)
         return ANALYSIS_KIND[self.data_kind]
 
     @property
@@ -226,7 +269,7 @@ class Scenario:
         d = self.data
         if self.data_kind == "lognormal":
             return (1.0 - d.get("zero_share", 0.0)) * d["mean"]
-        return d["rate"] if self.data_kind in ("binary", "counts") else d["mean"]
+        return d["rate"] if self.data_kind in ("binary", "counts", "ratio") else d["mean"]
 
     def to_dict(self) -> dict:
         """The scenario as a plain document (what :func:`scenario_from_dict` reads)."""
@@ -250,6 +293,8 @@ class Scenario:
             "traffic": traffic,
             "analysis": {"futility": self.futility, "naive": self.naive},
         }
+        if self.kind is not None:
+            out["analysis"]["kind"] = self.kind
         if self.allocation is not None:
             out["allocation"] = self.allocation
         return out
@@ -289,6 +334,21 @@ def _data(d: Any) -> tuple[str, dict]:
         if "dispersion" in out and not out["dispersion"] > 0:
             raise ValueError(f"data.dispersion: got {out['dispersion']!r}; allowed is a "
                              "gamma shape > 0 (leave it out for Poisson counts)")
+    if kind == "ratio":
+        if not out["rate"] > 0:
+            raise ValueError(f"data.rate: got {out['rate']!r}; allowed is a rate > 0")
+        if not out["denominator_mean"] >= 1:
+            raise ValueError(f"data.denominator_mean: got {out['denominator_mean']!r}; "
+                             "allowed is a mean >= 1 (every user has at least one)")
+        if "dispersion" in out and not out["dispersion"] > 0:
+            raise ValueError(f"data.dispersion: got {out['dispersion']!r}; allowed is a "
+                             "gamma shape > 0 (leave it out for users alike)")
+    if kind == "pre_period":
+        if not out["sd"] > 0:
+            raise ValueError(f"data.sd: got {out['sd']!r}; allowed is a number > 0")
+        if not -1 < out["correlation"] < 1:
+            raise ValueError(f"data.correlation: got {out['correlation']!r}; allowed is a "
+                             "correlation in (-1, 1)")
     return kind, out
 
 
@@ -400,9 +460,13 @@ def scenario_from_dict(d: Mapping) -> Scenario:
     naive = an.get("naive", True)
     if not isinstance(naive, bool):
         raise ValueError(f"analysis.naive: got {naive!r}; allowed are true and false")
+    akind = an.get("kind")
+    if akind is not None and akind not in ANALYSIS_KINDS[kind]:
+        raise ValueError(f"analysis.kind: got {akind!r}; {kind} data are analysed as "
+                         f"{' or '.join(ANALYSIS_KINDS[kind])}")
     sc = Scenario(name=name.strip(), description=desc, data_kind=kind, data=data,
                   effect_type=etype, effect=evalue, allocation=alloc, traffic=traffic,
-                  futility=fut, naive=naive)
+                  futility=fut, naive=naive, kind=akind)
     if etype != "mde_multiple":
         _check_treatment_mean(sc)
     return sc
@@ -414,7 +478,7 @@ def _check_treatment_mean(sc: Scenario) -> None:
     if sc.data_kind == "binary" and not 0 < m_t < 1:
         raise ValueError(f"effect.{sc.effect_type}: gives a treatment rate of {m_t:g}; "
                          "allowed effects keep it inside (0, 1)")
-    if sc.data_kind in ("counts", "lognormal") and not m_t > 0:
+    if sc.data_kind in ("counts", "lognormal", "ratio") and not m_t > 0:
         raise ValueError(f"effect.{sc.effect_type}: gives a treatment mean of {m_t:g}; "
                          "allowed effects keep it > 0")
 
