@@ -99,13 +99,13 @@ import math
 import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import special
 
-from seqtest.core import checks, multiarm, score
+from seqtest.core import checks, score
 from seqtest.core.boundaries import futility_bounds
 from seqtest.core.errors import InputError
 from seqtest.core.jsonable import floats_or_none
@@ -125,6 +125,9 @@ from seqtest.planning.design import (
     parse_boundary,
 )
 from seqtest.planning.sizing import check_metric, delta_and_unit, max_control, per_look
+
+if TYPE_CHECKING:
+    from seqtest.core.multiarm import DunnettBounds
 
 __all__ = [
     "DIRECTIONS",
@@ -148,7 +151,9 @@ ROLES: tuple[str, ...] = ("primary", "guardrail")
 DIRECTIONS: tuple[str, ...] = ("increase", "decrease")
 METHODS: tuple[str, ...] = ("graphical", "dunnett")
 POWER_FOR: tuple[str, ...] = ("each", "any")
-MAX_TREATMENTS = multiarm.MAX_ARMS
+#: At most this many treatments (``seqtest.core.multiarm.MAX_ARMS``; that module, and
+#: scipy.stats with it, is imported only when Dunnett-type boundaries are computed).
+MAX_TREATMENTS = 8
 #: Default alpha and spending of a guardrail's one-sided harm test. Pocock-type
 #: spending stops early for harm more readily than O'Brien-Fleming-type (common
 #: practice for safety monitoring: harm should not wait for the end).
@@ -577,7 +582,7 @@ class ExperimentPlan:
     r: int
     comparisons: tuple[Comparison, ...]
     sizes: dict[str, dict[str, np.ndarray]]
-    dunnett: multiarm.DunnettBounds | None = None
+    dunnett: DunnettBounds | None = None
     notes: tuple[str, ...] = field(default=(), repr=False)
 
     kind = EXPERIMENT_KIND
@@ -1066,6 +1071,7 @@ def design_experiment(inp: ExperimentInputs) -> ExperimentPlan:
     common = None
     dn = None
     if method == "dunnett" and k > 1:
+        from seqtest.core import multiarm
         assert isinstance(eff, SpendingFunction)
         cum_tail = np.asarray(eff(t, a / sides), float)
         dn = multiarm.dunnett_bounds(t, cum_tail, list(alloc), sides=sides)
@@ -1160,6 +1166,7 @@ def _primary_size(prim: list[ExperimentMetric], comps: list[Comparison], power_f
             per_metric.append(min(_control_size(c.plan, c.plan.metric or {}, m.null)
                                   for c in cs))
             continue
+        from seqtest.core import multiarm
         c0 = cs[0].plan
         units = np.array([delta_and_unit(c.plan.metric or {})[1] for c in cs])
         pattern = 1.0 / np.sqrt(units)
