@@ -336,7 +336,8 @@ def _codes(sides: int, eff: np.ndarray, fut: np.ndarray | None, z: np.ndarray) -
 
 
 def decide(plan: ExperimentPlan, frames: Frames, zp: np.ndarray, okp: np.ndarray,
-           zg: np.ndarray, okg: np.ndarray, bounds: Boundaries | None = None) -> Outcome:
+           zg: np.ndarray, okg: np.ndarray, bounds: Boundaries | None = None, *,
+           obey_futility: bool = True) -> Outcome:
     """Decide the arms of ``R`` replicates of an experiment (module docstring).
 
     Parameters
@@ -351,6 +352,9 @@ def decide(plan: ExperimentPlan, frames: Frames, zp: np.ndarray, okp: np.ndarray
         The same for the guardrail comparisons (larger is more harm).
     bounds : Boundaries, optional
         Shared boundary computations (made from ``frames`` if not given).
+    obey_futility : bool
+        Stop arms at their futility boundaries (``False`` shows what happens when the
+        advice is not followed: the simulator's ``futility = "ignore"``).
     """
     bounds = bounds or Boundaries(plan, frames)
     r_n, n_p, n_j = zp.shape
@@ -454,7 +458,7 @@ def decide(plan: ExperimentPlan, frames: Frames, zp: np.ndarray, okp: np.ndarray
                           zp[:, p, j])
             futile[:, a] &= ~active | (code == _FUTILITY)
             has[:, a] |= active
-        futile &= has
+        futile &= has & obey_futility
         arm_stop[futile] = j
         arm_code[futile] = _FUTILITY
         live &= ~futile

@@ -751,8 +751,15 @@ def _lognormal_sums(rng: np.random.Generator, m: np.ndarray, p: dict,
 
 def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict,
                 tick: Callable[[float], None] | None = None) -> dict:
+    return draw_totals(job.data_kind, rng, cum, p, tick)
+
+
+def draw_totals(kind: str, rng: np.random.Generator, cum: np.ndarray, p: dict,
+                tick: Callable[[float], None] | None = None) -> dict:
+    """Cumulative totals of one arm (replicates x looks) with cumulative units ``cum``,
+    drawn increment by increment from the data model ``kind`` with parameters ``p``
+    (see the module docstring)."""
     m = np.ascontiguousarray(np.broadcast_to(_increments(cum), cum.shape))
-    kind = job.data_kind
     if kind == "binary":
         return {"n": cum, "successes": np.cumsum(rng.binomial(m, p["p"]), axis=1)}
     if kind == "counts":
