@@ -127,6 +127,13 @@ def analysis_text(analysis: Any) -> str:
 def read_looks(args: argparse.Namespace, kind: str | None) -> list[dict]:
     """The looks the options name (a CSV file or a query), keyed by role for the
     two-arm analysis."""
+    return read_table(args, kind).two_arm()
+
+
+def read_table(args: argparse.Namespace, kind: str | None, *, control: str | None = None
+               ) -> Any:
+    """The table of looks the options name (a CSV file or a query), keyed by arm name
+    (:class:`~seqtest.monitoring.lookfile.ArmLooks`, any number of arms)."""
     import os
     from pathlib import Path
 
@@ -154,14 +161,16 @@ def read_looks(args: argparse.Namespace, kind: str | None) -> list[dict]:
             query = path.read_text()
         from seqtest.monitoring.sqllooks import frame_from_sql
         frame = frame_from_sql(query, url)
-    table = read_arm_looks(frame, kind, columns=column_mapping(args.columns),
-                           control=args.control)
-    return table.two_arm()
+    return read_arm_looks(frame, kind, columns=column_mapping(args.columns),
+                          control=args.control if control is None else control)
 
 
 def cmd_analyze(args: argparse.Namespace) -> int:
     from seqtest.monitoring.analysis import analyze
     plan = read_plan(args.plan, trust=args.trust_plan)
+    if getattr(plan, "kind", None) == "experiment":
+        from seqtest.cli import experiment
+        return experiment.cmd_analyze(args, plan)
     kind = (getattr(plan, "metric", None) or {}).get("kind") or args.metric
     looks = read_looks(args, kind)
     analysis = analyze(plan, looks, metric=args.metric, final=args.final, max_n=args.max_n,
