@@ -96,7 +96,8 @@ __all__ = [
 EFFECT_TYPES = ("difference", "relative", "mde_multiple")
 _TOP = {"name", "description", "metrics", "correlation", "traffic", "analysis"}
 _METRIC = {"name", "data", "effects", "effect_type"}
-_TRAFFIC = {"fixed": {"mode", "extra_looks"}, "uneven": {"mode", "fractions", "extra_looks"}}
+_TRAFFIC = {"fixed": {"mode", "extra_looks", "control_users"},
+            "uneven": {"mode", "fractions", "extra_looks", "control_users"}}
 _MAX_CELLS = 2_000_000        # replicates x looks x (arms x metrics) per chunk
 _MAX_BINARY_GROUP = 3
 
@@ -144,6 +145,7 @@ class ExperimentScenario:
     fractions: tuple[float, ...] = ()
     extra_looks: tuple[float, ...] = ()
     futility: str = "obey"
+    control_users: int | None = None
 
 
 def is_experiment_scenario(doc: Any) -> bool:
@@ -169,6 +171,8 @@ def experiment_scenario_from_dict(d: Any) -> ExperimentScenario:
         [traffic]
         mode = "fixed"                         # or "uneven" with fractions = [...]
         extra_looks = [0.3]
+        control_users = 12000                  # at the last scheduled look (default:
+                                               # the plan's; arms: times allocation)
         [analysis]
         futility = "obey"                      # or "ignore"
 
@@ -247,13 +251,20 @@ def experiment_scenario_from_dict(d: Any) -> ExperimentScenario:
                 raise ValueError(f"traffic.extra_looks[{i}]: got {v!r}; allowed are "
                                  "fractions in (0, 1)")
         extra = tuple(sorted(set(vals)))
+    users = None
+    if tr.get("control_users") is not None:
+        v = _number("traffic.control_users", tr["control_users"])
+        if not (v >= 2 and v.is_integer()):
+            raise ValueError(f"traffic.control_users: got {tr['control_users']!r}; allowed "
+                             "is a whole number >= 2")
+        users = int(v)
     an = _mapping("analysis", d.get("analysis", {}))
     _no_extra("analysis", an, {"futility"})
     fut = an.get("futility", "obey")
     if fut not in ("obey", "ignore"):
         raise ValueError(f"analysis.futility: got {fut!r}; allowed are obey and ignore")
     return ExperimentScenario(name.strip(), desc, tuple(out), corr, mode, fractions, extra,
-                              fut)
+                              fut, users)
 
 
 def _correlation(value: Any, kinds: dict[str, str]) -> dict[tuple[str, str], float]:
@@ -491,6 +502,10 @@ def _job(plan: ExperimentPlan, sc: ExperimentScenario, seed: int, chunk: int) ->
                          "futility = \"obey\"")
     times = _schedule(plan, sc)
     users = {a: max(plan.max_n(m.name, a) for m in plan.metrics) for a in plan.arms}
+    if sc.control_users is not None:
+        # the same users for every plan (e.g. to compare methods at equal sizes); the
+        # fractions stay those of the plan's maxima, so looks may under- or over-run
+        users = {a: sc.control_users * plan.allocation(a) for a in plan.arms}
     counts = {a: np.ceil(users[a] * times * (1 - 1e-12)).astype(np.int64) for a in plan.arms}
     for a, cnt in counts.items():
         if np.any(np.diff(cnt) <= 0) or cnt[0] < 2:
