@@ -615,6 +615,8 @@ def _experiment_row(res: ExperimentSimulationResult) -> dict:
             "false_harm": rate(res.false_harm), "any_harm": rate(res.any_harm),
             "hypotheses": {h: rate(x) for h, x in res.hypotheses.items()},
             "guardrails": {g: rate(x) for g, x in res.guardrails.items()},
+            "harm_stop": {a: counts.get("stop_harm", 0) / res.reps
+                          for a, counts in res.outcomes.items()},
             "method": res.method}
 
 
@@ -897,8 +899,11 @@ def _experiment_sections(groups: dict[str, list[dict]], out: Path) -> list[str]:
                   "an arm declared better on a primary whose null is true (the plan bounds "
                   "it by alpha), a *false harm stop* an arm stopped by a guardrail it does "
                   "not harm beyond its margin (bounded by k times the sum of the "
-                  "guardrails' alphas, Bonferroni). Metrics correlated as the cell says.",
-                  ""]
+                  "guardrails' alphas, Bonferroni). Metrics correlated as the cell says. "
+                  "A guardrail's planned power assumes its arm runs on: when another "
+                  "guardrail (or a primary) stops the arm first, this one's own crossing "
+                  "rate is lower, so the arm's stop for harm by any guardrail is shown "
+                  "too.", ""]
         for r in gd:
             e = r["experiment"]
             lines += [f"### {r['id']}", "", f"{r['labels'].get('case', '')}; "
@@ -918,6 +923,10 @@ def _experiment_sections(groups: dict[str, list[dict]], out: Path) -> list[str]:
                     else "its alpha"
                 plan_ = "-" if x["planned"] is None else f"{x['planned']:.4f} ({what})"
                 lines.append(f"| harm stop {g} | {_ci(x)} | {plan_} |")
+            for arm_, share in e.get("harm_stop", {}).items():
+                if share > 0.1:
+                    lines.append(f"| arm {arm_} stopped for harm (any guardrail) | "
+                                 f"{share:.4f} | - |")
             lines.append("")
     return lines
 
