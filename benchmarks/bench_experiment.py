@@ -101,7 +101,8 @@ def main() -> None:
     w, c = timed(lambda: mexp.analyze_experiment(g, stopping), 5)
     line("graphical, an arm stops (adds its stage-wise inference)", w, c)
     d = experiment_plan(arms, METRIC, alpha=0.025, sides=1, looks=5, method="dunnett")
-    w, c = timed(lambda: mexp.analyze_experiment(d, running), 7)
+    d_running = looks_of(d, {}, 3)
+    w, c = timed(lambda: mexp.analyze_experiment(d, d_running), 7)
     line("dunnett, planned fractions (the plan's boundaries)", w, c)
     sizes = d.sizes["orders"]["control"]
     odd = [float(sizes[0]), float(sizes[1]), 0.5 * float(sizes[1] + sizes[2])]

@@ -165,23 +165,29 @@ def _gs_bounds(c: Comparison, key: str, t: np.ndarray, level: float, final: bool
 
 
 def _dunnett_z(plan: ExperimentPlan, t: np.ndarray, final: bool) -> np.ndarray:
-    """Dunnett-type boundaries on the control's observed fractions ``t``: the plan's
-    own where the fractions (and the spending) are the planned ones, else solved with
-    the looks before as ``previous`` (:func:`seqtest.core.multiarm.dunnett_bounds`)."""
+    """Dunnett-type boundaries on the control's observed fractions ``t``.
+
+    Looks taken at the plan's own users (the planned fractions up to the rounding of
+    the sizes to whole users: 1.5 users of the control's maximum) use the plan's
+    boundaries, as long as the last of them is final exactly when the plan's is
+    (moving a fraction by 1 / n changes a boundary by about that much, below the
+    boundaries' own quasi-Monte Carlo error); other looks are solved with the looks
+    before as ``previous`` (:func:`seqtest.core.multiarm.dunnett_bounds`) and cached in
+    the process."""
     assert plan.dunnett is not None
     spend = plan.efficacy
     tail = plan.alpha / plan.sides
-    cum = np.asarray(spend(np.minimum(t, 1.0), tail), float)
-    if final or t[-1] >= 1.0:
-        cum[-1] = tail
+    is_final = bool(final or t[-1] >= 1.0)
     k = t.size
     planned = plan.info_fractions
-    if k <= planned.size and np.allclose(t, planned[:k], rtol=0, atol=1e-12):
-        want = np.asarray(spend(planned[:k], tail), float)
-        if k == planned.size:
-            want[-1] = tail
-        if np.allclose(cum, want, rtol=0, atol=1e-15):
-            return np.asarray(plan.dunnett.z[:k], float)
+    metric = plan.primaries[0].metric
+    tol = 1.5 / plan.max_n(metric, plan.control)
+    if (k <= planned.size and np.all(np.abs(t - planned[:k]) <= tol)
+            and is_final == (k == planned.size)):
+        return np.asarray(plan.dunnett.z[:k], float)
+    cum = np.asarray(spend(np.minimum(t, 1.0), tail), float)
+    if is_final:
+        cum[-1] = tail
     key = (t.tobytes(), cum.tobytes(), plan.allocations, plan.sides)
     hit = _DUNNETT_CACHE.get(key)
     if hit is None:
@@ -1085,7 +1091,8 @@ def _look_results(plan: ExperimentPlan, c: Comparison, m: Any, s: _Series, t: np
     # repeated intervals at the initial level: two-sided, or one-sided in the test's
     # direction (the far end open)
     c_int = np.concatenate([crit[:n], np.full(col(eff.z).size - n, np.inf)])
-    lo, hi = eff.interval(c_int, 2)
+    # one-sided upward: the lower limit alone (half the work for score statistics)
+    lo, hi = eff.interval(c_int, 1 if sides == 1 and m.orientation > 0 else 2)
     lo, hi = col(lo)[:n], col(hi)[:n]
     if sides == 1:
         if m.orientation > 0:
