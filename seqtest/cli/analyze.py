@@ -170,7 +170,7 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     plan = read_plan(args.plan, trust=args.trust_plan)
     if getattr(plan, "kind", None) == "experiment":
         from seqtest.cli import experiment
-        return experiment.cmd_analyze(args, plan)
+        return experiment.cmd_analyze(args, plan, read_table)
     kind = (getattr(plan, "metric", None) or {}).get("kind") or args.metric
     looks = read_looks(args, kind)
     analysis = analyze(plan, looks, metric=args.metric, final=args.final, max_n=args.max_n,

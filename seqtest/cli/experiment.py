@@ -89,9 +89,10 @@ def _read_file(path: str, option: str) -> Any:
         raise UsageError(f"{option}: {str(p)!r} cannot be read ({exc})") from None
 
 
-def make_plan(args: argparse.Namespace) -> Any:
-    """The experiment plan the ``seqtest plan`` options describe."""
-    from seqtest.cli.plan import _fractions, _metric
+def make_plan(args: argparse.Namespace, metric: dict | None,
+              fractions: list[float] | None) -> Any:
+    """The experiment plan the ``seqtest plan`` options describe (``metric`` and
+    ``fractions``: the metric and fraction options as ``seqtest plan`` reads them)."""
     from seqtest.planning.experiment import experiment_plan
     if args.experiment is not None:
         given = [o for o in ("arms", "allocations", "method", "power_for", "direction",
@@ -104,7 +105,6 @@ def make_plan(args: argparse.Namespace) -> Any:
             raise UsageError("--experiment: the file must hold a table of the arguments of "
                              "seqtest.experiment_plan")
         return experiment_plan(**spec)
-    metric = _metric(args)
     if metric is None:
         raise UsageError("--arms: an experiment needs its metric (--metric with --mde, "
                          "--baseline or --sd), or an --experiment file")
@@ -120,7 +120,7 @@ def make_plan(args: argparse.Namespace) -> Any:
         _arms(args.arms or "2"), metric,
         allocations=None if alloc is None else (alloc[0] if len(alloc) == 1 else alloc),
         alpha=args.alpha, sides=args.sides, power=args.power, looks=args.looks,
-        information_fractions=_fractions(args.information_fractions),
+        information_fractions=fractions,
         efficacy=args.efficacy, futility=args.futility, binding=args.binding,
         method=args.method or "graphical", power_for=args.power_for or "each")
 
@@ -179,12 +179,14 @@ def plan_text(plan: Any) -> str:
     return "\n".join(parts)
 
 
-def cmd_plan(args: argparse.Namespace) -> int:
-    """``seqtest plan`` for an experiment."""
+def cmd_plan(args: argparse.Namespace, metric: dict | None,
+             fractions: list[float] | None) -> int:
+    """``seqtest plan`` for an experiment (``metric``, ``fractions``: see
+    :func:`make_plan`)."""
     if args.kind == "mixture":
         raise UsageError("--arms: experiments are group-sequential plans (--kind "
                          "group_sequential)")
-    plan = make_plan(args)
+    plan = make_plan(args, metric, fractions)
     if args.json:
         write(json.dumps(plan.to_dict(), indent=2, allow_nan=False), args.json)
     if args.csv:
@@ -256,16 +258,16 @@ def analysis_text(an: Any) -> str:
     return "\n".join(out)
 
 
-def read_looks(args: argparse.Namespace, plan: Any) -> Any:
+def read_looks(args: argparse.Namespace, plan: Any, read_table: Any) -> Any:
     """The looks of an experiment: a JSON file (a list of looks, any number of metrics)
-    or a table in either layout (one metric)."""
+    or a table in either layout (one metric), read by ``read_table`` (that of
+    ``seqtest analyze``)."""
     if args.looks is not None and str(args.looks).lower().endswith(".json"):
         data = _read_file(args.looks, "looks")
         if not isinstance(data, list):
             raise UsageError("looks: a JSON file of looks holds a list, one entry per look "
                              "({arm: totals} or {metric: {arm: totals}})")
         return data
-    from seqtest.cli.analyze import read_table
     if len(plan.metrics) != 1:
         raise UsageError("looks: a table holds one metric; give the looks of an experiment "
                          "with several metrics as a JSON file")
@@ -287,8 +289,9 @@ def exit_status(an: Any) -> int:
     return int(ExitStatus.STOP)
 
 
-def cmd_analyze(args: argparse.Namespace, plan: Any) -> int:
-    """``seqtest analyze`` with an experiment plan."""
+def cmd_analyze(args: argparse.Namespace, plan: Any, read_table: Any) -> int:
+    """``seqtest analyze`` with an experiment plan (``read_table``: how ``seqtest
+    analyze`` reads a table of looks)."""
     from seqtest.monitoring.experiment import analyze_experiment
     for opt in ("metric", "max_n", "daily_traffic", "plot"):
         if getattr(args, opt, None) is not None:
@@ -296,7 +299,7 @@ def cmd_analyze(args: argparse.Namespace, plan: Any) -> int:
                              "plan (its metrics and sizes are the plan's)")
     if getattr(args, "fraction_basis", "sample") != "sample":
         raise UsageError("--fraction-basis: an experiment measures fractions by sample")
-    looks = read_looks(args, plan)
+    looks = read_looks(args, plan, read_table)
     an = analyze_experiment(plan, looks, final=args.final)
     if args.json:
         write(json.dumps(an.to_dict(), indent=2, allow_nan=False), args.json)

@@ -154,7 +154,7 @@ def cmd_plan(args: argparse.Namespace) -> int:
         args.kind = "group_sequential"
     from seqtest.cli import experiment
     if experiment.wants_experiment(args):
-        return experiment.cmd_plan(args)
+        return experiment.cmd_plan(args, _metric(args), _fractions(args.information_fractions))
     if args.kind == "mixture":
         plan = make_mixture_plan(args)
         if args.json:
