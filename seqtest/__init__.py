@@ -1,11 +1,12 @@
 """seqtest: sequential testing for controlled experiments.
 
 Group-sequential plans with error spending, monitoring of interim looks with adjusted
-inference, always-valid inference by the mixture SPRT, and simulation of a plan's error
-rates. This module is the public surface; the layout behind it is described in
-DEVELOPERS.md (``core`` computes, ``planning`` designs plans, ``monitoring`` analyses
-looks, ``simulation`` checks plans, ``cli`` is the command line). Names are loaded on
-first use, so that ``import seqtest`` (and the command line) starts fast.
+inference, always-valid inference by the mixture SPRT, experiments with many arms and
+several metrics (:func:`experiment_plan`), and simulation of a plan's error rates. This
+module is the public surface; the layout behind it is described in DEVELOPERS.md
+(``core`` computes, ``planning`` designs plans, ``monitoring`` analyses looks,
+``simulation`` checks plans, ``cli`` is the command line). Names are loaded on first
+use, so that ``import seqtest`` (and the command line) starts fast.
 
     >>> import seqtest
     >>> plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=5)
@@ -26,10 +27,12 @@ if TYPE_CHECKING:  # the names below, for type checkers and readers
     from seqtest.core.errors import InputError, LookDataError, PlanDocumentError, SeqtestError
     from seqtest.core.vocabulary import CAUTION, DECISIONS, Decision
     from seqtest.monitoring.analysis import Analysis, LookResult, analyze
+    from seqtest.monitoring.experiment import ExperimentAnalysis
     from seqtest.monitoring.lookfile import ArmLooks, read_arm_looks, read_looks_csv
     from seqtest.monitoring.sqllooks import arm_looks_from_sql, looks_from_sql
     from seqtest.planning.design import Plan, design
     from seqtest.planning.documents import plan_from_dict
+    from seqtest.planning.experiment import ExperimentPlan, experiment_plan
     from seqtest.planning.mixture import MixturePlan, mixture_plan
     from seqtest.plotting import plot_analysis, plot_simulation
     from seqtest.reporting import ExitStatus, Summary, report_html, report_markdown, summarize
@@ -47,6 +50,9 @@ _WHERE = {
     "Analysis": "seqtest.monitoring.analysis",
     "LookResult": "seqtest.monitoring.analysis",
     "analyze": "seqtest.monitoring.analysis",
+    "ExperimentAnalysis": "seqtest.monitoring.experiment",
+    "ExperimentPlan": "seqtest.planning.experiment",
+    "experiment_plan": "seqtest.planning.experiment",
     "ArmLooks": "seqtest.monitoring.lookfile",
     "read_arm_looks": "seqtest.monitoring.lookfile",
     "read_looks_csv": "seqtest.monitoring.lookfile",
@@ -75,6 +81,8 @@ __all__ = [
     "Client",
     "Decision",
     "ExitStatus",
+    "ExperimentAnalysis",
+    "ExperimentPlan",
     "InputError",
     "LookDataError",
     "LookResult",
@@ -87,6 +95,7 @@ __all__ = [
     "analyze",
     "arm_looks_from_sql",
     "design",
+    "experiment_plan",
     "looks_from_sql",
     "mixture",
     "mixture_plan",

@@ -37,7 +37,23 @@ Grids
     each tail of binary plans with unequal arms (1:2, 1:4, 4:1) at a 2% baseline, one-
     and two-sided, and of the relative scale with equal arms on planned and random
     traffic (the full grid adds a 1% baseline and the relative scale with unequal
-    arms).
+    arms); and a few cells of experiments with many arms (see below).
+
+Experiments (many arms, several metrics)
+----------------------------------------
+Cells whose ids start with ``experiment-`` run experiment plans
+(:mod:`seqtest.simulation.experiment`; one-sided alpha 0.025, 5 looks, O'Brien-
+Fleming-type spending, normal data unless said): the family-wise error over the
+primaries' true nulls under the global null for k = 2, 3, 5, 8 treatments, both
+methods, with planned equal looks, unequal planned looks, uneven traffic that runs
+over, and five unplanned extra looks; under least favourable configurations (one arm,
+or half the arms, better by the mde, the rest null); the power of Bonferroni (no alpha
+passed on), the graphical method (Holm-type passing) and the Dunnett-type boundaries
+at the same users per arm (k = 2, 3, 5: every arm better, and one arm better); a
+guardrail's harm detection against its planned power; and the composed decision's
+false wins and false harm stops against the plan's bounds with correlated metrics.
+Family-wise error cells are gated like the others (one tail, at alpha). The reduced
+grid runs six of them (three at 100,000 replicates, three at 20,000).
 
 Metric kinds and margins
 ------------------------
@@ -70,7 +86,9 @@ only approximately alpha) pass.
 Stress cells are not gated: their verdicts are findings.
 
 Seeds: each cell's seed is the CRC-32 of its id plus ``--seed``, so adding cells
-does not change the others and every number in the report can be reproduced.
+does not change the others and every number in the report can be reproduced (the
+power cells of the experiments share one seed per configuration, so the methods are
+compared on the same data).
 """
 
 from __future__ import annotations
@@ -93,7 +111,13 @@ import numpy as np
 import seqtest
 from seqtest import spending
 from seqtest.mixture import mixture_plan
+from seqtest.planning.experiment import experiment_plan
 from seqtest.simulation.engine import SimulationResult, clopper_pearson, prepare
+from seqtest.simulation.experiment import (
+    ExperimentSimulationResult,
+    experiment_scenario_from_dict,
+    prepare_experiment,
+)
 from seqtest.simulation.runner import Runner, dask_client
 from seqtest.simulation.scenarios import scenario_from_dict
 
@@ -147,6 +171,7 @@ class Cell:
     exact: bool = True      # the design's type I error is alpha itself (not below it)
     naive_reference: float | None = None
     labels: dict = field(default_factory=dict)
+    seed_key: str | None = None   # cells with the same key draw the same data (paired)
 
 
 def _alpha(sides: int) -> float:
@@ -299,6 +324,136 @@ def _metric_cells(full: bool, reps: int, random_reps: int) -> list[tuple]:
     return out
 
 
+EXPERIMENT_FWER = "experiments: family-wise error"
+EXPERIMENT_POWER = "experiments: power at equal users"
+EXPERIMENT_GUARD = "experiments: guardrails and the composed decision"
+EXPERIMENT_GROUPS = (EXPERIMENT_FWER, EXPERIMENT_POWER, EXPERIMENT_GUARD)
+#: the primary of the experiment cells, and its data
+EXP_METRIC = {"name": "y", "kind": "continuous", "sd": 1.0, "mde": 0.1}
+EXP_DATA = {"kind": "normal", "mean": 0.0, "sd": 1.0}
+#: look patterns: planned equal, planned unequal, uneven traffic running over the
+#: maximum, and five unplanned extra looks
+EXP_LOOKS = {
+    "planned": ({"looks": 5}, {"mode": "fixed"}),
+    "unequal": ({"information_fractions": [0.15, 0.4, 0.6, 0.8, 1.0]}, {"mode": "fixed"}),
+    "uneven": ({"looks": 5}, {"mode": "uneven", "fractions": [0.1, 0.25, 0.45, 0.85, 1.05]}),
+    "extra": ({"looks": 5}, {"mode": "fixed", "extra_looks": [0.1, 0.3, 0.5, 0.7, 0.9]}),
+}
+
+
+def _exp_plan(k: int, method: str, looks: dict, **kw: Any) -> dict:
+    spec = {"arms": k + 1, "metrics": EXP_METRIC, "alpha": 0.025, "sides": 1,
+            "method": "graphical" if method == "bonferroni" else method, **looks, **kw}
+    if method == "bonferroni":      # weighted Bonferroni: no alpha passed on
+        spec["transitions"] = [[0.0] * k for _ in range(k)]
+    return {"experiment": spec}
+
+
+def _exp_scenario(name: str, traffic: dict, effects: dict | None = None, **kw: Any
+                  ) -> dict:
+    return {"name": name, "metrics": [{"name": "y", "data": EXP_DATA,
+                                       "effects": effects or {},
+                                       "effect_type": "mde_multiple"}],
+            "traffic": traffic, **kw}
+
+
+def _experiment_cells(full: bool, reps: int) -> list[tuple]:
+    """The experiment cells (see the module docstring)."""
+    out: list[tuple] = []
+    small = min(reps, 20_000)
+
+    def names(k: int) -> list[str]:
+        return ["treatment"] if k == 1 else [f"treatment_{i}" for i in range(1, k + 1)]
+
+    # family-wise error under the global null
+    null_cells = ([(k, m, lk) for k in (2, 3, 5, 8) for m in ("graphical", "dunnett")
+                   for lk in EXP_LOOKS] if full else
+                  [(3, "graphical", "uneven"), (5, "dunnett", "unequal")])
+    for k, method, lk in null_cells:
+        plan_looks, traffic = EXP_LOOKS[lk]
+        cid = f"experiment-null-k{k}-{method}-{lk}"
+        out.append((cid, EXPERIMENT_FWER, _exp_plan(k, method, plan_looks),
+                    _exp_scenario(cid, traffic), reps,
+                    {"labels": {"k": k, "method": method, "looks": lk,
+                                "configuration": "global null"}}))
+    # least favourable configurations: one arm, or half the arms, better by the mde
+    lfc = ([(k, m, c) for k in (2, 3, 5, 8) for m in ("graphical", "dunnett")
+            for c in (("one", "half") if k > 2 else ("one",))] if full else
+           [(3, "dunnett", "one")])
+    for k, method, conf in lfc:
+        better = names(k)[: 1 if conf == "one" else k // 2]
+        cid = f"experiment-lfc-k{k}-{method}-{conf}"
+        out.append((cid, EXPERIMENT_FWER, _exp_plan(k, method, {"looks": 5}),
+                    _exp_scenario(cid, {"mode": "fixed"}, {a: 1.0 for a in better}), reps,
+                    {"labels": {"k": k, "method": method, "looks": "planned",
+                                "configuration": f"{len(better)} better"}}))
+    # power at equal users: the Bonferroni plan's users for every method
+    for k in ((2, 3, 5) if full else (3,)):
+        users = _bonferroni_users(k)
+        for conf in (("all", "one") if full else ("all",)):
+            better = names(k) if conf == "all" else names(k)[:1]
+            for method in (("bonferroni", "graphical", "dunnett") if full
+                           else ("bonferroni", "dunnett")):
+                cid = f"experiment-power-k{k}-{conf}-{method}"
+                out.append((cid, EXPERIMENT_POWER, _exp_plan(k, method, {"looks": 5}),
+                            _exp_scenario(cid, {"mode": "fixed", "control_users": users},
+                                          {a: 1.0 for a in better}),
+                            reps if full else small,
+                            {"labels": {"k": k, "method": method, "better": conf,
+                                        "users": users},
+                             # the methods see the same data: their difference is paired
+                             "seed_key": f"experiment-power-k{k}-{conf}"}))
+    # a guardrail's harm detection against its planned power; the composed decision
+    guard = {"name": "load", "role": "guardrail", "kind": "continuous", "sd": 1.0,
+             "mde": 0.08, "margin": 0.02, "direction": "decrease", "alpha": 0.05,
+             "power": 0.8}
+    gplan = {"experiment": {"arms": 3, "metrics": [EXP_METRIC, guard], "alpha": 0.025,
+                            "sides": 1, "looks": 5}}
+    gdata = {"name": "load", "data": {"kind": "normal", "mean": 3.0, "sd": 1.0},
+             "effects": {"treatment_1": 1.0}, "effect_type": "mde_multiple"}
+    out.append(("experiment-guardrail-power", EXPERIMENT_GUARD, gplan,
+                {"name": "guardrail-power", "metrics": [
+                    {"name": "y", "data": EXP_DATA}, gdata]},
+                reps if full else small,
+                {"labels": {"case": "treatment_1 harms load by its mde (0.08 beyond a "
+                                    "0.02 margin); primaries null"}}))
+    composed = {"experiment": {
+        "arms": ["control", "a", "b", "c"], "alpha": 0.025, "sides": 1, "looks": 4,
+        "metrics": [{"name": "orders", "kind": "binary", "baseline": 0.10, "mde": 0.02},
+                    {"name": "signup", "kind": "binary", "baseline": 0.30, "mde": 0.03},
+                    {"name": "load", "role": "guardrail", "kind": "continuous", "sd": 1.0,
+                     "mde": 0.1, "direction": "decrease", "alpha": 0.02},
+                    {"name": "refunds", "role": "guardrail", "kind": "continuous",
+                     "sd": 2.0, "mde": 0.2, "direction": "decrease", "alpha": 0.02}]}}
+    cdata = [{"name": "orders", "data": {"kind": "binary", "rate": 0.10}},
+             {"name": "signup", "data": {"kind": "binary", "rate": 0.30}},
+             {"name": "load", "data": {"kind": "normal", "mean": 1.0, "sd": 1.0}},
+             {"name": "refunds", "data": {"kind": "normal", "mean": 4.0, "sd": 2.0}}]
+    corr = [["orders", "signup", 0.6], ["load", "refunds", 0.5]]
+    variants = [("null", "every metric null, metrics correlated", {})]
+    if full:
+        variants.append(("harm", "arm a harms load and refunds by their mdes; primaries "
+                                 "null", {"load": {"a": 0.1}, "refunds": {"a": 0.2}}))
+    for tag, text, eff in variants:
+        cid = f"experiment-composed-{tag}"
+        ms = [dict(m, effects=eff.get(m["name"], {})) for m in cdata]
+        out.append((cid, EXPERIMENT_GUARD, composed,
+                    {"name": cid, "metrics": ms, "correlation": corr},
+                    reps if full else small, {"labels": {"case": text}}))
+    return out
+
+
+_USERS: dict[int, int] = {}
+
+
+def _bonferroni_users(k: int) -> int:
+    """The control's users of the Bonferroni plan for k arms (each arm power 0.9)."""
+    if k not in _USERS:
+        plan = make_plan(_exp_plan(k, "bonferroni", {"looks": 5}))
+        _USERS[k] = int(plan.max_n("y", plan.control))
+    return _USERS[k]
+
+
 def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None
                ) -> list[Cell]:
     """The cells of the ``reduced`` or ``full`` grid (see the module docstring)."""
@@ -438,6 +593,10 @@ def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None
                 random_reps if sc["traffic"]["mode"] == "random" else reps, gate=False,
                 labels={"case": note})
 
+    # experiments with many arms and several metrics
+    for cell in _experiment_cells(full, reps):
+        add(*cell[:5], **cell[5])
+
     # random day-to-day traffic: one boundary computation per replicate, so last
     if full:
         rnd = [(label, fam, 5, 2, "binary") for label, fam in FAMILIES]
@@ -469,6 +628,8 @@ def make_plan(spec: dict) -> Any:
     if key not in _PLANS:
         if "mixture" in spec:
             _PLANS[key] = mixture_plan(**spec["mixture"])
+        elif "experiment" in spec:
+            _PLANS[key] = experiment_plan(**spec["experiment"])
         else:
             _PLANS[key] = seqtest.design(**spec)
     return _PLANS[key]
@@ -477,7 +638,7 @@ def make_plan(spec: dict) -> Any:
 @dataclass
 class CellResult:
     cell: Cell
-    result: SimulationResult | None
+    result: SimulationResult | ExperimentSimulationResult | None
     seconds: float
     error: str | None = None
 
@@ -499,8 +660,13 @@ def run_cells(cells: list[Cell], *, seed: int = 0, workers: int = 1,
     preps = []
     for cell in cells:
         plan = make_plan(cell.plan)
-        sc = scenario_from_dict(cell.scenario)
-        cell_seed = (zlib.crc32(cell.id.encode()) + seed) % (2**32)
+        sc = None if "experiment" in cell.plan else scenario_from_dict(cell.scenario)
+        cell_seed = (zlib.crc32((cell.seed_key or cell.id).encode()) + seed) % (2**32)
+        if "experiment" in cell.plan:
+            preps.append(prepare_experiment(
+                plan, experiment_scenario_from_dict(cell.scenario), cell.reps,
+                seed=cell_seed))
+            continue
         preps.append(prepare(plan, sc, cell.reps, seed=cell_seed))
     out: list[CellResult | None] = [None] * len(cells)
     began: dict[int, float] = {}
@@ -549,6 +715,21 @@ class Assessment:
     rows: list[dict]
 
 
+def _experiment_row(res: ExperimentSimulationResult) -> dict:
+    """The numbers of an experiment cell the report shows."""
+    def rate(x: Any) -> dict:
+        return {"rate": x.rate, "ci95": [x.ci_lower, x.ci_upper], "planned": x.planned}
+
+    return {"true_nulls": res.true_nulls, "any_rejection": rate(res.any_rejection),
+            "any_win": rate(res.any_win), "false_win": rate(res.false_win),
+            "false_harm": rate(res.false_harm), "any_harm": rate(res.any_harm),
+            "hypotheses": {h: rate(x) for h, x in res.hypotheses.items()},
+            "guardrails": {g: rate(x) for g, x in res.guardrails.items()},
+            "harm_stop": {a: counts.get("stop_harm", 0) / res.reps
+                          for a, counts in res.outcomes.items()},
+            "method": res.method}
+
+
 def assess(results: list[CellResult], family_level: float = 0.05) -> Assessment:
     run = [r for r in results if r.result is not None]
     gated = [r for r in run if r.cell.gate and r.result.null]
@@ -593,6 +774,8 @@ def assess(results: list[CellResult], family_level: float = 0.05) -> Assessment:
                      "expected_fraction": res.expected_total / res.max_total,
                      "boundary_calls": res.boundary_calls, "seconds": r.seconds,
                      "verdict": res.verdict})
+        if isinstance(res, ExperimentSimulationResult):
+            rows[-1]["experiment"] = _experiment_row(res)
     return Assessment(len(gated), conf, m, leaks, watch, naive_fail, rows)
 
 
@@ -750,6 +933,114 @@ def _tail_section(grows: list[dict]) -> list[str]:
     return [*lines, ""]
 
 
+def _ci(x: dict) -> str:
+    return f"{x['rate']:.4f} ({x['ci95'][0]:.4f}-{x['ci95'][1]:.4f})"
+
+
+def _experiment_sections(groups: dict[str, list[dict]], out: Path) -> list[str]:
+    """The report's sections on experiments (many arms, several metrics)."""
+    lines: list[str] = []
+    fw = groups.get(EXPERIMENT_FWER, [])
+    if fw:
+        png = f"{_slug(EXPERIMENT_FWER)}.png"
+        _forest(fw, EXPERIMENT_FWER, out / png)
+        lines += [f"## {EXPERIMENT_FWER}", "",
+                  "Experiment plans (one-sided alpha 0.025, O'Brien-Fleming-type spending, "
+                  "5 looks, normal data): the family-wise error is the share of "
+                  "experiments rejecting at least one true null hypothesis (all arms, all "
+                  "looks). Looks: planned equal, planned unequal (0.15, 0.4, 0.6, 0.8, 1), "
+                  "uneven traffic running over (0.1, 0.25, 0.45, 0.85, 1.05 of the "
+                  "maximum), and five unplanned extra looks (0.1, 0.3, 0.5, 0.7, 0.9). "
+                  "Gated by the grid's rule (one tail, at alpha).", "",
+                  f"![{EXPERIMENT_FWER}]({png})", "",
+                  "| cell | k | method | looks | configuration | reps | family-wise error "
+                  "(95% CI) | verdict |", "|---|---|---|---|---|---|---|---|"]
+        for r in fw:
+            lab = r["labels"]
+            flag = "**LEAKS**" if r["leak"] else ("watch" if r["watch"] else "holds")
+            lines.append(f"| {r['id']} | {lab['k']} | {lab['method']} | {lab['looks']} | "
+                         f"{lab['configuration']} | {r['reps']:,} | {r['rate']:.4f} "
+                         f"({r['ci95'][0]:.4f}-{r['ci95'][1]:.4f}) | {flag} |")
+        lines.append("")
+    pw = groups.get(EXPERIMENT_POWER, [])
+    if pw:
+        lines += [f"## {EXPERIMENT_POWER}", "",
+                  "Every method at the users per arm of the Bonferroni plan (each arm "
+                  "powered 0.9 at the mde alone), the arms better by the mde (all of "
+                  "them, or one). *Bonferroni*: weighted Bonferroni without passing alpha "
+                  "on; *graphical*: alpha passed on (Holm-type); *Dunnett*: common "
+                  "boundaries from the arms' correlation. Power of the first arm, and of "
+                  "at least one arm; the gain is Dunnett's over Bonferroni's, on the same "
+                  "simulated data (paired), +- the half-width of a 95% interval as if the "
+                  "two were independent (1.96 sqrt(p1 q1 / n + p2 q2 / n); pairing only "
+                  "makes the true one narrower).", "",
+                  "| k | users per arm | arms better | method | family-wise error bound | "
+                  "power of one arm (95% CI) | power of at least one (95% CI) | expected "
+                  "users / maximum |", "|---|---|---|---|---|---|---|---|"]
+        by: dict[tuple, dict[str, dict]] = {}
+        for r in pw:
+            lab = r["labels"]
+            by.setdefault((lab["k"], lab["better"], lab["users"]), {})[lab["method"]] = r
+        for (k, better, users), ms in by.items():
+            for method, r in ms.items():
+                e = r["experiment"]
+                first = e["hypotheses"]["treatment_1/y"]
+                lines.append(f"| {k} | {users:,} | {better} | {method} | 0.025 | "
+                             f"{_ci(first)} | {_ci(e['any_rejection'])} | "
+                             f"{r['expected_fraction']:.3f} |")
+            if "dunnett" in ms and "bonferroni" in ms:
+                n = ms["dunnett"]["reps"]
+                d = ms["dunnett"]["experiment"]
+                b = ms["bonferroni"]["experiment"]
+                gains = []
+                for pd, pb in ((d["hypotheses"]["treatment_1/y"]["rate"],
+                                b["hypotheses"]["treatment_1/y"]["rate"]),
+                               (d["any_rejection"]["rate"], b["any_rejection"]["rate"])):
+                    half = 1.96 * math.sqrt((pd * (1 - pd) + pb * (1 - pb)) / n)
+                    gains.append(f"{pd - pb:+.4f} +- {half:.4f}")
+                lines.append(f"| {k} | {users:,} | {better} | **gain, Dunnett over "
+                             f"Bonferroni** | | {gains[0]} | {gains[1]} | |")
+        lines.append("")
+    gd = groups.get(EXPERIMENT_GUARD, [])
+    if gd:
+        lines += [f"## {EXPERIMENT_GUARD}", "",
+                  "A guardrail's harm test against its planned power, and the composed "
+                  "decision: an arm wins only with no guardrail crossed; a *false win* is "
+                  "an arm declared better on a primary whose null is true (the plan bounds "
+                  "it by alpha), a *false harm stop* an arm stopped by a guardrail it does "
+                  "not harm beyond its margin (bounded by k times the sum of the "
+                  "guardrails' alphas, Bonferroni). Metrics correlated as the cell says. "
+                  "A guardrail's planned power assumes its arm runs on: when another "
+                  "guardrail (or a primary) stops the arm first, this one's own crossing "
+                  "rate is lower, so the arm's stop for harm by any guardrail is shown "
+                  "too.", ""]
+        for r in gd:
+            e = r["experiment"]
+            lines += [f"### {r['id']}", "", f"{r['labels'].get('case', '')}; "
+                      f"{r['reps']:,} experiments.", "",
+                      "| quantity | simulated (95% CI) | plan |", "|---|---|---|"]
+            if e["true_nulls"]:
+                lines.append(f"| family-wise error over {len(e['true_nulls'])} true nulls | "
+                             f"{r['rate']:.4f} ({r['ci95'][0]:.4f}-{r['ci95'][1]:.4f}) | "
+                             f"at most {r['alpha']:g} |")
+            fwin = e["false_win"]
+            lines.append(f"| false win | {_ci(fwin)} | at most {fwin['planned']:g} |")
+            fh = e["false_harm"]
+            lines.append(f"| false harm stop (some arm) | {_ci(fh)} | at most "
+                         f"{fh['planned']:g} |")
+            for g, x in e["guardrails"].items():
+                what = "planned power" if x["planned"] is not None and x["planned"] > 0.1 \
+                    else "its alpha"
+                plan_ = "-" if x["planned"] is None else f"{x['planned']:.4f} ({what})"
+                lines.append(f"| harm stop {g} | {_ci(x)} | {plan_} |")
+            for arm_, share in e.get("harm_stop", {}).items():
+                if share > 0.1:
+                    lines.append(f"| arm {arm_} stopped for harm (any guardrail) | "
+                                 f"{share:.4f} | - |")
+            lines.append("")
+    return lines
+
+
 def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int,
                  seconds: float, not_run: list[str]) -> Path:
     """Write ``report.md``, ``results.json`` and the PNGs to ``out``."""
@@ -823,8 +1114,9 @@ def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int
         lines += ["", "![naive baseline](naive.png)", ""]
     if TAIL_GROUP in groups:
         lines += _tail_section(groups[TAIL_GROUP])
+    lines += _experiment_sections(groups, out)
     for g, grows in groups.items():
-        if g == "naive baseline":
+        if g == "naive baseline" or g in EXPERIMENT_GROUPS:
             continue
         png = f"{_slug(g)}.png"
         _forest(grows, g, out / png)
@@ -859,10 +1151,14 @@ def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int
 
 def run(grid: str, out: Path | str, *, reps: int = 100_000, random_reps: int | None = None,
         seed: int = 0, workers: int = 1, budget_seconds: float | None = None,
-        log: Any = None, client: Any = None, progress: Any = None) -> Assessment:
+        log: Any = None, client: Any = None, progress: Any = None,
+        only: str | None = None) -> Assessment:
     """Build, run, assess and report a grid; returns the assessment. With a Dask
-    ``client`` the chunks run on its cluster (``workers`` is then ignored)."""
+    ``client`` the chunks run on its cluster (``workers`` is then ignored); ``only``
+    keeps the cells whose id starts with it."""
     cells = build_grid(grid, reps, random_reps)
+    if only is not None:
+        cells = [c for c in cells if c.id.startswith(only)]
     t0 = time.perf_counter()
     results = run_cells(cells, seed=seed, workers=workers, budget_seconds=budget_seconds,
                         log=log, client=client, progress=progress)
@@ -909,6 +1205,9 @@ def main(argv: list[str] | None = None) -> int:
                    help="stop starting new cells after this many minutes")
     p.add_argument("--render-only", action="store_true", dest="render_only",
                    help="write the report again from OUT/results.json, simulating nothing")
+    p.add_argument("--cells", default=None, metavar="PREFIX",
+                   help="run only the cells whose id starts with PREFIX (e.g. "
+                        "experiment-)")
     args = p.parse_args(argv)
     if args.render_only:
         a = render(args.out)
@@ -950,7 +1249,7 @@ def main(argv: list[str] | None = None) -> int:
                     return 2
             a = run(args.grid, args.out, reps=args.reps, random_reps=args.random_reps,
                     seed=args.seed, workers=max(1, args.workers), budget_seconds=budget,
-                    log=log, client=client, progress=progress)
+                    log=log, client=client, progress=progress, only=args.cells)
     finally:
         if bar is not None:
             bar.close()

@@ -137,7 +137,7 @@ def test_more_than_two_arms_are_refused_with_the_reason(tmp_path, plan_file, cap
     rc, _, err = run(["analyze", str(path), "--plan", str(plan_file)], capsys)
     assert rc == 2
     assert "3 arms (control, text_a, text_b)" in err
-    assert "plans for several treatments are not available yet" in err
+    assert "with an experiment plan" in err
 
 
 def test_a_bad_cell_names_look_arm_total_and_column(tmp_path, plan_file, capsys):

@@ -440,7 +440,7 @@ def test_many_arms_are_read_and_refused_by_the_two_arm_analysis():
         table.two_arm()
     msg = str(exc.value)
     assert "4 arms (control, text_a, text_b, text_c)" in msg
-    assert "plans for several treatments are not available yet" in msg
+    assert "analyse the table with an experiment plan" in msg
     assert "family-wise error" in msg
     with pytest.raises(LookDataError, match="4 arms"):
         seqtest.analyze(seqtest.design(**PLAN_BINARY), frame)

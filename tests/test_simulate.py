@@ -569,7 +569,23 @@ def test_reduced_grid_holds_alpha_and_reproduces_the_naive_rates(tmp_path):
     ks = sorted(r["labels"]["K"] for r in a.rows if r["naive_reference"] is not None)
     assert ks == [2, 5, 10]
     assert all(r["reps"] >= 100_000 for r in a.rows
-               if not r["id"].startswith(("random-", "mixture-normal")))
+               if not r["id"].startswith(("random-", "mixture-normal", "experiment-")))
+    # experiments: the family-wise error cells at 100,000, the others at 20,000
+    exp = [r for r in a.rows if r["id"].startswith("experiment-")]
+    assert exp and all(r["reps"] >= (100_000 if r["id"].startswith(
+        ("experiment-null", "experiment-lfc")) else 20_000) for r in exp)
+    # a guardrail finds the harm of its mde at its planned power: within 4 standard
+    # errors (sqrt(0.8 x 0.2 / 20,000) = 0.0028), less the chance, at most the
+    # primaries' alpha 0.025, that the arm stopped for efficacy before the harm showed
+    g = next(r for r in exp if r["id"] == "experiment-guardrail-power")["experiment"]
+    x = g["guardrails"]["treatment_1/load"]
+    se = math.sqrt(x["planned"] * (1 - x["planned"]) / 20_000)
+    assert x["planned"] - 4 * se - 0.025 <= x["rate"] <= x["planned"] + 4 * se
+    # the composed decision: false wins and false harm stops within the plan's bounds
+    for r in exp:
+        e = r["experiment"]
+        assert e["false_win"]["ci95"][0] <= e["false_win"]["planned"]
+        assert e["false_harm"]["ci95"][0] <= e["false_harm"]["planned"]
     report = (tmp_path / "report.md").read_text()
     assert "leaking gated cells: 0" in report
     for png in ("naive.png", "standardised.png", "fixed-traffic-binary.png"):

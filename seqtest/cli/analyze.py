@@ -13,7 +13,7 @@ import textwrap
 from typing import Any
 
 from seqtest.cli.common import UsageError, read_plan, table, write
-from seqtest.core.vocabulary import METRIC_KINDS
+from seqtest.core.vocabulary import EXPERIMENT_KIND, METRIC_KINDS
 
 __all__ = ["analysis_text", "read_looks", "register"]
 
@@ -156,25 +156,36 @@ def looks_frame(args: argparse.Namespace) -> Any:
     return frame_from_sql(query, url)
 
 
-def read_looks(args: argparse.Namespace, kind: str | None) -> list[dict]:
-    """The looks the options name (a CSV file or a query), keyed by role for the
-    two-arm analysis."""
+def read_table(args: argparse.Namespace, kind: str | None, *, control: str | None = None
+               ) -> Any:
+    """The table of looks the options name (a CSV file or a query), keyed by arm name
+    (:class:`~seqtest.monitoring.lookfile.ArmLooks`, any number of arms)."""
     from seqtest.monitoring.lookfile import column_mapping, read_arm_looks
     sources = [s for s, given in (("a looks file", args.looks), ("--sql", args.sql),
                                   ("--sql-file", args.sql_file)) if given is not None]
     if len(sources) != 1:
         raise UsageError(f"looks: got {' and '.join(sources) or 'none'}; allowed is one of "
                          "a looks file, --sql QUERY or --sql-file FILE")
-    table = read_arm_looks(looks_frame(args), kind, columns=column_mapping(args.columns),
-                           control=args.control)
-    return table.two_arm()
+    return read_arm_looks(looks_frame(args), kind, columns=column_mapping(args.columns),
+                          control=args.control if control is None else control)
 
 
-def analysis_of(args: argparse.Namespace) -> tuple[Any, Any]:
+def read_looks(args: argparse.Namespace, kind: str | None) -> list[dict]:
+    """The looks the options name (a CSV file or a query), keyed by role for the
+    two-arm analysis."""
+    return read_table(args, kind).two_arm()
+
+
+def analysis_of(args: argparse.Namespace, plan: Any = None) -> tuple[Any, Any]:
     """The plan and the analysis of the looks the options of :func:`add_look_inputs`
-    name."""
+    name (``plan``: the plan already read from ``--plan``)."""
     from seqtest.monitoring.analysis import analyze
-    plan = read_plan(args.plan, trust=args.trust_plan)
+    if plan is None:
+        plan = read_plan(args.plan, trust=args.trust_plan)
+    if getattr(plan, "kind", None) == EXPERIMENT_KIND:
+        raise UsageError(f"--plan: {args.plan} is an experiment plan (several arms or "
+                         "metrics); 'seqtest analyze' analyses it, this command takes a "
+                         "two-arm plan")
     kind = (getattr(plan, "metric", None) or {}).get("kind") or args.metric
     looks = read_looks(args, kind)
     analysis = analyze(plan, looks, metric=args.metric, final=args.final, max_n=args.max_n,
@@ -183,7 +194,11 @@ def analysis_of(args: argparse.Namespace) -> tuple[Any, Any]:
 
 
 def cmd_analyze(args: argparse.Namespace) -> int:
-    plan, analysis = analysis_of(args)
+    plan = read_plan(args.plan, trust=args.trust_plan)
+    if getattr(plan, "kind", None) == EXPERIMENT_KIND:
+        from seqtest.cli import experiment
+        return experiment.cmd_analyze(args, plan, read_table)
+    plan, analysis = analysis_of(args, plan)
     if args.json:
         write(json.dumps(analysis.to_dict(), indent=2, allow_nan=False), args.json)
     if args.json != "-":

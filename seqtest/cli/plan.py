@@ -29,6 +29,8 @@ def register(sub: Any) -> None:
                    help="write the plan document (JSON) to FILE ('-' for stdout)")
     p.add_argument("--csv", metavar="FILE", default=None,
                    help="write the boundary table as CSV to FILE ('-' for stdout)")
+    from seqtest.cli.experiment import add_experiment_options
+    add_experiment_options(p)
     p.set_defaults(func=cmd_plan)
 
 
@@ -185,6 +187,9 @@ def cmd_plan(args: argparse.Namespace) -> int:
                       "spelling is accepted for this release only", DeprecationWarning,
                       stacklevel=2)
         args.kind = "group_sequential"
+    from seqtest.cli import experiment
+    if experiment.wants_experiment(args):
+        return experiment.cmd_plan(args, _metric(args), _fractions(args.information_fractions))
     if args.kind == "mixture":
         plan = make_mixture_plan(args)
         if args.json:

@@ -2,13 +2,14 @@
 
 ``seqtest simulate --plan PLAN.json --scenario FILE --reps N [--json [FILE]]``
 simulates N experiments of the scenario (see ``simulations/README.md``) under the
-plan and prints the type I error (or power) with its Clopper-Pearson interval, the
-naive baseline, the expected sample size and the stopping looks. The chunks run in
-this process, on ``--workers`` local processes, or with ``--scheduler ADDRESS`` as
-tasks on a Dask cluster (``--scheduler local`` starts one of ``--workers``
-processes; needs the ``dask`` extra); the result is the same bit for bit. A
-progress bar goes to stderr on long runs. Bad input gives a one-line message and
-exit status 2; with ``--check`` a plan that leaks alpha gives exit status 1.
+plan (an experiment plan takes an experiment scenario: many arms, several metrics;
+:mod:`seqtest.simulation.experiment`) and prints the type I error (or power) with
+its Clopper-Pearson interval, the naive baseline, the expected sample size and the
+stopping looks. The chunks run in this process, on ``--workers`` local processes, or
+with ``--scheduler ADDRESS`` as tasks on a Dask cluster (``--scheduler local`` starts
+one of ``--workers`` processes; needs the ``dask`` extra); the result is the same bit
+for bit. A progress bar goes to stderr on long runs. Bad input gives a one-line message
+and exit status 2; with ``--check`` a plan that leaks alpha gives exit status 1.
 
 :func:`register` adds the subcommand to the ``seqtest`` parser.
 """
@@ -90,10 +91,13 @@ def handler(args: argparse.Namespace) -> int:
         raise ValueError(f"--confidence: got {args.confidence!r}; allowed is a level in "
                          "(0, 1)")
     plan = read_plan(args.plan)
-    try:
-        scenario = load_scenario(args.scenario)
-    except ValueError as exc:
-        raise ValueError(f"--scenario: {exc}") from None
+    experiment = getattr(plan, "kind", None) == "experiment"
+    scenario = None
+    if not experiment:
+        try:
+            scenario = load_scenario(args.scenario)
+        except ValueError as exc:
+            raise ValueError(f"--scenario: {exc}") from None
     if args.plot is not None and not Path(args.plot).parent.is_dir():
         raise ValueError(f"--plot: the folder of {args.plot!r} does not exist")
 
@@ -116,13 +120,19 @@ def handler(args: argparse.Namespace) -> int:
                         args.scheduler, workers=args.workers or None))
                 except ValueError as exc:
                     raise ValueError(f"--{exc}") from None
-            result = simulate(plan, scenario, args.reps, seed=args.seed,
-                              workers=args.workers, chunk_size=args.chunk_size,
-                              confidence=args.confidence, progress=progress, client=client)
+            if experiment:
+                from seqtest.cli.experiment import cmd_simulate
+                result = cmd_simulate(args, plan, progress, client)
+            else:
+                assert scenario is not None
+                result = simulate(plan, scenario, args.reps, seed=args.seed,
+                                  workers=args.workers, chunk_size=args.chunk_size,
+                                  confidence=args.confidence, progress=progress,
+                                  client=client)
     finally:
         if bar is not None:
             bar.close()
-    if args.plot is not None:
+    if args.plot is not None and not experiment:
         plot_result(result, args.plot)
     if args.json is not None:
         text = json.dumps(result.to_dict(), indent=2, allow_nan=False) + "\n"

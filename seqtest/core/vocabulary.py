@@ -15,6 +15,7 @@ __all__ = [
     "BETTER",
     "DECISIONS",
     "Decision",
+    "EXPERIMENT_KIND",
     "HYPOTHESES",
     "METRIC_KINDS",
     "PLAN_KINDS",
@@ -36,19 +37,23 @@ class Decision(str, Enum):
     STOP_EFFICACY = "stop_efficacy"
     STOP_FUTILITY = "stop_futility"
     COMPLETE = "complete_not_significant"
+    #: An arm of an experiment crossed a guardrail's harm boundary (appended last so
+    #: that the codes of the first release keep their meaning).
+    STOP_HARM = "stop_harm"
 
     def __str__(self) -> str:
         return self.value
 
     @property
     def code(self) -> int:
-        """Position in :data:`DECISIONS` (0 continue, 1 efficacy, 2 futility, 3 complete)."""
+        """Position in :data:`DECISIONS` (0 continue, 1 efficacy, 2 futility, 3 complete,
+        4 harm)."""
         return _CODES[self]
 
     @property
     def terminal(self) -> bool:
         """Whether the experiment ends here whatever the plan's futility rule."""
-        return self in (Decision.STOP_EFFICACY, Decision.COMPLETE)
+        return self in (Decision.STOP_EFFICACY, Decision.COMPLETE, Decision.STOP_HARM)
 
 
 DECISIONS: tuple[Decision, ...] = tuple(Decision)
@@ -62,6 +67,11 @@ def decision_from_code(code: SupportsInt) -> Decision:
 
 #: Plan kinds, as written in plan documents, on the command line and in the service.
 PLAN_KINDS: tuple[str, ...] = ("group_sequential", "mixture")
+#: The kind of an experiment plan document (one control, 1 to 8 treatments, metrics with
+#: roles); its comparisons are group-sequential plans (see
+#: :mod:`seqtest.planning.experiment`). Kept apart from :data:`PLAN_KINDS`, the kinds of
+#: a two-arm plan.
+EXPERIMENT_KIND = "experiment"
 #: Metric kinds: what the per-arm totals describe (binary: units with the outcome;
 #: continuous: values per unit; rate: Poisson events over exposure; ratio: a sum over a
 #: sum per unit, by the delta method; adjusted: a continuous metric adjusted for a

@@ -18,7 +18,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, overload
 
 import numpy as np
 from scipy import special
@@ -27,6 +27,8 @@ from seqtest.core import checks, jsonable
 from seqtest.core.scales import null_on_test_scale
 from seqtest.core.vocabulary import CAUTION, METRIC_KINDS, Decision, decision_from_code
 from seqtest.monitoring import metrics
+from seqtest.monitoring.experiment import ExperimentAnalysis, analyze_experiment
+from seqtest.monitoring.records import LookResult
 from seqtest.monitoring.rules import (
     FRACTION_BASES,
     FinalInference,
@@ -36,92 +38,10 @@ from seqtest.monitoring.rules import (
     rule_for,
 )
 from seqtest.planning.design import Plan
+from seqtest.planning.experiment import ExperimentPlan
+from seqtest.planning.mixture import MixturePlan
 
 __all__ = ["Analysis", "FinalInference", "LookResult", "Projection", "analyze"]
-
-
-@dataclass(frozen=True)
-class LookResult:
-    """Everything computed at one look (see :func:`analyze`).
-
-    Attributes
-    ----------
-    look : int
-        1-based number of the look.
-    n_control, n_treatment : float
-        Units per arm (exposure for rates).
-    control_value, treatment_value : float
-        Each arm's mean (a rate for binary and rate metrics).
-    estimate : float
-        The effect on its reported scale (difference, or relative lift).
-    test_estimate, se, z : float
-        The estimate, its standard error and the z statistic on the scale the test
-        runs on (:attr:`Analysis.test_scale`): ``z = test_estimate / se`` for continuous
-        metrics; for binary and rate metrics ``se`` is restricted to the null and ``z``
-        is ``test_estimate / se`` with the skewness correction, the number that solves
-        ``z + skewness (z^2 - 1) / 6 = test_estimate / se`` (Gart and Nam).
-    skewness : float
-        Skewness of the score contrast under the null (0 for continuous metrics).
-    information, information_fraction : float
-        ``1 / se^2``, and the fraction of the maximum reached (by sample, by
-        information, or for a mixture plan the larger arm against its cap).
-    efficacy_z, futility_z : float, float or None
-        Boundaries on the z scale of the test at this look (a one-sided plan where
-        lower is better stops for efficacy when ``z`` falls to ``efficacy_z``, which is
-        then negative, and for futility when it stays above ``futility_z``).
-    p_threshold : float
-        The p-value this look had to reach to stop for efficacy (the efficacy boundary
-        on the p scale; for a mixture plan, alpha for the always-valid p-value).
-    unadjusted_p : float
-        The look's own fixed-sample p-value, which ignores the looks.
-    interval_lower, interval_upper : float
-        Interval valid at every look on the reported scale: the repeated confidence
-        interval (group-sequential plans) or the confidence sequence (mixture plans).
-    decision : Decision
-        This look's own decision.
-    srm_p_value : float or None
-        p-value of the sample-ratio check (None for rates).
-    always_valid_p : float or None
-        Mixture plans: the always-valid p-value.
-    small_sample : bool
-        An arm is below the counts where the normal approximation is reliable.
-    """
-
-    look: int
-    n_control: float
-    n_treatment: float
-    control_value: float
-    treatment_value: float
-    estimate: float
-    test_estimate: float
-    se: float
-    z: float
-    skewness: float
-    information: float
-    information_fraction: float
-    efficacy_z: float
-    futility_z: float | None
-    p_threshold: float
-    unadjusted_p: float
-    interval_lower: float
-    interval_upper: float
-    decision: Decision
-    srm_p_value: float | None
-    always_valid_p: float | None = None
-    small_sample: bool = False
-
-    # names of the first release, kept for Python callers
-    @property
-    def rci_lower(self) -> float:
-        return self.interval_lower
-
-    @property
-    def rci_upper(self) -> float:
-        return self.interval_upper
-
-    @property
-    def nominal_p(self) -> float:
-        return self.p_threshold
 
 
 @dataclass(frozen=True)
@@ -225,6 +145,32 @@ class Analysis:
 
 # -- the analysis ------------------------------------------------------------------------
 
+@overload
+def analyze(plan: ExperimentPlan, looks: Sequence[Mapping] | Any, *, metric: str | None = ...,
+            allocation: float | None = ..., final: bool = ..., max_n: float | None = ...,
+            fraction_basis: str = ..., daily_traffic: float | None = ...,
+            srm_threshold: float = ..., fraction: str | None = ...) -> ExperimentAnalysis:
+    ...
+
+
+@overload
+def analyze(plan: Plan | MixturePlan, looks: Sequence[Mapping] | Any, *,
+            metric: str | None = ..., allocation: float | None = ..., final: bool = ...,
+            max_n: float | None = ..., fraction_basis: str = ...,
+            daily_traffic: float | None = ..., srm_threshold: float = ...,
+            fraction: str | None = ...) -> Analysis:
+    ...
+
+
+@overload
+def analyze(plan: Any, looks: Sequence[Mapping] | Any, *, metric: str | None = ...,
+            allocation: float | None = ..., final: bool = ..., max_n: float | None = ...,
+            fraction_basis: str = ..., daily_traffic: float | None = ...,
+            srm_threshold: float = ..., fraction: str | None = ...
+            ) -> Analysis | ExperimentAnalysis:
+    ...
+
+
 def analyze(
     plan: Any,
     looks: Sequence[Mapping] | Any,
@@ -237,13 +183,19 @@ def analyze(
     daily_traffic: float | None = None,
     srm_threshold: float = 0.001,
     fraction: str | None = None,
-) -> Analysis:
+) -> Analysis | ExperimentAnalysis:
     """Analyse the looks of an experiment under its plan.
 
     Parameters
     ----------
-    plan : Plan, MixturePlan or dict
-        The plan (a plan document is read with :func:`seqtest.plan_from_dict`).
+    plan : Plan, MixturePlan, ExperimentPlan or dict
+        The plan (a plan document is read with :func:`seqtest.plan_from_dict`). An
+        :class:`~seqtest.planning.experiment.ExperimentPlan` (many arms, several
+        metrics) is analysed by
+        :func:`seqtest.monitoring.experiment.analyze_experiment` and gives an
+        :class:`~seqtest.monitoring.experiment.ExperimentAnalysis` (its looks are
+        ``{arm: totals}`` or ``{metric: {arm: totals}}``; only ``final`` and
+        ``srm_threshold`` apply).
     looks : list of dict or DataFrame
         Cumulative per-arm totals per look, in order:
         ``{"control": {"n": ..., "successes": ...}, "treatment": {...}}``
@@ -271,7 +223,7 @@ def analyze(
 
     Returns
     -------
-    Analysis
+    Analysis (ExperimentAnalysis for an experiment plan)
 
     Raises
     ------
@@ -283,6 +235,17 @@ def analyze(
     from seqtest.planning.documents import plan_from_dict
     if isinstance(plan, Mapping):
         plan = plan_from_dict(dict(plan))
+    if isinstance(plan, ExperimentPlan):
+        given = {"metric": metric, "allocation": allocation, "max_n": max_n,
+                 "daily_traffic": daily_traffic, "fraction": fraction}
+        extra = [k for k, v in given.items() if v is not None]
+        if fraction_basis != "sample":
+            extra.append("fraction_basis")
+        if extra:
+            raise checks.fail(extra[0], given.get(extra[0], fraction_basis),
+                              "left out for an experiment plan (its metrics, allocations "
+                              "and sizes are the plan's; fractions are by sample)")
+        return analyze_experiment(plan, looks, final=final, srm_threshold=srm_threshold)
     if fraction is not None:
         fraction_basis = fraction
     checks.choice("fraction_basis", fraction_basis, FRACTION_BASES)

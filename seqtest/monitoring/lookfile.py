@@ -40,7 +40,8 @@ ignore the column. On the command line the same mapping is ``--column NAME=TARGE
 :func:`read_arm_looks` returns an :class:`ArmLooks`: the looks keyed by arm name, for
 any number of arms. Two-arm analyses take :meth:`ArmLooks.two_arm`, the looks keyed by
 the roles ``control`` and ``treatment`` (:func:`looks_from_frame` and
-:func:`read_looks_csv` do both steps). Every refusal names the look, the arm, the total
+:func:`read_looks_csv` do both steps); an experiment plan (many arms) takes the table
+itself, or :meth:`ArmLooks.by_arm`. Every refusal names the look, the arm, the total
 and the column at fault and says what is allowed; nothing is returned half-read.
 """
 
@@ -187,8 +188,8 @@ def columns_help(width: int = 79) -> str:
         para("names are read in any letter case, with _ . - or a space between words; "
              f"also accepted: {alias_text}; arms c and t for control and treatment"),
         para("arms: the control is the arm named 'control', or the one given with "
-             "--control ARM; two arms are analysed (plans for several treatments are not "
-             "available yet)"),
+             "--control ARM; a two-arm plan takes one treatment, an experiment plan "
+             "(several treatments) all of its arms"),
         para("other names: --column NAME=ARM.TOTAL (wide), --column NAME=TOTAL (long), "
              "--column NAME=look|arm|date|note, --column NAME=- to ignore a column; "
              "repeat --column for each"),
@@ -415,12 +416,20 @@ class ArmLooks:
         if len(self.treatments) != 1:
             raise LookDataError(
                 f"the data has {len(self.arms)} arms ({', '.join(self.arms)}), the control "
-                f"{self.control!r} and {len(self.treatments)} treatments; this analysis "
-                "compares one treatment with the control, and plans for several "
-                "treatments are not available yet (analysing each treatment in its own "
-                "two-arm plan would not hold the family-wise error rate); keep one "
-                "treatment's rows or columns", arm=self.treatments[1])
+                f"{self.control!r} and {len(self.treatments)} treatments; a two-arm plan "
+                "compares one treatment with the control (analysing each treatment in its "
+                "own two-arm plan would not hold the family-wise error rate): analyse the "
+                "table with an experiment plan for these arms (seqtest.experiment_plan, "
+                "'seqtest plan --arms'), or keep one treatment's rows or columns",
+                arm=self.treatments[1])
         return {ARMS[0]: self.control, ARMS[1]: self.treatments[0]}
+
+    def by_arm(self) -> list[dict[str, dict[str, Any]]]:
+        """The looks keyed by arm name, ``[{arm: {...}, ...}, ...]``, for any number of
+        arms: what :func:`seqtest.analyze` takes with an experiment plan (the table
+        itself is taken as well)."""
+        return [{arm: dict(look[arm]) for arm in self.arms if arm in look}
+                for look in self.looks]
 
     def two_arm(self) -> list[dict[str, dict[str, Any]]]:
         """The looks keyed by role, ``[{"control": {...}, "treatment": {...}}, ...]``,

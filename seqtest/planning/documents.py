@@ -20,6 +20,20 @@ release would compute instead. A document of this release must agree to within
 
 Old names of the first release (``inputs.info_fractions``, ``computed.nominal_p``) are
 read with a :class:`DeprecationWarning`, for one release.
+
+Experiment documents (kind ``experiment``, :meth:`ExperimentPlan.to_dict()
+<seqtest.planning.experiment.ExperimentPlan.to_dict>`) hold the experiment's inputs
+(arms with allocations, metrics with roles, the method and its graph) and, computed,
+every comparison's level, boundaries, cumulative alpha, drift and planned power, the
+users per arm and metric, the Dunnett-type boundaries' Monte Carlo errors and the
+errors the plan promises. Every field is checked; unless trusted, the experiment is
+designed again and every number compared: to :data:`SAME_RELEASE_TOLERANCE` for the
+graphical method (deterministic), and for Dunnett-type boundaries to
+:data:`DUNNETT_Z_ERRORS` times the recomputation's own reported standard error on z
+(quasi-Monte Carlo, deterministic with its fixed seed on one machine, but with
+rounding that may differ between machines), with the drift, power and sizes allowed
+the change that follows from it. The document's own standard errors never widen the
+tolerance (they are checked against the recomputation's).
 """
 
 from __future__ import annotations
@@ -35,16 +49,31 @@ import numpy as np
 from seqtest.core import checks, classical, spending
 from seqtest.core.errors import InputError, PlanDocumentError
 from seqtest.core.version import __version__
-from seqtest.core.vocabulary import PLAN_KINDS, SCALES
+from seqtest.core.vocabulary import EXPERIMENT_KIND, PLAN_KINDS, SCALES
 from seqtest.planning.design import MAX_GRID_R, Plan, design
+from seqtest.planning.experiment import (
+    Comparison,
+    ExperimentInputs,
+    ExperimentPlan,
+    design_experiment,
+    experiment_inputs,
+)
 from seqtest.planning.mixture import MixturePlan, mixture_plan
 from seqtest.planning.sizing import check_metric, legacy_max_control, per_look
 
-__all__ = ["RELEASE_CHANGES", "SAME_RELEASE_TOLERANCE", "plan_from_dict"]
+__all__ = ["DUNNETT_Z_ERRORS", "RELEASE_CHANGES", "SAME_RELEASE_TOLERANCE",
+           "plan_from_dict"]
 
 #: Largest difference accepted between a document of this release and a recomputation
 #: (absolute on z and probabilities, relative on the drift and tau2).
 SAME_RELEASE_TOLERANCE = 1e-8
+
+#: Dunnett-type boundaries of an experiment document must agree with a recomputation to
+#: this many of the recomputation's reported standard errors on z (plus
+#: :data:`SAME_RELEASE_TOLERANCE`): the 0.9999 point of Student's t with 7 degrees of
+#: freedom is 7.0 for the 8 quasi-Monte Carlo replicates, so a document whose
+#: boundaries differ by more was edited, not recomputed elsewhere.
+DUNNETT_Z_ERRORS = 7.0
 
 #: For documents of earlier releases: how much each kind of number may differ from
 #: what this release computes, and why (the changes since that release).
@@ -70,8 +99,10 @@ _RENAMED = {"inputs": {"info_fractions": "information_fractions"},
             "computed": {"nominal_p": "p_threshold"}}
 
 
-def plan_from_dict(document: Any, *, trust: bool = False) -> Plan | MixturePlan:
-    """Read a plan document of either kind.
+def plan_from_dict(document: Any, *, trust: bool = False
+                   ) -> Plan | MixturePlan | ExperimentPlan:
+    """Read a plan document of any kind (``group_sequential``, ``mixture`` or
+    ``experiment``).
 
     Parameters
     ----------
@@ -90,9 +121,11 @@ def plan_from_dict(document: Any, *, trust: bool = False) -> Plan | MixturePlan:
     """
     doc = _mapping("plan", document)
     kind = doc.get("kind")
+    if kind == EXPERIMENT_KIND:
+        return _read_experiment(doc, trust)
     if kind not in PLAN_KINDS:
         raise PlanDocumentError(f"kind: got {checks.show(kind)}; allowed are "
-                                f"{', '.join(PLAN_KINDS)}", field="kind")
+                                f"{', '.join([*PLAN_KINDS, EXPERIMENT_KIND])}", field="kind")
     version = doc.get("version", "0.1.0")
     if not isinstance(version, str) or len(version) > 40:
         raise PlanDocumentError(f"version: got {checks.show(version)}; allowed is the "
@@ -432,3 +465,259 @@ def _comparable(plan: Any, fresh: Any, sizes_given: bool) -> list[tuple[str, Any
             ("inputs.unit_variance", plan.unit_variance if plan.unit_variance is not None
              else math.nan, fresh.unit_variance if fresh.unit_variance is not None
              else math.nan, "relative")]
+
+
+# -- experiments ---------------------------------------------------------------------------
+
+_EXP_INPUTS = {"arms", "metrics", "alpha", "sides", "power", "information_fractions",
+               "efficacy", "futility", "binding", "method", "weights", "transitions",
+               "power_for", "grid_r"}
+_EXP_COMPUTED = {"comparisons", "sample_size", "dunnett", "errors"}
+_EXP_COMPARISON = {"arm", "metric", "role", "level", "efficacy_z", "futility_z",
+                   "cumulative_alpha", "drift", "planned_power"}
+_EXP_DUNNETT = {"z_error", "family_error", "standard_error", "paths"}
+
+
+def _field_of(message: str, where: str) -> str:
+    """The field an input check names (the text before its first colon)."""
+    head = message.split(":", 1)[0].strip()
+    return f"{where}.{head}" if head and " " not in head else where
+
+
+def _experiment_inputs(inp: Mapping) -> ExperimentInputs:
+    _no_extra(inp, _EXP_INPUTS, "inputs")
+    for key in _EXP_INPUTS - {"grid_r"}:
+        _field(inp, key, "inputs")
+    arms = inp["arms"]
+    if not isinstance(arms, list) or not arms:
+        raise PlanDocumentError(f"inputs.arms: got {checks.show(arms)}; allowed is a list of "
+                                "arms, the control first", field="inputs.arms")
+    names, alloc = [], []
+    for i, a in enumerate(arms):
+        d = _mapping(f"inputs.arms[{i}]", a)
+        _no_extra(d, {"name"} if i == 0 else {"name", "allocation"}, f"inputs.arms[{i}]")
+        names.append(_field(d, "name", f"inputs.arms[{i}]"))
+        if i:
+            alloc.append(_field(d, "allocation", f"inputs.arms[{i}]"))
+    if not isinstance(inp["metrics"], list):
+        raise PlanDocumentError(f"inputs.metrics: got {checks.show(inp['metrics'])}; allowed "
+                                "is a list of metric descriptions", field="inputs.metrics")
+    fractions = inp["information_fractions"]
+    if not isinstance(fractions, list):
+        raise PlanDocumentError(f"inputs.information_fractions: got {checks.show(fractions)}"
+                                "; allowed is a list of numbers",
+                                field="inputs.information_fractions")
+    eff = _boundary("inputs.efficacy", inp["efficacy"])
+    if eff is None:
+        raise PlanDocumentError("inputs.efficacy: got None; allowed is a spending function "
+                                "or a classical boundary", field="inputs.efficacy")
+    fut = _boundary("inputs.futility", inp["futility"])
+    r = _check("inputs.grid_r", checks.whole, inp.get("grid_r", 24), lo=8, hi=MAX_GRID_R)
+    try:
+        return experiment_inputs(
+            names, list(inp["metrics"]), allocations=alloc, alpha=inp["alpha"],
+            sides=inp["sides"], power=inp["power"], information_fractions=fractions,
+            efficacy=eff, futility=fut, binding=inp["binding"], method=inp["method"],
+            weights=inp["weights"], transitions=inp["transitions"],
+            power_for=inp["power_for"], r=r)
+    except (InputError, ValueError, TypeError) as exc:
+        raise PlanDocumentError(f"inputs.{exc}", field=_field_of(str(exc), "inputs")) from None
+
+
+def _expected_comparisons(inp: ExperimentInputs) -> list[tuple[str, str, str]]:
+    """(arm, metric, role) of each comparison, in the order the plan lists them."""
+    out = [(arm, m.name, "primary") for m in inp.metrics if m.role == "primary"
+           for arm in inp.arms[1:]]
+    out += [(arm, m.name, "guardrail") for m in inp.metrics if m.role == "guardrail"
+            for arm in inp.arms[1:]]
+    return out
+
+
+def _read_experiment(doc: Mapping, trust: bool) -> ExperimentPlan:
+    version = doc.get("version")
+    if version != __version__:
+        raise PlanDocumentError(f"version: got {checks.show(version)}; experiment documents "
+                                f"are read by the release that wrote them (this is seqtest "
+                                f"{__version__})", field="version")
+    _no_extra(doc, {"kind", "version", "inputs", "computed"}, "")
+    inp_doc = _mapping("inputs", _field(doc, "inputs", ""))
+    comp = _mapping("computed", _field(doc, "computed", ""))
+    inp = _experiment_inputs(inp_doc)
+    _no_extra(comp, _EXP_COMPUTED, "computed")
+    for key in _EXP_COMPUTED:
+        _field(comp, key, "computed")
+    t = inp.info_fractions
+    k_looks = t.size
+    treatments = inp.arms[1:]
+    # sizes
+    ss = _mapping("computed.sample_size", comp["sample_size"])
+    _no_extra(ss, {m.name for m in inp.metrics}, "computed.sample_size")
+    sizes: dict[str, dict[str, np.ndarray]] = {}
+    for m in inp.metrics:
+        where = f"computed.sample_size.{m.name}"
+        per_arm = _mapping(where, _field(ss, m.name, "computed.sample_size"))
+        _no_extra(per_arm, set(inp.arms), where)
+        sizes[m.name] = {}
+        for arm in inp.arms:
+            v = _numbers(f"{where}.{arm}", _field(per_arm, arm, where), length=k_looks,
+                         missing=np.nan, lo=0.0, hi=1e15)
+            if np.any(np.isnan(v)) or np.any(v != np.round(v)) or np.any(np.diff(v) < 0):
+                raise PlanDocumentError(f"{where}.{arm}: got {v.tolist()}; allowed are "
+                                        "whole numbers that do not decrease",
+                                        field=f"{where}.{arm}")
+            sizes[m.name][arm] = v.astype(int)
+    # comparisons
+    rows = comp["comparisons"]
+    expected = _expected_comparisons(inp)
+    if not isinstance(rows, list) or len(rows) != len(expected):
+        raise PlanDocumentError(f"computed.comparisons: got {checks.show(rows)}; allowed is "
+                                f"one entry per comparison ({len(expected)})",
+                                field="computed.comparisons")
+    by_name = {m.name: m for m in inp.metrics}
+    comps: list[Comparison] = []
+    h = 0
+    for i, (row, (arm, metric, role)) in enumerate(zip(rows, expected, strict=True)):
+        where = f"computed.comparisons[{i}]"
+        d = _mapping(where, row)
+        _no_extra(d, _EXP_COMPARISON, where)
+        for key in _EXP_COMPARISON:
+            _field(d, key, where)
+        for key, want in (("arm", arm), ("metric", metric), ("role", role)):
+            if d[key] != want:
+                raise PlanDocumentError(f"{where}.{key}: got {checks.show(d[key])}; allowed "
+                                        f"is {want!r} (comparisons are listed primaries "
+                                        "first, by metric, then arm)", field=f"{where}.{key}")
+        m = by_name[metric]
+        q = inp.allocations[treatments.index(arm)]
+        level = _check(f"{where}.level", checks.number, d["level"], lo=0.0, hi=1.0)
+        eff_z = _numbers(f"{where}.efficacy_z", d["efficacy_z"], length=k_looks,
+                         missing=np.inf, lo=-50.0, hi=50.0)
+        fut_z = None
+        if d["futility_z"] is not None:
+            fut_z = _numbers(f"{where}.futility_z", d["futility_z"], length=k_looks,
+                             missing=-np.inf, lo=-50.0, hi=50.0)
+        if (fut_z is None) != (role == "guardrail" or inp.futility is None):
+            raise PlanDocumentError(f"{where}.futility_z: present exactly for primaries of a "
+                                    "plan with a futility boundary", field=f"{where}.futility_z")
+        cum = _numbers(f"{where}.cumulative_alpha", d["cumulative_alpha"], length=k_looks,
+                       missing=np.nan, lo=0.0, hi=1.0)
+        drift = _check(f"{where}.drift", checks.number, d["drift"], lo=0.0, hi=1e3,
+                       lo_open=True)
+        pw = None if d["planned_power"] is None else _check(
+            f"{where}.planned_power", checks.number, d["planned_power"], lo=0.0, hi=1.0)
+        if role == "primary":
+            plan = Plan(alpha=level if level > 0 else inp.alpha, sides=inp.sides,
+                        power=inp.power, info_fractions=t, efficacy_z=eff_z,
+                        futility_z=fut_z, drift=drift, efficacy=inp.efficacy,
+                        futility=inp.futility, binding=inp.binding,
+                        metric=m.comparison_metric(q), r=inp.r, cumulative_alpha=cum,
+                        n_control=sizes[metric][inp.arms[0]], n_treatment=sizes[metric][arm])
+            comps.append(Comparison(arm, metric, role, q, level, plan, pw, h))
+            h += 1
+        else:
+            assert m.alpha is not None and m.spending is not None
+            plan = Plan(alpha=m.alpha, sides=1, power=m.power or inp.power,
+                        info_fractions=t, efficacy_z=eff_z, futility_z=None, drift=drift,
+                        efficacy=m.spending, futility=None, binding=False,
+                        metric=m.comparison_metric(q), r=inp.r, cumulative_alpha=cum,
+                        n_control=sizes[metric][inp.arms[0]], n_treatment=sizes[metric][arm])
+            comps.append(Comparison(arm, metric, role, q, level, plan, pw))
+    # the Dunnett-type boundaries' errors
+    dn = None
+    dunnett_expected = inp.method == "dunnett" and len(treatments) > 1
+    if (comp["dunnett"] is None) == dunnett_expected:
+        raise PlanDocumentError("computed.dunnett: present exactly for the dunnett method "
+                                "with more than one treatment", field="computed.dunnett")
+    if dunnett_expected:
+        dd = _mapping("computed.dunnett", comp["dunnett"])
+        _no_extra(dd, _EXP_DUNNETT, "computed.dunnett")
+        got = {key: _numbers(f"computed.dunnett.{key}", _field(dd, key, "computed.dunnett"),
+                             length=k_looks, missing=0.0, lo=0.0, hi=1.0)
+               for key in ("z_error", "family_error", "standard_error")}
+        paths = _check("computed.dunnett.paths", checks.whole, _field(dd, "paths",
+                                                                      "computed.dunnett"),
+                       lo=1)
+        from seqtest.core.multiarm import DunnettBounds
+        dn = DunnettBounds(comps[0].plan.efficacy_z, got["family_error"],
+                           got["standard_error"], got["z_error"], paths)
+    plan_ = ExperimentPlan(
+        arms=inp.arms, allocations=inp.allocations, metrics=inp.metrics, alpha=inp.alpha,
+        sides=inp.sides, power=inp.power, info_fractions=t, efficacy=inp.efficacy,
+        futility=inp.futility, binding=inp.binding, method=inp.method, weights=inp.weights,
+        transitions=inp.transitions, power_for=inp.power_for, r=inp.r,
+        comparisons=tuple(comps), sizes=sizes, dunnett=dn)
+    # the errors the plan promises follow from the inputs alone
+    errors = _mapping("computed.errors", comp["errors"])
+    if errors != plan_.errors:
+        raise PlanDocumentError("computed.errors: the document's promised error rates are "
+                                "not those of its inputs; the document was edited",
+                                field="computed.errors")
+    if trust:
+        return plan_
+    _verify_experiment(plan_, design_experiment(inp))
+    return plan_
+
+
+def _verify_experiment(plan: ExperimentPlan, fresh: ExperimentPlan) -> None:
+    """Compare a document's numbers with a recomputation (module docstring)."""
+    tol = SAME_RELEASE_TOLERANCE
+    z_tol: np.ndarray | float = tol
+    drift_rel = power_abs = users_rel = tol
+    if fresh.dunnett is not None:
+        z_err = np.asarray(fresh.dunnett.z_error, float)
+        z_tol = DUNNETT_Z_ERRORS * z_err + tol
+        worst = float(DUNNETT_Z_ERRORS * np.max(z_err))
+        drift = float(fresh.comparisons[0].plan.drift)
+        # a boundary moved by dz moves the drift by about dz, the power by at most
+        # dz times the normal density's peak (0.4), users by twice the drift's share
+        drift_rel = worst / drift + tol
+        power_abs = 0.4 * worst + tol
+        users_rel = 2.0 * drift_rel
+    rows: list[tuple[str, Any, Any, Any, bool]] = []
+    for i, (c, f) in enumerate(zip(plan.comparisons, fresh.comparisons, strict=True)):
+        where = f"computed.comparisons[{i}]"
+        rows += [(f"{where}.level", c.level, f.level, tol, False),
+                 (f"{where}.efficacy_z", c.plan.efficacy_z, f.plan.efficacy_z,
+                  z_tol if c.role == "primary" else tol, False),
+                 (f"{where}.cumulative_alpha", c.plan.cumulative_alpha,
+                  f.plan.cumulative_alpha, tol, False),
+                 (f"{where}.drift", c.plan.drift, f.plan.drift,
+                  drift_rel if c.role == "primary" else tol, True),
+                 (f"{where}.planned_power", math.nan if c.planned_power is None
+                  else c.planned_power, math.nan if f.planned_power is None
+                  else f.planned_power, power_abs, False)]
+        if c.plan.futility_z is not None:
+            assert f.plan.futility_z is not None
+            rows.append((f"{where}.futility_z", c.plan.futility_z, f.plan.futility_z,
+                         2.0 * np.max(z_tol) + tol if fresh.dunnett is not None else tol,
+                         False))
+    for m, per_arm in plan.sizes.items():
+        for arm, v in per_arm.items():
+            new = fresh.sizes[m][arm]
+            rows.append((f"computed.sample_size.{m}.{arm}", v, new,
+                         0.5 + users_rel * float(np.max(new)), False))
+    if plan.dunnett is not None:
+        assert fresh.dunnett is not None
+        se = np.asarray(fresh.dunnett.standard_error, float)
+        rows += [("computed.dunnett.family_error", plan.dunnett.family_error,
+                  fresh.dunnett.family_error, DUNNETT_Z_ERRORS * se + tol, False),
+                 ("computed.dunnett.z_error", plan.dunnett.z_error, fresh.dunnett.z_error,
+                  0.5 * np.asarray(fresh.dunnett.z_error) + tol, False),
+                 ("computed.dunnett.standard_error", plan.dunnett.standard_error, se,
+                  0.5 * se + tol, False)]
+    for path, stored, new, tolerance, relative in rows:
+        a = np.atleast_1d(np.asarray(stored, float))
+        b = np.atleast_1d(np.asarray(new, float))
+        same = (np.isinf(a) & np.isinf(b) & (np.sign(a) == np.sign(b))) \
+            | (np.isnan(a) & np.isnan(b))
+        with np.errstate(invalid="ignore"):
+            diff = np.abs(a - b) / (np.abs(b) if relative else 1.0)
+        bad = ~same & ~(diff <= np.broadcast_to(np.asarray(tolerance, float), diff.shape))
+        if bad.any():
+            j = int(np.argmax(bad))
+            where = f"{path}[{j}]" if a.size > 1 else path
+            raise PlanDocumentError(
+                f"{where}: the document says {a[j]:.6g} but its inputs give {b[j]:.6g}; the "
+                "computed numbers were changed after the plan was designed (or belong to "
+                "other inputs). Design the experiment again ('seqtest plan' or "
+                "seqtest.experiment_plan) instead of editing it.", field=where)

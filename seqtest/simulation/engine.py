@@ -894,11 +894,22 @@ def _pre_period_sums(rng: np.random.Generator, m: np.ndarray, p: dict
 
 def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict,
                 tick: Callable[[float], None] | None = None) -> dict:
+    return draw_totals(job.data_kind, rng, cum, p, tick, metric_kind=job.kind)
+
+
+def draw_totals(kind: str, rng: np.random.Generator, cum: np.ndarray, p: dict,
+                tick: Callable[[float], None] | None = None, *,
+                metric_kind: str | None = None) -> dict:
+    """Cumulative totals of one arm (replicates x looks) with cumulative units ``cum``,
+    drawn increment by increment from the data model ``kind`` with parameters ``p``
+    (see the module docstring); ``metric_kind``, the kind of metric the totals are for,
+    picks the totals a data model gives (counts as a robust count metric's per-unit
+    sums or as a rate's events over exposure; pre-period data with or without the
+    covariate)."""
     m = np.ascontiguousarray(np.broadcast_to(_increments(cum), cum.shape))
-    kind = job.data_kind
     if kind == "binary":
         return {"n": cum, "successes": np.cumsum(rng.binomial(m, p["p"]), axis=1)}
-    if kind == "counts" and job.kind == "count":
+    if kind == "counts" and metric_kind == "count":
         ev, ev2 = _unit_sums(rng, m, _count_draw(p), tick)
         return {"n": cum, "events": np.cumsum(ev, axis=1),
                 "events_sq": np.cumsum(ev2, axis=1)}
@@ -912,7 +923,7 @@ def _arm_totals(job: _Job, rng: np.random.Generator, cum: np.ndarray, p: dict,
         fields = ("sum", "sum_sq", "covariate", "covariate_sq", "cross")
         out = {"n": cum, **{f: np.cumsum(v, axis=1) for f, v in zip(fields, pre,
                                                                     strict=True)}}
-        if job.kind == "continuous":
+        if metric_kind == "continuous":
             return {f: out[f] for f in ("n", "sum", "sum_sq")}
         return out
     if kind == "counts":

@@ -62,6 +62,7 @@ __all__ = [
     "TRAFFIC_MODES",
     "Scenario",
     "load_scenario",
+    "read_document",
     "scenario_from_dict",
 ]
 
@@ -492,6 +493,19 @@ def load_scenario(path: str | Path) -> Scenario:
         For a missing or unreadable file, a syntax error (with its line), or an
         invalid field.
     """
+    return scenario_from_dict(read_document(path))
+
+
+def read_document(path: str | Path) -> Any:
+    """The parsed document of a scenario file (``.toml`` or ``.json``), not yet
+    validated (:func:`load_scenario` validates it; an experiment scenario is read by
+    :func:`seqtest.simulation.experiment.experiment_scenario_from_dict`).
+
+    Raises
+    ------
+    ValueError
+        For a missing or unreadable file, or a syntax error (with its line).
+    """
     p = Path(path)
     if not p.is_file():
         raise ValueError(f"scenario: {str(p)!r} does not exist or is not a file")
@@ -517,4 +531,4 @@ def load_scenario(path: str | Path) -> Scenario:
             raise ValueError(f"scenario: {str(p)!r} is not valid TOML ({exc})") from None
     else:
         raise ValueError(f"scenario: got {str(p)!r}; allowed are .toml and .json files")
-    return scenario_from_dict(doc)
+    return doc
