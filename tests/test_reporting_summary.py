@@ -338,3 +338,32 @@ def test_signs_percent_and_p_values():
     assert num.days(2.99) == "3.0 days" and num.days(11.9) == "12 days"
     assert num.level_text(0.05) == "95%" and num.level_text(0.025) == "97.5%"
     assert num.fixed(None, 2) == "-" and num.fixed(float("inf"), 2) == "inf"
+
+
+# a ratio, an adjusted mean and a count per user are named as such in the sentences,
+# not as "the metric" (the totals: 1,000 users an arm, the treatment higher)
+_KIND_LOOKS = {
+    "ratio": ({"n": 1000, "numerator": 5000.0, "denominator": 2000.0,
+               "numerator_sq": 40000.0, "denominator_sq": 5000.0, "cross": 12000.0},
+              {"n": 1000, "numerator": 5600.0, "denominator": 2000.0,
+               "numerator_sq": 48000.0, "denominator_sq": 5000.0, "cross": 13500.0}),
+    "adjusted": ({"n": 1000, "sum": 10000.0, "sum_sq": 104000.0, "covariate": 9000.0,
+                  "covariate_sq": 85000.0, "cross": 92000.0},
+                 {"n": 1000, "sum": 10400.0, "sum_sq": 112000.0, "covariate": 9000.0,
+                  "covariate_sq": 85000.0, "cross": 95600.0}),
+    "count": ({"n": 1000, "events": 2000.0, "events_sq": 9000.0},
+              {"n": 1000, "events": 2300.0, "events_sq": 10500.0}),
+}
+
+
+@pytest.mark.parametrize("kind, noun", [("ratio", "the ratio"),
+                                        ("adjusted", "the covariate-adjusted mean"),
+                                        ("count", "the count per user")])
+def test_new_metric_kinds_are_named_in_the_summary(kind, noun):
+    plan = seqtest.design(alpha=0.05, sides=2, power=0.9, looks=3)
+    control, treatment = _KIND_LOOKS[kind]
+    a = seqtest.analyze(plan, [{"control": control, "treatment": treatment}],
+                        metric=kind, max_n=6000)
+    text = summarize(a).text
+    assert noun in text.lower(), text
+    assert "the metric" not in text.lower()

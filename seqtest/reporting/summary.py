@@ -47,7 +47,9 @@ __all__ = [
 ]
 
 _SRM_WARNING = re.compile(r"^look (\d+): Sample ratio mismatch")
-_NOUNS = {"binary": "the success rate", "continuous": "the mean", "rate": "the event rate"}
+_NOUNS = {"binary": "the success rate", "continuous": "the mean", "rate": "the event rate",
+          "ratio": "the ratio", "adjusted": "the covariate-adjusted mean",
+          "count": "the count per user"}
 
 
 def analysis_record(analysis: Any) -> dict:
