@@ -516,14 +516,13 @@ def _job(plan: ExperimentPlan, sc: ExperimentScenario, seed: int, chunk: int) ->
     for c in plan.primaries:
         m = plan.metric_by_name(c.metric)
         e = _effect_on_scale(m.scale, means[c.metric][plan.control], means[c.metric][c.arm])
-        oe = m.orientation * e
-        true_null.append(abs(oe - m.margin) <= 1e-12 if plan.sides == 2
-                         else oe <= m.margin + 1e-12)
+        away = m.orientation * (e - m.margin)     # > 0: on the tested side of the null
+        true_null.append(abs(away) <= 1e-12 if plan.sides == 2 else away <= 1e-12)
     no_harm = []
     for c in plan.guardrails:
         m = plan.metric_by_name(c.metric)
         e = _effect_on_scale(m.scale, means[c.metric][plan.control], means[c.metric][c.arm])
-        no_harm.append(m.orientation * e <= m.margin + 1e-12)
+        no_harm.append(m.orientation * (e - m.margin) <= 1e-12)
     return _Job(plan, _groups(sc), params, counts, _frames(plan, counts, times), times,
                 np.asarray(true_null, bool), np.asarray(no_harm, bool),
                 sc.futility == "obey", int(seed), chunk)
