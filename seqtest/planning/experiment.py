@@ -438,7 +438,8 @@ def _checked_metric(where: str, name: str, d: dict, role: str, better: str) -> d
 def _metric(i: int, spec: Any, single: bool) -> ExperimentMetric:
     where = f"metrics[{i}]"
     if isinstance(spec, Mapping) and "direction" in spec:
-        raise checks.fail(f"{where}.direction", spec["direction"],
+        who = f" ({spec['name']})" if isinstance(spec.get("name"), str) else ""
+        raise checks.fail(f"{where}.direction{who}", spec["direction"],
                           "left out: say which way of the metric is good with better "
                           "(higher or lower), and give mde and margin signed on the "
                           "metric's scale (treatment minus control)")
@@ -448,20 +449,24 @@ def _metric(i: int, spec: Any, single: bool) -> ExperimentMetric:
     if name is None:
         raise checks.fail(f"{where}.name", None, "a name for each metric of an experiment "
                           "with several metrics")
-    role = str(checks.choice(f"{where}.role", d.get("role", "primary"), ROLES))
+
+    def at(field_: str) -> str:
+        return f"{where}.{field_} ({name})"
+
+    role = str(checks.choice(at("role"), d.get("role", "primary"), ROLES))
     if d.get("better") is None:
         if role == "guardrail":
-            raise checks.fail(f"{where}.better", None,
+            raise checks.fail(at("better"), None,
                               f"higher or lower: which way of the guardrail {name!r} is "
                               "good (harm is a move the other way)")
         better = "higher"
     else:
-        better = str(checks.choice(f"{where}.better", d["better"], BETTER))
-    margin = checks.number(f"{where}.margin", d.get("margin", 0.0),
+        better = str(checks.choice(at("better"), d["better"], BETTER))
+    margin = checks.number(at("margin"), d.get("margin", 0.0),
                            allowed="a number on the metric's scale (the null value of "
                                    "the effect, treatment minus control)")
     if "mde" not in d:
-        raise checks.fail(f"{where}.mde", None,
+        raise checks.fail(at("mde"), None,
                           "the effect to detect, treatment minus control on the metric's "
                           "scale (signed: on the better side of the margin for a primary, "
                           "the harm beyond the margin for a guardrail)")
@@ -469,7 +474,7 @@ def _metric(i: int, spec: Any, single: bool) -> ExperimentMetric:
     hypothesis: str | None
     if role == "guardrail":
         if d.get("hypothesis") is not None:
-            raise checks.fail(f"{where}.hypothesis", d["hypothesis"],
+            raise checks.fail(at("hypothesis"), d["hypothesis"],
                               "left out for a guardrail (its test is one-sided, for harm "
                               "beyond its margin)")
         norm = _checked_metric(where, name, {**sizing, "better": _OTHER_SIDE[better],
@@ -485,23 +490,23 @@ def _metric(i: int, spec: Any, single: bool) -> ExperimentMetric:
     desc = {k: v for k, v in norm.items() if k in _SIZING_FIELDS}
     alpha = spend = power = None
     if role == "guardrail":
-        alpha = checks.number(f"{where}.alpha", d.get("alpha", GUARDRAIL_ALPHA), lo=0.0,
+        alpha = checks.number(at("alpha"), d.get("alpha", GUARDRAIL_ALPHA), lo=0.0,
                               hi=0.5, lo_open=True,
                               allowed="a one-sided alpha in (0, 0.5] for the harm test")
-        fn = parse_boundary(d.get("spending") or GUARDRAIL_SPENDING, f"{where}.spending")
+        fn = parse_boundary(d.get("spending") or GUARDRAIL_SPENDING, at("spending"))
         if not isinstance(fn, SpendingFunction):
-            raise checks.fail(f"{where}.spending", d.get("spending"),
+            raise checks.fail(at("spending"), d.get("spending"),
                               "a spending function (a guardrail spends its own alpha)")
         spend = fn
         if d.get("power") is not None:
-            power = checks.number(f"{where}.power", d["power"], lo=alpha, hi=1.0,
+            power = checks.number(at("power"), d["power"], lo=alpha, hi=1.0,
                                   lo_open=True, hi_open=True,
                                   allowed=f"a power above the guardrail's alpha {alpha:g} "
                                           "and below 1")
     else:
         for key in ("alpha", "spending", "power"):
             if d.get(key) is not None:
-                raise checks.fail(f"{where}.{key}", d[key], "left out for a primary metric "
+                raise checks.fail(at(key), d[key], "left out for a primary metric "
                                   "(its error and power are the experiment's)")
     return ExperimentMetric(name, role, better, margin, hypothesis, desc, alpha, spend,
                             power)
