@@ -110,7 +110,7 @@ def test_one_arm_has_its_planned_power_and_the_null_arms_hold_alpha():
 def test_runs_repeat_bit_for_bit_whatever_runs_the_chunks():
     e = experiment_plan(3, [{"name": "y", **NORMAL},
                             {"name": "g", "role": "guardrail", "kind": "binary",
-                             "baseline": 0.2, "mde": 0.05, "direction": "decrease"}],
+                             "baseline": 0.2, "mde": 0.05, "better": "lower"}],
                         alpha=0.025, sides=1, looks=3)
     sc = experiment_scenario_from_dict({"metrics": [
         {"name": "y", "data": {"kind": "normal", "mean": 0.0, "sd": 1.0},

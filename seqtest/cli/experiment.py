@@ -103,12 +103,9 @@ def make_plan(args: argparse.Namespace, metric: dict | None,
     if metric is None:
         raise UsageError("--arms: an experiment needs its metric (--metric with --mde, "
                          "--baseline or --sd), or an --experiment file")
+    # the command line's metric is the experiment's one primary: --margin, --better and
+    # --hypothesis are its fields, as for a two-arm plan
     metric.pop("allocation", None)
-    for key in ("margin", "better", "hypothesis"):
-        if metric.get(key) is not None:
-            raise UsageError(f"--{key}: for an experiment, give the metric's margin and "
-                             "direction in the --experiment file")
-        metric.pop(key, None)
     alloc = _numbers(args.allocations, "--allocations")
     if args.allocation != 1.0 and alloc is None:
         alloc = [args.allocation]
