@@ -1235,8 +1235,8 @@ def _arm_results(plan: ExperimentPlan, out: Outcome, comps: list[ComparisonResul
         elif code == Decision.STOP_EFFICACY and winner:
             ni = [c.metric for c in mine if c.role == "primary"
                   and c.direction == "treatment_non_inferior"]
-            shown = [f"better than {plan.control} on {', '.join(x for x in rejected if x not in ni)}"
-                     ] if len(ni) < len(rejected) else []
+            sup = [x for x in rejected if x not in ni]
+            shown = [f"better than {plan.control} on {', '.join(sup)}"] if sup else []
             if ni:
                 shown.append(f"not worse than {plan.control} by more than the margin on "
                              f"{', '.join(ni)}")

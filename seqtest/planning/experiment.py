@@ -743,7 +743,7 @@ class ExperimentPlan:
                              f"{m.alpha:g} per arm ({m.spending.label if m.spending else ''})"
                              f", harm beyond {m.margin:g} ({m.better} is better).")
             elif m.hypothesis == "non_inferiority" or m.margin != 0:
-                lines.append(f"Primary {m.name!r}: {m.hypothesis.replace('_', '-')} "
+                lines.append(f"Primary {m.name!r}: {str(m.hypothesis).replace('_', '-')} "
                              f"against a margin of {m.margin:g} ({m.better} is better).")
         for m in self.metrics:
             sizes = ", ".join(f"{a} {int(self.sizes[m.name][a][-1]):,}" for a in self.arms)

@@ -548,7 +548,8 @@ def _job(plan: ExperimentPlan, sc: ExperimentScenario, seed: int, chunk: int) ->
         m = plan.metric_by_name(c.metric)
         e = _effect_on_scale(m.scale, means[c.metric][plan.control], means[c.metric][c.arm])
         no_harm.append(m.orientation * (e - m.margin) <= 1e-12)
-    return _Job(plan, _groups(sc, {m.name: m.kind for m in plan.metrics}), params, counts, _frames(plan, counts, times), times,
+    groups = _groups(sc, {m.name: m.kind for m in plan.metrics})
+    return _Job(plan, groups, params, counts, _frames(plan, counts, times), times,
                 np.asarray(true_null, bool), np.asarray(no_harm, bool),
                 sc.futility == "obey", int(seed), chunk)
 
