@@ -29,7 +29,9 @@ def add_experiment_options(p: argparse.ArgumentParser) -> None:
     g = p.add_argument_group("experiments (one control, 1 to 8 treatments)")
     g.add_argument("--arms", default=None, metavar="N|NAMES",
                    help="design an experiment: the number of arms (2 to 9, the control "
-                        "included) or their names, the control first (control,blue,green)")
+                        "included) or their names, the control first (control,blue,green); "
+                        "the metric options (--metric, --mde, --margin, --better, "
+                        "--hypothesis, ...) describe its one primary metric")
     g.add_argument("--allocations", default=None, metavar="A,...",
                    help="treatment users per control user, one per treatment or one for "
                         "all (1)")
