@@ -156,7 +156,7 @@ def test_a_guardrail_is_sized_as_the_two_arm_harm_test():
     # reference: the two-arm one-sided plan whose better side is the guardrail's harm
     # side, at the guardrail's alpha and spending
     g = {"kind": "count", "baseline": 1.5, "sd": 2.0, "mde": 0.2, "margin": 0.05}
-    e = experiment_plan(2, [{"name": "y", "kind": "binary", "baseline": 0.3, "mde": 0.01},
+    e = experiment_plan(2, [{"name": "y", "kind": "binary", "baseline": 0.3, "mde": 0.2},
                             {"name": "g", "role": "guardrail", "better": "lower",
                              "alpha": 0.05, "power": 0.8, **g}],
                         alpha=0.025, sides=1, looks=3)
@@ -164,9 +164,9 @@ def test_a_guardrail_is_sized_as_the_two_arm_harm_test():
                          metric={**g, "better": "higher", "hypothesis": "superiority"})
     c = e.comparison("treatment", "g")
     np.testing.assert_array_equal(c.plan.efficacy_z, two.efficacy_z)
-    # the guardrail alone would need two's users; the primary needs more here
-    assert e.max_n("g", "control") >= two.n_control[-1]
-    assert c.planned_power >= 0.8 - 1e-9
+    # the primary (mde 0.2) needs fewer users: the guardrail sizes the experiment
+    assert e.max_n("g", "control") == two.n_control[-1] == e.max_n("y", "control")
+    assert c.planned_power == pytest.approx(0.8, abs=1e-6)
     assert c.plan.metric["better"] == "higher" and c.plan.metric["margin"] == 0.05
 
 
