@@ -128,8 +128,7 @@ class MetricData:
         The control's parameters.
     effect_type : {"difference", "relative", "mde_multiple"}
         How the effects are given; ``mde_multiple`` is a multiple of the metric's
-        mde in the direction the plan tests (better for a primary, harm for a
-        guardrail).
+        signed ``mde`` (a primary's effect to detect, a guardrail's harm to detect).
     effects : dict
         True effect per treatment arm (arms left out: 0).
     """
