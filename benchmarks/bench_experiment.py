@@ -114,7 +114,7 @@ def main() -> None:
 
     print("3. one primary and five guardrails, one treatment, third look")
     guards = [{"name": f"guard_{i}", "role": "guardrail", "kind": "continuous",
-               "sd": 1.0, "mde": 0.05, "direction": "decrease"} for i in range(5)]
+               "sd": 1.0, "mde": 0.05, "better": "lower"} for i in range(5)]
     p = experiment_plan(2, [METRIC, *guards], alpha=0.025, sides=1, looks=5)
     rng = np.random.default_rng(3)
     looks = []

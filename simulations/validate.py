@@ -405,7 +405,7 @@ def _experiment_cells(full: bool, reps: int) -> list[tuple]:
                              "seed_key": f"experiment-power-k{k}-{conf}"}))
     # a guardrail's harm detection against its planned power; the composed decision
     guard = {"name": "load", "role": "guardrail", "kind": "continuous", "sd": 1.0,
-             "mde": 0.08, "margin": 0.02, "direction": "decrease", "alpha": 0.05,
+             "mde": 0.08, "margin": 0.02, "better": "lower", "alpha": 0.05,
              "power": 0.8}
     gplan = {"experiment": {"arms": 3, "metrics": [EXP_METRIC, guard], "alpha": 0.025,
                             "sides": 1, "looks": 5}}
@@ -422,9 +422,9 @@ def _experiment_cells(full: bool, reps: int) -> list[tuple]:
         "metrics": [{"name": "orders", "kind": "binary", "baseline": 0.10, "mde": 0.02},
                     {"name": "signup", "kind": "binary", "baseline": 0.30, "mde": 0.03},
                     {"name": "load", "role": "guardrail", "kind": "continuous", "sd": 1.0,
-                     "mde": 0.1, "direction": "decrease", "alpha": 0.02},
+                     "mde": 0.1, "better": "lower", "alpha": 0.02},
                     {"name": "refunds", "role": "guardrail", "kind": "continuous",
-                     "sd": 2.0, "mde": 0.2, "direction": "decrease", "alpha": 0.02}]}}
+                     "sd": 2.0, "mde": 0.2, "better": "lower", "alpha": 0.02}]}}
     cdata = [{"name": "orders", "data": {"kind": "binary", "rate": 0.10}},
              {"name": "signup", "data": {"kind": "binary", "rate": 0.30}},
              {"name": "load", "data": {"kind": "normal", "mean": 1.0, "sd": 1.0}},

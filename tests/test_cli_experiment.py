@@ -46,11 +46,40 @@ def test_plan_dunnett_and_an_experiment_file(tmp_path, capsys):
     spec = {"arms": ["control", "a", "b"], "alpha": 0.025, "sides": 1, "looks": 2,
             "metrics": [{"name": "orders", "kind": "binary", "baseline": 0.1, "mde": 0.02},
                         {"name": "load", "role": "guardrail", "kind": "continuous",
-                         "sd": 1.0, "mde": 0.1, "direction": "decrease"}]}
+                         "sd": 1.0, "mde": 0.1, "better": "lower"}]}
     f = tmp_path / "spec.json"
     f.write_text(json.dumps(spec))
     rc, out, _ = run(["plan", "--experiment", str(f)], capsys)
     assert rc == 0 and "guardrail harm test: a/load, b/load (level 0.05)" in out
+
+
+def test_margin_better_and_hypothesis_apply_to_the_command_line_metric(tmp_path, capsys):
+    # the same spelling as a two-arm plan; references: seqtest.experiment_plan with the
+    # same metric, and (one treatment) the two-arm plan seqtest.design makes of it
+    import seqtest
+    opts = ["--metric", "rate", "--baseline", "2.0", "--mde", "-0.1", "--better", "lower",
+            "--margin", "0.05", "--hypothesis", "non_inferiority", "--sides", "1",
+            "--alpha", "0.025", "--looks", "3"]
+    metric = {"kind": "rate", "baseline": 2.0, "mde": -0.1, "better": "lower",
+              "margin": 0.05, "hypothesis": "non_inferiority"}
+    target = tmp_path / "exp.json"
+    rc, out, _ = run(["plan", "--arms", "3", *opts, "--json", str(target)], capsys)
+    assert rc == 0, out
+    ref = experiment_plan(3, metric, alpha=0.025, sides=1, looks=3)
+    assert plan_from_dict(json.loads(target.read_text())) == ref
+    assert ref.metrics[0].better == "lower" and ref.metrics[0].margin == 0.05
+    assert "non-inferiority against a margin of 0.05" in out
+    rc, out, _ = run(["plan", "--arms", "2", *opts, "--json", str(target)], capsys)
+    assert rc == 0
+    two = seqtest.design(alpha=0.025, sides=1, looks=3, metric=metric)
+    one = plan_from_dict(json.loads(target.read_text()))
+    assert one.comparisons[0].plan == two
+    assert one.max_n("rate", "control") == two.n_control[-1]
+    # a margin on the wrong side is refused as for a two-arm plan, in one line
+    rc, _, err = run(["plan", "--arms", "3", *opts[:-6], "--hypothesis", "superiority",
+                      "--sides", "1"], capsys)
+    assert rc == 2 and "metrics[0].margin (rate): got 0.05 for a superiority test" in err
+    assert err.count("\n") == 1
 
 
 def test_bad_experiment_options_give_one_line(capsys):
@@ -102,7 +131,7 @@ def test_analyze_json_looks_with_several_metrics_and_bad_looks(tmp_path, capsys)
     plan = experiment_plan(["control", "a"], [
         {"name": "orders", "kind": "binary", "baseline": 0.1, "mde": 0.02},
         {"name": "load", "role": "guardrail", "kind": "continuous", "sd": 1.0, "mde": 0.1,
-         "direction": "decrease"}], alpha=0.025, sides=1, looks=2)
+         "better": "lower"}], alpha=0.025, sides=1, looks=2)
     plan_path = tmp_path / "exp.json"
     plan_path.write_text(json.dumps(plan.to_dict()))
     n = int(plan.sizes["orders"]["control"][0])

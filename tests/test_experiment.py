@@ -207,7 +207,7 @@ def test_unequal_allocations_size_every_arm_from_the_control():
 def test_a_guardrail_with_a_power_enters_the_sizing():
     base = [{"name": "orders", **BINARY}]
     g = {"name": "load", "role": "guardrail", "kind": "continuous", "sd": 1.0, "mde": 0.02,
-         "direction": "decrease", "alpha": 0.05}
+         "better": "lower", "alpha": 0.05}
     e1 = experiment_plan(3, base + [g], alpha=0.025, sides=1, looks=3)
     e2 = experiment_plan(3, base + [{**g, "power": 0.8}], alpha=0.025, sides=1, looks=3)
     assert e1.guardrails[0].planned_power < 0.8
@@ -220,13 +220,13 @@ def test_a_guardrail_with_a_power_enters_the_sizing():
 def test_planned_power_inverts_the_sizing(metric):
     # the power at a comparison's own size is its plan's power (both directions of
     # the score test's sizing, and the drift of continuous metrics)
-    from seqtest.planning.experiment import _control_size, _power_at
-    e = experiment_plan(2, {**metric, "margin": metric["mde"] / 4}, alpha=0.025, sides=1,
+    from seqtest.planning.sizing import max_control, power_at
+    e = experiment_plan(2, {**metric, "margin": metric["mde"] / 4,
+                            "hypothesis": "superiority"}, alpha=0.025, sides=1,
                         looks=4, futility="pocock-type")
     c = e.primaries[0]
-    m = e.metrics[0]
-    n = _control_size(c.plan, c.plan.metric, m.null)
-    assert _power_at(c.plan, c.plan.metric, m.null, n) == pytest.approx(0.9, abs=1e-7)
+    n = max_control(c.plan, c.plan.metric)[0]
+    assert power_at(c.plan, c.plan.metric, n) == pytest.approx(0.9, abs=1e-7)
 
 
 # ---------------------------------------------------------------------------------
@@ -303,7 +303,7 @@ def _gplan(**kw):
         ["control", "a", "b"],
         [{"name": "orders", **BINARY},
          {"name": "load", "role": "guardrail", "kind": "continuous", "sd": 1.0,
-          "mde": 0.1, "direction": "decrease", "margin": 0.02, "alpha": 0.05}],
+          "mde": 0.1, "better": "lower", "margin": 0.02, "alpha": 0.05}],
         alpha=0.025, sides=1, looks=3, **kw)
 
 
@@ -405,11 +405,14 @@ def test_an_arm_posted_twice_is_refused():
                            "role": "guardrail", "name": "load"}]}, "metrics[0].name"),
     ({"metrics": [{**BINARY, "name": "x"}, {"kind": "continuous", "sd": 1, "mde": 0.1,
                                             "role": "guardrail", "name": "load"}]},
-     "metrics[1].direction"),
+     "metrics[1].better"),
     ({"metrics": {**BINARY, "mde": -0.02}}, "metrics[0].mde"),
-    ({"metrics": {**BINARY, "margin": 0.03}}, "metrics[0].mde"),
-    ({"metrics": [{"name": "g", "role": "guardrail", "direction": "increase", **NORMAL}]},
-     "metrics"),
+    ({"metrics": {**BINARY, "margin": 0.03, "hypothesis": "superiority"}},
+     "metrics[0].mde"),
+    ({"metrics": {**BINARY, "margin": 0.005}}, "metrics[0].hypothesis"),
+    ({"metrics": {**BINARY, "direction": "increase"}}, "metrics[0].direction"),
+    ({"metrics": [{"name": "g", "role": "guardrail", "better": "higher", **NORMAL,
+                   "mde": -0.1}]}, "metrics"),
     ({"method": "dunnett", "metrics": [{**BINARY, "name": "a"}, {**NORMAL, "name": "b"}]},
      "method"),
     ({"weights": [0.9, 0.9]}, "weights"),
@@ -446,8 +449,9 @@ def test_margins_and_directions_orient_the_test():
     # a metric better when it decreases, with a margin of 0.05: the null is a decrease
     # of 0.05, and a decrease of 0.45 (z = -0.40 / 0.109 = -3.7 against it, beyond the
     # first look's 2.96) rejects
-    e = experiment_plan(["control", "a"], {**NORMAL, "mde": 0.3, "direction": "decrease",
-                                           "margin": 0.05}, alpha=0.025, sides=1, looks=2)
+    e = experiment_plan(["control", "a"], {**NORMAL, "mde": -0.3, "better": "lower",
+                                           "margin": -0.05, "hypothesis": "superiority"},
+                        alpha=0.025, sides=1, looks=2)
     n = int(e.sizes["continuous"]["control"][0])
     look = {"control": {"n": n, "mean": 5.0, "sd": 1.0},
             "a": {"n": n, "mean": 4.55, "sd": 1.0}}

@@ -110,7 +110,7 @@ def test_one_arm_has_its_planned_power_and_the_null_arms_hold_alpha():
 def test_runs_repeat_bit_for_bit_whatever_runs_the_chunks():
     e = experiment_plan(3, [{"name": "y", **NORMAL},
                             {"name": "g", "role": "guardrail", "kind": "binary",
-                             "baseline": 0.2, "mde": 0.05, "direction": "decrease"}],
+                             "baseline": 0.2, "mde": 0.05, "better": "lower"}],
                         alpha=0.025, sides=1, looks=3)
     sc = experiment_scenario_from_dict({"metrics": [
         {"name": "y", "data": {"kind": "normal", "mean": 0.0, "sd": 1.0},
@@ -157,3 +157,52 @@ def test_bad_correlations_are_refused(corr, message):
         sc = experiment_scenario_from_dict(doc)
         from seqtest.simulation.experiment import _groups
         _groups(sc)
+
+
+def test_a_count_metric_experiment_holds_its_error_and_power():
+    # count metrics (per-user counts, robust variance) drawn by the two-arm simulator's
+    # data model (negative binomial counts, shape 2). treatment_2 is a true null, so the
+    # family-wise error is its rejection rate: at most 0.025 (one-sided, Holm over two
+    # arms) up to Monte Carlo error, 4 standard errors of 20,000 replicates at 0.025 =
+    # 4 sqrt(0.025 x 0.975 / 20,000) = 0.0044. treatment_1 has the mde: its power is at
+    # least the planned 0.9 at its initial level (alpha passed on only adds), less 4
+    # standard errors sqrt(0.09 / 20,000) = 0.0085
+    metric = {"name": "visits", "kind": "count", "baseline": 1.5, "dispersion": 2.0,
+              "mde": 0.3}
+    e = experiment_plan(3, metric, alpha=0.025, sides=1, looks=3)
+    sc = experiment_scenario_from_dict({"metrics": [
+        {"name": "visits", "data": {"kind": "counts", "rate": 1.5, "dispersion": 2.0},
+         "effects": {"treatment_1": 1.0}, "effect_type": "mde_multiple"}]})
+    n = 20_000
+    res = simulate_experiment(e, sc, n, seed=11)
+    assert res.true_nulls == ["treatment_2/visits"]
+    assert res.rate <= 0.025 + 4 * math.sqrt(0.025 * 0.975 / n)
+    power = res.hypotheses["treatment_1/visits"]
+    assert power.planned == pytest.approx(0.9, abs=1e-6)
+    assert power.rate >= 0.9 - 4 * math.sqrt(0.09 / n)
+
+
+def test_new_kinds_draw_the_totals_their_metric_reads():
+    # a rate, a ratio and an adjusted metric side by side: each gets its kind's totals
+    # (seqtest.monitoring.metrics.METRIC_FIELDS) and the run is repeatable
+    from seqtest.monitoring.metrics import METRIC_FIELDS
+    from seqtest.simulation.experiment import prepare_experiment
+    e = experiment_plan(2, [
+        {"name": "r", "kind": "rate", "baseline": 2.0, "mde": 0.2},
+        {"name": "q", "kind": "ratio", "numerator_mean": 2.0, "denominator_mean": 4.0,
+         "numerator_sd": 3.0, "denominator_sd": 3.0, "covariance": 4.0, "mde": 0.1},
+        {"name": "a", "kind": "adjusted", "sd": 2.0, "correlation": 0.6, "mde": 0.3}],
+        alpha=0.025, sides=1, looks=2)
+    sc = experiment_scenario_from_dict({"metrics": [
+        {"name": "r", "data": {"kind": "counts", "rate": 2.0}},
+        {"name": "q", "data": {"kind": "ratio", "rate": 0.5, "denominator_mean": 4.0}},
+        {"name": "a", "data": {"kind": "pre_period", "mean": 3.0, "sd": 2.0,
+                               "correlation": 0.6}}]})
+    prep = prepare_experiment(e, sc, 10)
+    for g in prep.job.groups:
+        drawn = _draw_group(g, np.random.default_rng(0),
+                            np.broadcast_to(prep.job.counts["control"], (3, 2)),
+                            [prep.job.params[g.names[0]]["control"]])[0]
+        assert set(drawn) == set(METRIC_FIELDS[e.metric_by_name(g.names[0]).kind])
+    one = simulate_experiment(e, sc, 400, seed=2)
+    assert one.to_dict() == simulate_experiment(e, sc, 400, seed=2).to_dict()

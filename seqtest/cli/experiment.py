@@ -29,7 +29,9 @@ def add_experiment_options(p: argparse.ArgumentParser) -> None:
     g = p.add_argument_group("experiments (one control, 1 to 8 treatments)")
     g.add_argument("--arms", default=None, metavar="N|NAMES",
                    help="design an experiment: the number of arms (2 to 9, the control "
-                        "included) or their names, the control first (control,blue,green)")
+                        "included) or their names, the control first (control,blue,green); "
+                        "the metric options (--metric, --mde, --margin, --better, "
+                        "--hypothesis, ...) describe its one primary metric")
     g.add_argument("--allocations", default=None, metavar="A,...",
                    help="treatment users per control user, one per treatment or one for "
                         "all (1)")
@@ -103,12 +105,9 @@ def make_plan(args: argparse.Namespace, metric: dict | None,
     if metric is None:
         raise UsageError("--arms: an experiment needs its metric (--metric with --mde, "
                          "--baseline or --sd), or an --experiment file")
+    # the command line's metric is the experiment's one primary: --margin, --better and
+    # --hypothesis are its fields, as for a two-arm plan
     metric.pop("allocation", None)
-    for key in ("margin", "better", "hypothesis"):
-        if metric.get(key) is not None:
-            raise UsageError(f"--{key}: for an experiment, give the metric's margin and "
-                             "direction in the --experiment file")
-        metric.pop(key, None)
     alloc = _numbers(args.allocations, "--allocations")
     if args.allocation != 1.0 and alloc is None:
         alloc = [args.allocation]

@@ -533,10 +533,11 @@ class ComparisonResult:
     orientation : float
         +1 or -1: the test rejects when ``orientation * z >= efficacy_z`` (one-sided),
         ``|z| >= efficacy_z`` (two-sided); ``z`` is the effect's own statistic
-        (treatment minus control, against the null ``margin`` in the tested
-        direction), so a primary that is better when it decreases, or a guardrail
-        whose harm is an increase, has orientation -1.
+        (treatment minus control, against the null ``margin``), so a primary where
+        lower is better, or a guardrail where higher is better (harm is a decrease),
+        has orientation -1.
     margin : float
+        The null value of the effect on the metric's scale (signed, as the metric's).
     decision : Decision
         The comparison's own: ``stop_efficacy`` (a primary rejected), ``stop_harm``
         (a guardrail crossed), ``stop_futility``, ``complete_not_significant``, or
@@ -545,8 +546,9 @@ class ComparisonResult:
     arm_decision : Decision
         The arm's decision.
     direction : str or None
-        At a rejection: ``treatment_better`` or ``control_better`` in the metric's own
-        sense (better is its ``direction``); for a guardrail crossing ``harm``.
+        At a rejection: ``treatment_better``, ``treatment_non_inferior`` (a
+        non-inferiority primary) or ``control_better`` in the metric's own sense
+        (which way is good is its ``better``); for a guardrail crossing ``harm``.
     stopped_at : int or None
         1-based look of the arm's stop.
     level : float
@@ -1055,7 +1057,8 @@ def _comparison_results(plan: ExperimentPlan, series: dict[tuple[str, str], _Ser
             direction = None
             if code == _EFFICACY and s is not None:
                 zo = m.orientation * float(np.atleast_1d(s.eff.z)[_pos(s, rej)])
-                direction = "treatment_better" if zo > 0 else "control_better"
+                direction = ("control_better" if zo <= 0 else "treatment_non_inferior"
+                             if m.hypothesis == "non_inferiority" else "treatment_better")
             elif code == _HARM:
                 direction = "harm"
             fin = adj = inf_level = None
@@ -1230,8 +1233,14 @@ def _arm_results(plan: ExperimentPlan, out: Outcome, comps: list[ComparisonResul
             reason = (f"{arm} crossed the harm boundary of {', '.join(harmed)} at {look}: "
                       "stop it, whatever the primaries say")
         elif code == Decision.STOP_EFFICACY and winner:
-            reason = (f"{arm} is better than {plan.control} on {', '.join(rejected)} at "
-                      f"{look}, with no guardrail crossed")
+            ni = [c.metric for c in mine if c.role == "primary"
+                  and c.direction == "treatment_non_inferior"]
+            sup = [x for x in rejected if x not in ni]
+            shown = [f"better than {plan.control} on {', '.join(sup)}"] if sup else []
+            if ni:
+                shown.append(f"not worse than {plan.control} by more than the margin on "
+                             f"{', '.join(ni)}")
+            reason = f"{arm} is {' and '.join(shown)} at {look}, with no guardrail crossed"
         elif code == Decision.STOP_EFFICACY:
             reason = (f"{arm} is worse than {plan.control} on {', '.join(worse)} at {look}")
         elif code == Decision.STOP_FUTILITY:

@@ -43,14 +43,20 @@ Roles of metrics
     ``k * sum(alpha_g)`` that some arm is stopped for harm falsely (Bonferroni;
     :attr:`ExperimentPlan.errors`). An arm wins only with no guardrail crossed.
 
-Directions and margins
-----------------------
-Every metric says in which ``direction`` it is better (``increase`` or
-``decrease``; required for a guardrail). A primary's test is for a move in that
-direction by more than its ``margin`` (``0``: superiority); a guardrail's for a move
-in the other direction by more than its margin. ``mde`` is the size of the move to
-detect, always positive: towards better for a primary, towards worse (the harm) for
-a guardrail; it must exceed the margin.
+Which way is good, margins and mde
+----------------------------------
+Every metric is described as a two-arm plan's
+(:func:`seqtest.planning.sizing.check_metric`, whose rules check it): ``better``
+(``higher``, the default for a primary, or ``lower``; required for a guardrail),
+``margin`` the *signed* null value of the effect (treatment minus control, or relative
+lift) on the metric's scale (default 0), and ``mde`` the signed effect the test is
+powered for. A primary states its ``hypothesis``: ``superiority`` (default; a margin
+0 or on the better side) or ``non_inferiority`` (a margin on the worse side); a
+non-zero margin needs it stated, and the mde lies on the better side of the margin.
+A guardrail is a one-sided harm test: its ``margin`` is the harm tolerated (0 or on
+the worse side of 0), its ``mde`` the harm to detect (on the worse side of the
+margin); it takes no ``hypothesis``. Its two-arm plan is that of a superiority test
+with the better side flipped (so the same rules check it).
 
 Sizing
 ------
@@ -66,17 +72,16 @@ common initial boundaries of equally weighted hypotheses, which ignores alpha pa
 on and so is conservative); with unequal weights, or across several primary metrics
 (whose joint law is unknown), the conservative rule "the comparison (or metric) that
 needs the fewest users alone has the power" is used. Metrics of the same units
-(users for binary and continuous metrics, exposure for rates) share the maximum; a
+(exposure for rates, users for every other kind) share the maximum; a
 guardrail with a ``power`` of its own enters it too, and every comparison's power at
 the plan's sizes is reported (``planned_power``).
 
-Margins in sizing: with a zero margin the sizes are exactly those of
-:func:`~seqtest.planning.sizing.max_control` (the two-arm plan's); with a margin the
-distance from the null to the alternative is used: for continuous metrics exactly
-(the test's information does not depend on the null), for binary and rate metrics by
-the score test's null and alternative variances at the margin
-(:func:`seqtest.core.score.design_variances` with ``null``), which is what the
-monitoring's score statistic uses.
+Every kind of metric of a two-arm plan may be used (binary, continuous, rate, ratio,
+adjusted, count). Each comparison's size is that of its two-arm plan
+(:func:`~seqtest.planning.sizing.max_control` on the comparison's two-arm metric,
+margin included: exactly for continuous-type metrics, the score test's null and
+alternative variances at the margin for binary and rate metrics), and its planned
+power the inverse (:func:`~seqtest.planning.sizing.power_at`).
 
 References
 ----------
@@ -95,7 +100,6 @@ References
 from __future__ import annotations
 
 import json
-import math
 import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
@@ -105,16 +109,15 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import special
 
-from seqtest.core import checks, score
+from seqtest.core import checks
 from seqtest.core.boundaries import futility_bounds
 from seqtest.core.errors import InputError
 from seqtest.core.jsonable import floats_or_none
 from seqtest.core.recursion import DEFAULT_R
-from seqtest.core.roots import NoRoot, solve
-from seqtest.core.scales import null_on_test_scale, test_scale_of
+from seqtest.core.scales import test_scale_of
 from seqtest.core.spending import SpendingFunction
 from seqtest.core.version import __version__
-from seqtest.core.vocabulary import EXPERIMENT_KIND
+from seqtest.core.vocabulary import BETTER, EXPERIMENT_KIND
 from seqtest.planning.design import (
     Plan,
     _check_fractions,
@@ -124,13 +127,20 @@ from seqtest.planning.design import (
     design,
     parse_boundary,
 )
-from seqtest.planning.sizing import check_metric, delta_and_unit, max_control, per_look
+from seqtest.planning.sizing import (
+    DESCRIPTION_FIELDS,
+    check_metric,
+    delta_and_unit,
+    max_control,
+    null_and_sign,
+    per_look,
+    power_at,
+)
 
 if TYPE_CHECKING:
     from seqtest.core.multiarm import DunnettBounds
 
 __all__ = [
-    "DIRECTIONS",
     "METHODS",
     "MAX_TREATMENTS",
     "POWER_FOR",
@@ -148,7 +158,6 @@ __all__ = [
 ]
 
 ROLES: tuple[str, ...] = ("primary", "guardrail")
-DIRECTIONS: tuple[str, ...] = ("increase", "decrease")
 METHODS: tuple[str, ...] = ("graphical", "dunnett")
 POWER_FOR: tuple[str, ...] = ("each", "any")
 #: At most this many treatments (``seqtest.core.multiarm.MAX_ARMS``; that module, and
@@ -160,9 +169,12 @@ MAX_TREATMENTS = 8
 GUARDRAIL_ALPHA = 0.05
 GUARDRAIL_SPENDING = "pocock-type"
 _NAME_MAX = 64
-_SIZING_FIELDS = ("kind", "baseline", "mde", "sd", "sd_treatment", "relative", "scale")
-_METRIC_FIELDS = {"name", "role", "direction", "margin", "alpha", "spending", "power",
-                  *_SIZING_FIELDS}
+#: A metric's description fields (its kind's, as check_metric reads them); the
+#: allocation is the arms', the margin, better side and hypothesis the metric's own.
+_SIZING_FIELDS = DESCRIPTION_FIELDS - {"allocation", "margin", "better", "hypothesis"}
+_METRIC_FIELDS = {"name", "role", "better", "margin", "hypothesis", "alpha", "spending",
+                  "power", *_SIZING_FIELDS}
+_OTHER_SIDE = {"higher": "lower", "lower": "higher"}
 
 
 # -- the graph of the graphical method ------------------------------------------------
@@ -296,20 +308,28 @@ def _key(name: str) -> str:
 
 @dataclass(frozen=True)
 class ExperimentMetric:
-    """A metric of an experiment.
+    """A metric of an experiment, in the two-arm convention of
+    :func:`seqtest.planning.sizing.check_metric`.
 
     Attributes
     ----------
     name : str
     role : {"primary", "guardrail"}
-    direction : {"increase", "decrease"}
-        The direction in which the metric is better.
+    better : {"higher", "lower"}
+        Which way of the metric is good.
     margin : float
-        Primary: the improvement that must be exceeded (0: superiority); guardrail:
-        harm only beyond it. On the metric's scale (difference or relative), >= 0.
+        The null value of the effect (treatment minus control, or relative lift) on
+        the metric's scale. Primary: as a two-arm plan's (0: superiority; on the worse
+        side of 0: non-inferiority; on the better side: superiority by more than it).
+        Guardrail: the harm tolerated, 0 or on the worse side of 0; harm is a move
+        towards worse beyond it.
+    hypothesis : {"superiority", "non_inferiority"} or None
+        What a primary's test is to show; None for a guardrail (a one-sided harm
+        test).
     description : dict
-        Kind, baseline, ``mde`` (positive: the move to detect, towards better for a
-        primary, towards worse for a guardrail), sd, sd_treatment, relative, scale.
+        Kind, baseline, ``mde`` (signed: the effect the test is powered for, on the
+        better side of the margin for a primary, on the worse side for a guardrail:
+        the harm to detect), sd, ... (the sizing fields of the kind; no allocation).
     alpha, spending, power : guardrails only
         The harm test's one-sided alpha, spending function, and (optional) the power
         it must have at its mde, which then enters the sizing.
@@ -317,8 +337,9 @@ class ExperimentMetric:
 
     name: str
     role: str
-    direction: str
+    better: str
     margin: float
+    hypothesis: str | None
     description: dict
     alpha: float | None = None
     spending: SpendingFunction | None = None
@@ -339,36 +360,47 @@ class ExperimentMetric:
     @property
     def orientation(self) -> float:
         """+1 or -1: the z statistic of the metric's test is this times the effect's
-        (treatment minus control) z, so that larger is better for a primary and more
-        harmful for a guardrail."""
-        better = 1.0 if self.direction == "increase" else -1.0
-        return better if self.role == "primary" else -better
+        (treatment minus control, against the margin) z, so that larger is better for
+        a primary and more harmful for a guardrail: the ``sign`` of the comparison's
+        two-arm metric (:func:`seqtest.planning.sizing.null_and_sign`)."""
+        tested = self.better if self.role == "primary" else _OTHER_SIDE[self.better]
+        return null_and_sign({"better": tested})[1]
 
     @property
     def null(self) -> float:
-        """The null value of the effect (treatment minus control, or relative) on the
-        metric's scale: the margin, in the tested direction."""
-        return self.orientation * self.margin
+        """The null value of the effect on the metric's scale: the margin."""
+        return self.margin
 
     @property
     def units(self) -> str:
-        """``"users"`` (binary, continuous) or ``"exposure"`` (rate): metrics of the
-        same units share the plan's maximum sizes."""
+        """``"exposure"`` (rate) or ``"users"`` (every other kind): metrics of the same
+        units share the plan's maximum sizes."""
         return "exposure" if self.kind == "rate" else "users"
 
     def comparison_metric(self, allocation: float) -> dict:
-        """The two-arm metric description of a comparison with this allocation (the
-        mde signed as the effect to detect)."""
+        """The two-arm metric description of a comparison with this allocation.
+
+        A primary's is the metric's own (``margin``, ``better`` and ``hypothesis``
+        written only when one differs from superiority over 0 with higher better, so
+        that the plain case is exactly the two-arm plan of the same description). A
+        guardrail's is its harm test as a two-arm test: the better side is the
+        metric's worse one, the margin the harm tolerated, the hypothesis superiority
+        (harm beyond the margin)."""
         d = {k: v for k, v in self.description.items() if k in _SIZING_FIELDS}
-        d["mde"] = self.orientation * float(self.description["mde"])
         d["allocation"] = float(allocation)
+        if self.role == "guardrail":
+            d.update(better=_OTHER_SIDE[self.better], margin=self.margin,
+                     hypothesis="superiority")
+        elif (self.better, self.margin, self.hypothesis) != ("higher", 0.0, "superiority"):
+            d.update(better=self.better, margin=self.margin, hypothesis=self.hypothesis)
         return check_metric(d)
 
     def to_dict(self) -> dict:
         out: dict[str, Any] = {"name": self.name, "role": self.role,
-                               "direction": self.direction, "margin": self.margin}
-        out.update({k: self.description[k] for k in _SIZING_FIELDS
-                    if k in self.description})
+                               "better": self.better, "margin": self.margin}
+        if self.role == "primary":
+            out["hypothesis"] = self.hypothesis
+        out.update({k: v for k, v in self.description.items() if k in _SIZING_FIELDS})
         if self.role == "guardrail":
             assert self.spending is not None
             out["alpha"] = self.alpha
@@ -377,71 +409,107 @@ class ExperimentMetric:
         return out
 
 
+def _checked_metric(where: str, name: str, d: dict, role: str, better: str) -> dict:
+    """:func:`check_metric` of a metric's two-arm description, its messages naming
+    the experiment's metric (``metrics[i].field (name)``); a guardrail's margin and
+    mde, checked as its harm test's (the better side flipped), are explained as a
+    guardrail's."""
+    try:
+        return check_metric(d)
+    except (InputError, ValueError) as exc:
+        text = str(exc)
+        field_, _, rest = text.partition(": ")
+        field_ = field_.removeprefix("metric").lstrip(".")
+        worse = "lower" if better == "higher" else "higher"
+        if role == "guardrail" and field_ == "margin" and "superiority" in rest:
+            rest = (f"got {d['margin']!r}; allowed for a guardrail where {better} is "
+                    f"better is 0 or a {'negative' if better == 'higher' else 'positive'} "
+                    "number: the harm tolerated (a move towards worse by up to it is not "
+                    "harm)")
+        elif role == "guardrail" and field_ == "mde" and "margin" in rest:
+            rest = (f"got {d['mde']!r}; allowed for a guardrail where {better} is better "
+                    f"is the harm to detect, {worse} than the margin {d['margin']:g} (a "
+                    f"{'negative' if better == 'higher' else 'positive'} effect beyond "
+                    "it)")
+        where_field = f"{where}.{field_}" if field_ else where
+        raise InputError(f"{where_field} ({name}): {rest}") from None
+
+
 def _metric(i: int, spec: Any, single: bool) -> ExperimentMetric:
     where = f"metrics[{i}]"
+    if isinstance(spec, Mapping) and "direction" in spec:
+        who = f" ({spec['name']})" if isinstance(spec.get("name"), str) else ""
+        raise checks.fail(f"{where}.direction{who}", spec["direction"],
+                          "left out: say which way of the metric is good with better "
+                          "(higher or lower), and give mde and margin signed on the "
+                          "metric's scale (treatment minus control)")
     d = checks.mapping(where, spec, allowed_keys=_METRIC_FIELDS)
     name = _name(f"{where}.name", d["name"]) if "name" in d else (
         str(d.get("kind", "metric")) if single else None)
     if name is None:
         raise checks.fail(f"{where}.name", None, "a name for each metric of an experiment "
                           "with several metrics")
-    role = str(checks.choice(f"{where}.role", d.get("role", "primary"), ROLES))
-    if "direction" not in d or d["direction"] is None:
+
+    def at(field_: str) -> str:
+        return f"{where}.{field_} ({name})"
+
+    role = str(checks.choice(at("role"), d.get("role", "primary"), ROLES))
+    if d.get("better") is None:
         if role == "guardrail":
-            raise checks.fail(f"{where}.direction", None,
-                              "increase or decrease: the direction in which the guardrail "
-                              f"{name!r} is better (harm is a move the other way)")
-        direction = "increase"
+            raise checks.fail(at("better"), None,
+                              f"higher or lower: which way of the guardrail {name!r} is "
+                              "good (harm is a move the other way)")
+        better = "higher"
     else:
-        direction = str(checks.choice(f"{where}.direction", d["direction"], DIRECTIONS))
-    margin = checks.number(f"{where}.margin", d.get("margin", 0.0), lo=0.0,
-                           allowed="a number >= 0 (harm only beyond it for a guardrail; "
-                                   "the improvement to exceed for a primary)")
+        better = str(checks.choice(at("better"), d["better"], BETTER))
+    margin = checks.number(at("margin"), d.get("margin", 0.0),
+                           allowed="a number on the metric's scale (the null value of "
+                                   "the effect, treatment minus control)")
     if "mde" not in d:
-        raise checks.fail(f"{where}.mde", None, "the size of the move to detect (towards "
-                          "better for a primary, towards worse for a guardrail), > 0")
-    mde = checks.number(f"{where}.mde", d["mde"], lo=0.0, lo_open=True,
-                        allowed="a positive size of the move to detect; the direction "
-                                "says which way is better")
-    if mde <= margin:
-        raise checks.fail(f"{where}.mde", mde, f"a move larger than the margin {margin:g}")
+        raise checks.fail(at("mde"), None,
+                          "the effect to detect, treatment minus control on the metric's "
+                          "scale (signed: on the better side of the margin for a primary, "
+                          "the harm beyond the margin for a guardrail)")
     sizing = {k: d[k] for k in _SIZING_FIELDS if k in d and d[k] is not None}
-    sizing["mde"] = mde
-    try:
-        norm = check_metric(dict(sizing))
-    except (InputError, ValueError) as exc:
-        raise InputError(f"{where} ({name}): {exc}") from None
-    norm.pop("allocation", None)
-    norm["mde"] = mde
+    hypothesis: str | None
+    if role == "guardrail":
+        if d.get("hypothesis") is not None:
+            raise checks.fail(at("hypothesis"), d["hypothesis"],
+                              "left out for a guardrail (its test is one-sided, for harm "
+                              "beyond its margin)")
+        norm = _checked_metric(where, name, {**sizing, "better": _OTHER_SIDE[better],
+                                             "margin": margin,
+                                             "hypothesis": "superiority"}, role, better)
+        hypothesis = None
+    else:
+        full = {**sizing, "better": better, "margin": margin}
+        if d.get("hypothesis") is not None:
+            full["hypothesis"] = d["hypothesis"]
+        norm = _checked_metric(where, name, full, role, better)
+        hypothesis = str(norm["hypothesis"])
+    desc = {k: v for k, v in norm.items() if k in _SIZING_FIELDS}
     alpha = spend = power = None
     if role == "guardrail":
-        alpha = checks.number(f"{where}.alpha", d.get("alpha", GUARDRAIL_ALPHA), lo=0.0,
+        alpha = checks.number(at("alpha"), d.get("alpha", GUARDRAIL_ALPHA), lo=0.0,
                               hi=0.5, lo_open=True,
                               allowed="a one-sided alpha in (0, 0.5] for the harm test")
-        fn = parse_boundary(d.get("spending") or GUARDRAIL_SPENDING, f"{where}.spending")
+        fn = parse_boundary(d.get("spending") or GUARDRAIL_SPENDING, at("spending"))
         if not isinstance(fn, SpendingFunction):
-            raise checks.fail(f"{where}.spending", d.get("spending"),
+            raise checks.fail(at("spending"), d.get("spending"),
                               "a spending function (a guardrail spends its own alpha)")
         spend = fn
         if d.get("power") is not None:
-            power = checks.number(f"{where}.power", d["power"], lo=alpha, hi=1.0,
+            power = checks.number(at("power"), d["power"], lo=alpha, hi=1.0,
                                   lo_open=True, hi_open=True,
                                   allowed=f"a power above the guardrail's alpha {alpha:g} "
                                           "and below 1")
     else:
         for key in ("alpha", "spending", "power"):
             if d.get(key) is not None:
-                raise checks.fail(f"{where}.{key}", d[key], "left out for a primary metric "
+                raise checks.fail(at(key), d[key], "left out for a primary metric "
                                   "(its error and power are the experiment's)")
-    m = ExperimentMetric(name, role, direction, margin, norm, alpha, spend, power)
-    if m.scale == "relative" and margin > 0:
-        null_on_test_scale(m.null, m.test_scale)
-    # check that the comparison's metric is valid (e.g. a rate stays in (0, 1))
-    try:
-        m.comparison_metric(1.0)
-    except (InputError, ValueError) as exc:
-        raise InputError(f"{where} ({name}): {exc}") from None
-    return m
+    return ExperimentMetric(name, role, better, margin, hypothesis, desc, alpha, spend,
+                            power)
 
 
 def _arms(arms: Any) -> tuple[str, ...]:
@@ -673,7 +741,10 @@ class ExperimentPlan:
             if m.role == "guardrail":
                 lines.append(f"Guardrail {m.name!r}: harm test at one-sided alpha "
                              f"{m.alpha:g} per arm ({m.spending.label if m.spending else ''})"
-                             f", harm beyond {m.margin:g} ({m.direction} is better).")
+                             f", harm beyond {m.margin:g} ({m.better} is better).")
+            elif m.hypothesis == "non_inferiority" or m.margin != 0:
+                lines.append(f"Primary {m.name!r}: {str(m.hypothesis).replace('_', '-')} "
+                             f"against a margin of {m.margin:g} ({m.better} is better).")
         for m in self.metrics:
             sizes = ", ".join(f"{a} {int(self.sizes[m.name][a][-1]):,}" for a in self.arms)
             lines.append(f"Maximum {m.units} for {m.name!r}: {sizes}.")
@@ -746,84 +817,11 @@ class ExperimentPlan:
 
 # -- sizing ---------------------------------------------------------------------------------
 
-def _margin_delta(metric: dict, null: float) -> tuple[float, float]:
-    """Distance from the null to the design effect on the test scale, and control users
-    per unit of information (continuous metrics)."""
-    delta, unit = delta_and_unit(metric)
-    ts = test_scale_of(metric["kind"], metric["scale"])
-    return delta - null_on_test_scale(null, ts), unit
-
-
-def _score_variances(metric: dict, null: float) -> score.DesignVariances:
-    base = metric["baseline"]
-    m_t = base * (1.0 + metric["mde"]) if metric["relative"] else base + metric["mde"]
-    return score.design_variances(metric["kind"], base, m_t,
-                                  allocation=metric["allocation"], scale=metric["scale"],
-                                  null=null)
-
-
-def _control_size(plan: Plan, metric: dict, null: float) -> float:
-    """Control users (exposure) at which the comparison plan has its power (not
-    rounded): :func:`~seqtest.planning.sizing.max_control` with a zero margin, the
-    distance from the margin otherwise (see the module docstring)."""
-    if null == 0.0:
-        return float(max_control(plan, metric)[0])
-    if metric["kind"] == "continuous":
-        delta, unit = _margin_delta(metric, null)
-        return float(plan.max_information(delta) * unit)
-    dv = _score_variances(metric, null)
-    fut = None if plan.futility_z is None else plan.futility_z
-    n_c, _ = score.group_sequential_size(dv, plan.info_fractions, plan.efficacy_z,
-                                         sides=plan.sides, power=plan.power,
-                                         allocation=metric["allocation"], r=plan.r,
-                                         futility_z=fut)
-    return float(n_c)
-
-
-def _power_at(plan: Plan, metric: dict, null: float, n_c: float) -> float:
-    """Power of the comparison plan at the mde with ``n_c`` control users (the inverse
-    of :func:`_control_size`).
-
-    Continuous metrics: the drift is ``delta sqrt(n_c / unit)`` and the power the
-    boundary crossing probability at it (:func:`seqtest.planning.design._power`,
-    futility obeyed). Binary and rate metrics (score test): the power ``p`` at which
-    :func:`seqtest.core.score.score_drift` gives the drift of ``n_c`` users, solved
-    on the probit scale by :func:`seqtest.core.roots.solve` to 1e-10."""
-    if metric["kind"] == "continuous":
-        if null == 0.0:
-            delta, unit = delta_and_unit(metric)
-        else:
-            delta, unit = _margin_delta(metric, null)
-        eta = abs(delta) * math.sqrt(n_c / unit)
-        pw = _power(plan.info_fractions, plan.efficacy_z, plan.futility_z, plan.sides, eta,
-                    plan.r)
-        return min(1.0, max(0.0, pw))   # the integration's 1e-7 can overshoot 1
-    dv = _score_variances(metric, null)
-    t = plan.info_fractions
-    sign = 1.0 if dv.delta > 0 else -1.0
-    rho = math.sqrt(dv.v0 / dv.v1)
-    d1 = abs(dv.delta) * math.sqrt(n_c / dv.v1)
-    gam = sign * dv.third0 / (dv.v0 ** 1.5 * np.sqrt(n_c * t))
-    fut = plan.futility_z
-
-    def g(x: float) -> float:
-        try:
-            drift = score.score_drift(t, plan.efficacy_z, sides=plan.sides,
-                                      power=float(special.ndtr(x)), ratio=rho, skew=gam,
-                                      futility_z=fut, r=plan.r)
-        except NoRoot:      # a power so low that no positive drift is that small
-            drift = 0.0
-        return drift - d1
-
-    lo = float(special.ndtri(1e-6))
-    if g(lo) >= 0:
-        return float(special.ndtr(lo))
-    try:
-        x = solve(g, float(special.ndtri(plan.power)), step=0.5, lo=lo, hi=8.0,
-                  xtol=1e-10, gtol=1e-9)
-    except NoRoot:
-        return 1.0
-    return float(special.ndtr(x))
+def _control_size(plan: Plan) -> float:
+    """Control users (exposure) at which a comparison plan has its power, not rounded:
+    :func:`~seqtest.planning.sizing.max_control` of its two-arm metric (margin
+    included)."""
+    return float(max_control(plan, plan.metric or {})[0])
 
 
 # -- the design -------------------------------------------------------------------------------
@@ -999,14 +997,13 @@ def experiment_plan(
         ``control``, ``treatment_1``, ...), or their names, the control first.
     metrics : mapping or sequence of mappings
         Each metric: ``name``; ``role`` (``primary``, the default, or
-        ``guardrail``); ``direction`` in which it is better (``increase``, the default
-        for a primary, or ``decrease``; required for a guardrail); ``margin`` (>= 0);
-        the description of :func:`seqtest.planning.sizing.check_metric` (``kind``,
-        ``baseline``, ``mde`` > 0 as the size of the move to detect, ``sd``,
-        ``sd_treatment``, ``relative``, ``scale``; no ``allocation``, the arms have
-        it); guardrails also ``alpha`` (one-sided, default 0.05), ``spending``
-        (default Pocock-type) and ``power`` (optional: then the guardrail enters the
-        sizing). At least one primary.
+        ``guardrail``); the description of
+        :func:`seqtest.planning.sizing.check_metric` (``kind`` of any metric kind,
+        ``mde`` signed, its sizing fields, ``better``, ``margin`` signed,
+        ``hypothesis`` for a primary; no ``allocation``, the arms have it; see the
+        module docstring for a guardrail's); guardrails also ``alpha`` (one-sided,
+        default 0.05), ``spending`` (default Pocock-type) and ``power`` (optional:
+        then the guardrail enters the sizing). At least one primary.
     allocations : float, sequence or mapping, optional
         Users per control user of each treatment (default 1).
     alpha, sides, power, looks, information_fractions, efficacy, futility, binding, r
@@ -1033,7 +1030,8 @@ def experiment_plan(
     ------
     seqtest.InputError
         Naming the argument: fewer than two arms or more than nine, an allocation of
-        zero, a guardrail without a direction, a metric without a primary, ...
+        zero, a guardrail without ``better``, a margin or mde on the wrong side, a
+        metric given ``direction`` (the field is ``better``), no primary, ...
 
     Notes
     -----
@@ -1050,6 +1048,18 @@ def experiment_plan(
     ...     alpha=0.025, sides=1, looks=3)
     >>> [round(c.level, 5) for c in plan.primaries]
     [0.0125, 0.0125]
+
+    A primary where lower is better, against a margin, and a guardrail whose harm is
+    an increase of more than 0.05 (to detect at 0.2):
+
+    >>> plan = seqtest.experiment_plan(["control", "blue", "green"], [
+    ...     {"name": "wait", "kind": "continuous", "sd": 2.0, "better": "lower",
+    ...      "mde": -0.3, "margin": -0.05, "hypothesis": "superiority"},
+    ...     {"name": "errors", "role": "guardrail", "kind": "rate", "baseline": 2.0,
+    ...      "better": "lower", "margin": 0.05, "mde": 0.2}],
+    ...     alpha=0.025, sides=1, looks=3)
+    >>> plan.comparison("blue", "errors").plan.metric["better"]   # the harm side
+    'higher'
     """
     return design_experiment(experiment_inputs(
         arms, metrics, allocations=allocations, alpha=alpha, sides=sides, power=power,
@@ -1124,7 +1134,7 @@ def design_experiment(inp: ExperimentInputs) -> ExperimentPlan:
             if m.role == "guardrail" and (m.power is not None or not pr):
                 for c in comps:
                     if c.metric == m.name:
-                        need.append(_control_size(c.plan, c.plan.metric or {}, m.null))
+                        need.append(_control_size(c.plan))
         n0[units] = max(need)
     for m in ms:
         n_c = n0[m.units]
@@ -1137,7 +1147,7 @@ def design_experiment(inp: ExperimentInputs) -> ExperimentPlan:
         m = by_name[c.metric]
         pw = None
         if c.level > 0:
-            pw = float(_power_at(c.plan, c.plan.metric or {}, m.null, n0[m.units]))
+            pw = float(power_at(c.plan, c.plan.metric or {}, n0[m.units]))
         plan = replace(c.plan, n_control=sizes[m.name][names[0]],
                        n_treatment=sizes[m.name][c.arm])
         out.append(replace(c, plan=plan, planned_power=pw))
@@ -1153,18 +1163,15 @@ def _primary_size(prim: list[ExperimentMetric], comps: list[Comparison], power_f
                   power: float) -> float:
     """The control's maximum for the primaries of one unit group (module docstring)."""
     mine = [c for c in comps if c.metric in {m.name for m in prim}]
-    by_name = {m.name: m for m in prim}
     if power_for == "each":
-        return max(_control_size(c.plan, c.plan.metric or {}, by_name[c.metric].null)
-                   for c in mine if c.level > 0)
+        return max(_control_size(c.plan) for c in mine if c.level > 0)
     per_metric = []
     for m in prim:
         cs = [c for c in mine if c.metric == m.name and c.level > 0]
         levels = {round(c.level, 15) for c in cs}
         if len(cs) == 1 or len(levels) > 1:
             # the conservative rule: the comparison that needs the fewest users alone
-            per_metric.append(min(_control_size(c.plan, c.plan.metric or {}, m.null)
-                                  for c in cs))
+            per_metric.append(min(_control_size(c.plan) for c in cs))
             continue
         from seqtest.core import multiarm
         c0 = cs[0].plan
@@ -1179,7 +1186,7 @@ def _primary_size(prim: list[ExperimentMetric], comps: list[Comparison], power_f
             if pw <= 1.5 * c.level / sides:
                 continue
             plan_i = comp_plan(c.level, c.plan.metric, min(pw, 1.0 - 1e-9))
-            need.append(_control_size(plan_i, plan_i.metric or {}, m.null))
+            need.append(_control_size(plan_i))
         if not need:
             raise InputError(f"power_for: no arm of {m.name!r} can reach the power "
                              "alone; use power_for='each'")

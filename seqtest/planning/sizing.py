@@ -58,7 +58,7 @@ if TYPE_CHECKING:
     from seqtest.planning.design import Plan
 
 __all__ = ["SampleSize", "sample_size", "max_sizes", "check_metric", "delta_and_unit",
-           "METRIC_KINDS", "null_and_sign"]
+           "METRIC_KINDS", "null_and_sign", "power_at", "DESCRIPTION_FIELDS"]
 
 _COMMON = {"kind", "mde", "relative", "allocation", "scale", "margin", "better",
            "hypothesis"}
@@ -72,6 +72,8 @@ _ALLOWED = {
     "count": _COMMON | {"baseline", "sd", "sd_treatment", "dispersion"},
 }
 assert tuple(_ALLOWED) == METRIC_KINDS
+#: Every field a metric description may have (some kinds take only some of them).
+DESCRIPTION_FIELDS: frozenset[str] = frozenset().union(*_ALLOWED.values())
 
 
 def _num(name: str, v: Any, lo: float = -math.inf, hi: float = math.inf,
@@ -497,6 +499,57 @@ def sample_size(plan: Plan, **metric: Any) -> SampleSize:
         expected_null=float(e0 * n_c * (1 + q)), expected_alternative=float(e1 * n_c * (1 + q)),
         delta=float(delta), max_information=float(i_max),
     )
+
+
+def power_at(plan: Plan, m: dict, n_c: float) -> float:
+    """Power of ``plan`` (its boundaries, futility obeyed) at the design effect of the
+    checked metric ``m`` with ``n_c`` control users (exposure): the inverse of
+    :func:`max_control`, measured from the margin as it is.
+
+    Binary and rate metrics (score test): the power ``p`` at which
+    :func:`seqtest.core.score.score_drift` gives the drift of ``n_c`` users, solved on
+    the probit scale by :func:`seqtest.core.roots.solve` to 1e-10. The other kinds: the
+    drift is ``delta sqrt(n_c / unit)`` (:func:`delta_and_unit`) and the power the
+    boundary crossing probability at it (accurate to the integration's 1e-7)."""
+    from scipy import special
+
+    from seqtest.core.region import Region
+    from seqtest.core.roots import NoRoot, solve
+
+    t = np.asarray(plan.info_fractions, float)
+    fut = plan.futility_z
+    if m["kind"] not in ("binary", "rate"):
+        delta, unit = delta_and_unit(m)
+        eta = abs(delta) * math.sqrt(n_c / unit)
+        pw = float(Region.of_plan(plan.sides, plan.efficacy_z, fut)
+                   .crossing(t, eta, plan.r).upper.sum())
+        return min(1.0, max(0.0, pw))   # the integration's 1e-7 can overshoot 1
+    m_c, m_t = _means(m)
+    dv = score.design_variances(m["kind"], m_c, m_t, allocation=m["allocation"],
+                                scale=m["scale"], null=null_and_sign(m)[0])
+    sign = 1.0 if dv.delta > 0 else -1.0
+    rho = math.sqrt(dv.v0 / dv.v1)
+    d1 = abs(dv.delta) * math.sqrt(n_c / dv.v1)
+    gam = sign * dv.third0 / (dv.v0 ** 1.5 * np.sqrt(n_c * t))
+
+    def g(x: float) -> float:
+        try:
+            drift = score.score_drift(t, plan.efficacy_z, sides=plan.sides,
+                                      power=float(special.ndtr(x)), ratio=rho, skew=gam,
+                                      futility_z=fut, r=plan.r)
+        except NoRoot:      # a power so low that no positive drift is that small
+            drift = 0.0
+        return drift - d1
+
+    lo = float(special.ndtri(1e-6))
+    if g(lo) >= 0:
+        return float(special.ndtr(lo))
+    try:
+        x = solve(g, float(special.ndtri(plan.power)), step=0.5, lo=lo, hi=8.0,
+                  xtol=1e-10, gtol=1e-9)
+    except NoRoot:
+        return 1.0
+    return float(special.ndtr(x))
 
 
 def legacy_max_control(plan: Plan, m: dict) -> float:

@@ -14,7 +14,10 @@ arm wins, the false wins and false harm stops beside what the plan promises, eac
 guardrail's harm detection beside its planned power, and the expected users.
 
 Data, per arm and metric, increment by increment between looks, as
-:mod:`seqtest.simulation.engine` draws them (binary, normal, log-normal, counts).
+:mod:`seqtest.simulation.engine` draws them
+(:func:`~seqtest.simulation.engine.draw_totals` with the kind of the plan's metric:
+binary, normal, log-normal, counts, ratio, pre_period), for every metric kind an
+experiment may have.
 Metrics of the same data kind may be correlated within a user:
 
 - binary metrics: a shared per-user latent normal vector with the given
@@ -31,7 +34,11 @@ Metrics of the same data kind may be correlated within a user:
   3.3.2), drawn by Bartlett's decomposition, so the per-metric sums and sums of
   squares have their exact joint law.
 
-Metrics of different kinds, log-normal and count metrics are independent.
+Every other metric is drawn independently of the rest (each arm, each metric):
+metrics of different data models, log-normal metrics, counts (analysed as a rate per
+unit of exposure, one unit a user, or as a count metric per user), ratio metrics
+(per-user denominators and numerators) and pre-period data (analysed as adjusted or
+continuous metrics); correlations are refused for them.
 
 Traffic: ``fixed`` (every arm at its planned size at the plan's looks) or ``uneven``
 (at the given fractions of the maximum), with ``extra_looks`` either way; every
@@ -73,6 +80,7 @@ from seqtest.simulation.engine import TailRate, clopper_pearson, draw_totals
 from seqtest.simulation.runner import Batch, Runner
 from seqtest.simulation.scenarios import (
     ANALYSIS_KIND,
+    ANALYSIS_KINDS,
     _data,
     _mapping,
     _no_extra,
@@ -120,8 +128,7 @@ class MetricData:
         The control's parameters.
     effect_type : {"difference", "relative", "mde_multiple"}
         How the effects are given; ``mde_multiple`` is a multiple of the metric's
-        mde in the direction the plan tests (better for a primary, harm for a
-        guardrail).
+        signed ``mde`` (a primary's effect to detect, a guardrail's harm to detect).
     effects : dict
         True effect per treatment arm (arms left out: 0).
     """
@@ -318,11 +325,13 @@ def load_experiment_scenario(path: Any) -> ExperimentScenario:
 @dataclass(frozen=True)
 class _Group:
     """Metrics drawn together for each arm: one (independent), or a correlated group
-    of binary or normal metrics with its correlation matrix."""
+    of binary or normal metrics with its correlation matrix; ``metric_kind`` the kind
+    the plan analyses the group's metrics as (which totals the data model gives)."""
 
     names: tuple[str, ...]
     kind: str
     corr: np.ndarray
+    metric_kind: str = ""
 
 
 @dataclass(frozen=True)
@@ -350,7 +359,10 @@ def _means(plan: ExperimentPlan, md: MetricData, arm: str, m_c: float) -> float:
     if md.effect_type == "relative":
         return m_c * (1.0 + e)
     cm = plan.comparison(arm, md.name).plan.metric or {}
-    b_c = cm.get("baseline", 0.0) or 0.0
+    if cm.get("kind") == "ratio":
+        b_c = cm["numerator_mean"] / cm["denominator_mean"]
+    else:
+        b_c = cm.get("baseline", 0.0) or 0.0
     b_t = b_c * (1.0 + cm["mde"]) if cm.get("relative") else b_c + cm["mde"]
     if cm.get("relative") or cm.get("scale") == "relative":
         if b_c == 0:
@@ -364,7 +376,7 @@ def _control_mean(md: MetricData) -> float:
     d = md.data
     if md.data_kind == "lognormal":
         return (1.0 - d.get("zero_share", 0.0)) * d["mean"]
-    return d["rate"] if md.data_kind in ("binary", "counts") else d["mean"]
+    return d["rate"] if md.data_kind in ("binary", "counts", "ratio") else d["mean"]
 
 
 def _params(md: MetricData, m_c: float, m_t: float, arm: str, control: bool) -> dict:
@@ -378,6 +390,16 @@ def _params(md: MetricData, m_c: float, m_t: float, arm: str, control: bool) -> 
         return {"p": m_t}
     if k == "normal":
         return {"mean": m_t, "sd": d["sd"] if control else d.get("sd_treatment", d["sd"])}
+    if k == "pre_period":
+        # the treatment moves the metric, not its pre-period covariate
+        return {"mean": m_t, "pre_mean": d["mean"], "sd": d["sd"],
+                "correlation": d["correlation"]}
+    if k == "ratio":
+        if not m_t > 0:
+            raise ValueError(f"{where}: gives a ratio of {m_t:g}; allowed effects keep it "
+                             "> 0")
+        return {"rate": m_t, "denominator_mean": d["denominator_mean"],
+                "dispersion": d.get("dispersion")}
     if k == "lognormal":
         if not m_t > 0:
             raise ValueError(f"{where}: gives a mean of {m_t:g}; allowed effects keep it > 0")
@@ -390,7 +412,8 @@ def _params(md: MetricData, m_c: float, m_t: float, arm: str, control: bool) -> 
     return {"rate": m_t, "dispersion": d.get("dispersion")}
 
 
-def _groups(sc: ExperimentScenario) -> tuple[_Group, ...]:
+def _groups(sc: ExperimentScenario, metric_kinds: Mapping[str, str] | None = None
+            ) -> tuple[_Group, ...]:
     kinds = {m.name: m.data_kind for m in sc.metrics}
     parent = {m.name: m.name for m in sc.metrics}
 
@@ -424,7 +447,8 @@ def _groups(sc: ExperimentScenario) -> tuple[_Group, ...]:
                 raise ValueError(f"correlation: {len(names)} correlated binary metrics "
                                  f"({', '.join(names)}); allowed are at most "
                                  f"{_MAX_BINARY_GROUP}")
-        out.append(_Group(names, kinds[names[0]], corr))
+        mk = (metric_kinds or {}).get(names[0], ANALYSIS_KIND[kinds[names[0]]])
+        out.append(_Group(names, kinds[names[0]], corr, mk))
     return tuple(out)
 
 
@@ -485,10 +509,10 @@ def _job(plan: ExperimentPlan, sc: ExperimentScenario, seed: int, chunk: int) ->
     means: dict[str, dict[str, float]] = {}
     for md in sc.metrics:
         pm = plan.metric_by_name(md.name)
-        if ANALYSIS_KIND[md.data_kind] != pm.kind:
+        if pm.kind not in ANALYSIS_KINDS[md.data_kind]:
             raise ValueError(f"metrics.{md.name}.data.kind: {md.data_kind} data are analysed "
-                             f"as {ANALYSIS_KIND[md.data_kind]}, but the plan's metric is "
-                             f"{pm.kind}")
+                             f"as {' or '.join(ANALYSIS_KINDS[md.data_kind])}, but the "
+                             f"plan's metric is {pm.kind}")
         for a in md.effects:
             if a not in plan.treatments:
                 raise ValueError(f"metrics.{md.name}.effects.{a}: not a treatment arm of the "
@@ -516,15 +540,15 @@ def _job(plan: ExperimentPlan, sc: ExperimentScenario, seed: int, chunk: int) ->
     for c in plan.primaries:
         m = plan.metric_by_name(c.metric)
         e = _effect_on_scale(m.scale, means[c.metric][plan.control], means[c.metric][c.arm])
-        oe = m.orientation * e
-        true_null.append(abs(oe - m.margin) <= 1e-12 if plan.sides == 2
-                         else oe <= m.margin + 1e-12)
+        away = m.orientation * (e - m.margin)     # > 0: on the tested side of the null
+        true_null.append(abs(away) <= 1e-12 if plan.sides == 2 else away <= 1e-12)
     no_harm = []
     for c in plan.guardrails:
         m = plan.metric_by_name(c.metric)
         e = _effect_on_scale(m.scale, means[c.metric][plan.control], means[c.metric][c.arm])
-        no_harm.append(m.orientation * e <= m.margin + 1e-12)
-    return _Job(plan, _groups(sc), params, counts, _frames(plan, counts, times), times,
+        no_harm.append(m.orientation * (e - m.margin) <= 1e-12)
+    groups = _groups(sc, {m.name: m.kind for m in plan.metrics})
+    return _Job(plan, groups, params, counts, _frames(plan, counts, times), times,
                 np.asarray(true_null, bool), np.asarray(no_harm, bool),
                 sc.futility == "obey", int(seed), chunk)
 
@@ -573,7 +597,7 @@ def _draw_group(g: _Group, rng: np.random.Generator, cum: np.ndarray,
                 params: list[dict]) -> list[dict]:
     """Cumulative totals of each metric of a group for one arm (replicates x looks)."""
     if len(g.names) == 1:
-        return [draw_totals(g.kind, rng, cum, params[0])]
+        return [draw_totals(g.kind, rng, cum, params[0], metric_kind=g.metric_kind)]
     m = np.ascontiguousarray(np.diff(cum, axis=1, prepend=0))
     if g.kind == "binary":
         p = np.array([x["p"] for x in params])
