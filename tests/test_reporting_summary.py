@@ -367,3 +367,16 @@ def test_new_metric_kinds_are_named_in_the_summary(kind, noun):
     text = summarize(a).text
     assert noun in text.lower(), text
     assert "the metric" not in text.lower()
+
+
+@pytest.mark.parametrize("decision, mismatch, status", [
+    ("continue", False, ExitStatus.CONTINUE), ("stop_efficacy", False, ExitStatus.STOP),
+    ("stop_harm", False, ExitStatus.STOP), ("stop_futility", False, ExitStatus.STOP),
+    ("complete_not_significant", False, ExitStatus.COMPLETE),
+    ("stop_harm", True, ExitStatus.SAMPLE_RATIO_MISMATCH)])
+def test_exit_status_of_an_experiment_follows_the_same_table(decision, mismatch, status):
+    # an experiment's record (ExperimentAnalysis.to_dict()): its sample-ratio check is
+    # one chi-square per look over all arms, under "srm"
+    record = {"kind": "experiment", "decision": decision, "looks": 2,
+              "srm": [{"look": 1, "mismatch": False}, {"look": 2, "mismatch": mismatch}]}
+    assert exit_status(record) == status

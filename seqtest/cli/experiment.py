@@ -270,18 +270,10 @@ def read_looks(args: argparse.Namespace, plan: Any, read_table: Any) -> Any:
 
 
 def exit_status(an: Any) -> int:
-    """Exit statuses of :mod:`seqtest.reporting.status` for an experiment: 4 a
-    sample-ratio mismatch, 0 while an arm runs, 5 completed without a winner or a stop,
-    3 otherwise (an arm won, or all stopped)."""
-    from seqtest.reporting.status import ExitStatus
-    if an.sample_ratio_mismatch:
-        return int(ExitStatus.SAMPLE_RATIO_MISMATCH)
-    d = an.decision.value
-    if d == "continue":
-        return int(ExitStatus.CONTINUE)
-    if d == "complete_not_significant":
-        return int(ExitStatus.COMPLETE)
-    return int(ExitStatus.STOP)
+    """The exit status of an experiment's analysis: :func:`seqtest.reporting.exit_status`
+    (one table for every command that reports a decision)."""
+    from seqtest.reporting.status import exit_status as status_of
+    return int(status_of(an))
 
 
 def cmd_analyze(args: argparse.Namespace, plan: Any, read_table: Any) -> int:

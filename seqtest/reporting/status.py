@@ -8,7 +8,9 @@ code  meaning
 ====  ====================================================================
 0     continue: no boundary crossed, keep collecting data
 2     usage or input error (bad option, unreadable file, invalid totals)
-3     stop: efficacy or futility (binding, or advised when non-binding)
+3     stop: efficacy or futility (binding, or advised when non-binding); for an
+      experiment with several arms: an arm won, an arm stopped for harm, or all
+      arms stopped
 4     sample-ratio mismatch at a look: find the cause before acting
 5     complete: the final look was reached without significance
 6     service error: the service could not be reached, timed out, or failed
@@ -26,6 +28,7 @@ from __future__ import annotations
 from enum import IntEnum
 from typing import Any
 
+from seqtest.core.vocabulary import EXPERIMENT_KIND
 from seqtest.reporting.summary import analysis_record, sample_ratio_looks
 
 __all__ = ["ExitStatus", "exit_status"]
@@ -42,13 +45,24 @@ class ExitStatus(IntEnum):
     SERVICE_ERROR = 6
 
 
+_STOPS = ("stop_efficacy", "stop_futility", "stop_harm")
+
+
+def _mismatch_looks(r: dict) -> list[int]:
+    if r.get("kind") == EXPERIMENT_KIND:
+        # an experiment's check is one chi-square over all its arms per look
+        return [int(s["look"]) for s in r.get("srm") or [] if s.get("mismatch")]
+    return sample_ratio_looks(r)
+
+
 def exit_status(analysis: Any) -> ExitStatus:
-    """The exit status of an analysis (an ``Analysis`` or its ``to_dict()``)."""
+    """The exit status of an analysis (an ``Analysis``, an ``ExperimentAnalysis`` or
+    the ``to_dict()`` of either)."""
     r = analysis_record(analysis)
-    if sample_ratio_looks(r):
+    if _mismatch_looks(r):
         return ExitStatus.SAMPLE_RATIO_MISMATCH
     decision = r.get("decision")
-    if decision in ("stop_efficacy", "stop_futility"):
+    if decision in _STOPS:
         return ExitStatus.STOP
     if decision == "complete_not_significant":
         return ExitStatus.COMPLETE
