@@ -590,6 +590,8 @@ class PlanDisplay:
 
 def plan_display(info: PlanInfo) -> PlanDisplay:
     """The summary and the boundary table of a plan read or designed by the library."""
+    if info.layout is not None:
+        return _experiment_plan_display(info)
     plan = _SizedOnce(info.plan)
     expected = None
     if info.kind == "group_sequential" and getattr(info.plan, "metric", None):
@@ -626,6 +628,43 @@ def _field_path(field: str) -> list[Any]:
             out.append(head[0])
         out += [int(x) for x in head[1::2]]
     return out
+
+
+def arm_state(decision: Any) -> str:
+    """A treatment arm's state after its decision (experiment plans): ``running`` while
+    it continues, ``completed`` at its final look without significance, else
+    ``stopped`` (efficacy, harm, or futility: a dropped arm is not analysed again)."""
+    if decision == "continue":
+        return "running"
+    if decision == "complete_not_significant":
+        return "completed"
+    return "stopped"
+
+
+def arm_states(summary: dict[str, Any] | None) -> dict[str, str] | None:
+    """Each treatment arm's state after a look of an experiment plan (None for two-arm
+    plans, whose state is the experiment's)."""
+    if not summary or summary.get("kind") != EXPERIMENT_KIND:
+        return None
+    return {str(a.get("arm")): arm_state(a.get("decision"))
+            for a in summary.get("arms") or [] if isinstance(a, dict)}
+
+
+def _experiment_plan_display(info: PlanInfo) -> PlanDisplay:
+    """An experiment plan's own summary and its boundary table per comparison."""
+    headers = ["arm", "metric", "role", "look", "fraction", "users, control",
+               "users, arm", "efficacy z", "p to stop", "futility z"]
+
+    def num(value: Any, digits: int = 3) -> str:
+        return "-" if value is None else f"{float(value):.{digits}f}"
+    rows = [[str(r["arm"]), str(r["metric"]), str(r["role"]), str(r["look"]),
+             num(r.get("information_fraction")),
+             "-" if r.get("n_control") is None else f"{r['n_control']:,}",
+             "-" if r.get("n_treatment") is None else f"{r['n_treatment']:,}",
+             num(r.get("efficacy_z")), reporting_numbers.p_value(r.get("p_threshold"), exact=True), num(r.get("futility_z"))]
+            for r in info.boundaries or []]
+    return PlanDisplay(plan=info.plan, kind=info.kind, summary=str(info.plan.summary()),
+                       table=(headers, rows), expected=None)
 
 
 def _check_experiment_shape(inputs: dict[str, Any], location: list[Any]) -> None:

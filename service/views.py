@@ -111,6 +111,7 @@ def look(exp: Experiment, lk: Look, rows: list[Any], state: str) -> dict[str, An
         "recorded_by": lk.recorded_by,
         "result": lk.result,
         "analysis": library.analysis_object(lk.summary, rows),
+        "arm_states": library.arm_states(lk.summary),
     }
 
 
@@ -133,4 +134,5 @@ def detail(exp: Experiment, current: PlanVersion, versions: list[PlanVersion],
         "looks_page": looks_page,
         "analysis": analysis,
         "current": analysis,  # deprecated: analysis
+        "arm_states": library.arm_states(latest.summary if latest is not None else None),
     }

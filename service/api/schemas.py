@@ -429,6 +429,9 @@ class LookOut(BaseModel):
         description="everything the monitor computed at this look; an experiment plan's: "
         "decision, reason, reason_text, arms (per-arm decision and state), comparisons "
         "(each with its looks), srm, warnings, caution")
+    arm_states: dict[str, State] | None = Field(
+        default=None, description="experiment plans: each treatment arm's state after this "
+        "look (running, stopped, completed); null for two-arm plans")
 
 
 class LookSummary(BaseModel):
@@ -465,6 +468,10 @@ class ExperimentOut(ExperimentSummary):
     )
     current: dict[str, Any] | None = Field(
         deprecated=True, description="deprecated name of analysis (kept one release)")
+    arm_states: dict[str, State] | None = Field(
+        default=None, description="experiment plans: each treatment arm's state after the "
+        "latest look (running, stopped, completed); null for two-arm plans and before the "
+        "first look")
 
 
 class ExperimentCreated(ExperimentSummary):
