@@ -661,7 +661,9 @@ def _experiment_plan_display(info: PlanInfo) -> PlanDisplay:
              num(r.get("information_fraction")),
              "-" if r.get("n_control") is None else f"{r['n_control']:,}",
              "-" if r.get("n_treatment") is None else f"{r['n_treatment']:,}",
-             num(r.get("efficacy_z")), reporting_numbers.p_value(r.get("p_threshold"), exact=True), num(r.get("futility_z"))]
+             num(r.get("efficacy_z")),
+             reporting_numbers.p_value(r.get("p_threshold"), exact=True),
+             num(r.get("futility_z"))]
             for r in info.boundaries or []]
     return PlanDisplay(plan=info.plan, kind=info.kind, summary=str(info.plan.summary()),
                        table=(headers, rows), expected=None)

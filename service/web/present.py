@@ -293,6 +293,8 @@ def experiment_context(data: ExperimentData) -> dict[str, Any]:
         "facts": facts,
         "plan": plan,
         "comparisons": comparisons(data, plan),
+        "experiment": None,
+        "experiment_failed": False,
         "json_url": f"/v1/experiments/{d['id']}",
     }
 
