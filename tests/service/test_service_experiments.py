@@ -367,3 +367,20 @@ def test_an_amendment_keeps_the_kind_of_plan(client, key, document):
         "reason": "two arms", "design": {"kind": "group_sequential", "looks": 3, "metric": {
             "kind": "binary", "baseline": 0.1, "mde": 0.03}}}, headers=key))
     assert err["details"][0]["location"] == ["body", "design", "kind"]
+
+
+def test_the_documented_examples_work(client, key):
+    """The OpenAPI examples (service/api/examples.py; service/README.md shows them)."""
+    from service.api import examples
+    r = client.post("/v1/experiments", json=examples.CREATE_EXPERIMENT_PLAN["value"],
+                    headers=key)
+    assert r.status_code == 201, r.text
+    exp = r.json()
+    r = client.post(f"/v1/experiments/{exp['id']}/looks",
+                    json=examples.LOOK_EXPERIMENT["value"], headers=key)
+    assert r.status_code == 201, r.text
+    assert r.json()["arm_states"] == {"add-to-tray": "running", "order-now": "running"}
+    schema = client.get("/openapi.json").json()
+    create = schema["paths"]["/v1/experiments"]["post"]["requestBody"]["content"][
+        "application/json"]["examples"]
+    assert "experiment plan" in create

@@ -65,13 +65,17 @@ def create_experiment(
     body: Annotated[
         ExperimentCreate,
         Body(openapi_examples={"design": examples.CREATE_WITH_DESIGN,
-                               "document": examples.CREATE_WITH_PLAN}),
+                               "document": examples.CREATE_WITH_PLAN,
+                               "experiment plan": examples.CREATE_EXPERIMENT_PLAN}),
     ],
 ) -> JSONResponse:
     """Create an experiment: metric kind, arm names, planned allocation, and the plan,
     given either as a plan document or as the inputs to design it. The answer carries
     the experiment's id and the plan's boundary table. The plan is frozen from the first
-    look on; changes are recorded amendments."""
+    look on; changes are recorded amendments. A plan of kind `experiment` (one control,
+    1 to 8 treatments, primary and guardrail metrics) names its arms and metrics
+    itself: `arms`, `metric_kind` and `allocation`, when given, must be the plan's, and
+    its boundary table has one row per comparison (arm, metric) and planned look."""
     metric_kind = body.metric_kind if body.metric_kind is not None \
         else body.__dict__["metric"]  # the deprecated name, read without a warning
     fraction_basis = body.fraction_basis if body.fraction_basis is not None \
