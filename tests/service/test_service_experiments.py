@@ -384,3 +384,16 @@ def test_the_documented_examples_work(client, key):
     create = schema["paths"]["/v1/experiments"]["post"]["requestBody"]["content"][
         "application/json"]["examples"]
     assert "experiment plan" in create
+
+
+def test_impossible_sums_of_squares_are_located(client, key):
+    doc = experiment_document(guardrail=False, kind="continuous")
+    exp = create(client, key, doc)
+    # sum_sq below sum^2 / n makes the variance negative: impossible together
+    look = {CONTROL: {"n": 100, "sum": 1000, "sum_sq": 5000},
+            ARM_A: {"n": 100, "sum": 1000, "sum_sq": 20000},
+            ARM_B: {"n": 100, "sum": 1000, "sum_sq": 20000}}
+    detail = error(post(client, key, exp["id"], look))["details"][0]
+    assert detail["location"] == ["body", "totals", CONTROL, "sum_sq"]
+    assert detail["metric"] == "order_value"
+    assert client.get(f"/v1/experiments/{exp['id']}", headers=key).json()["look_count"] == 0
