@@ -406,13 +406,13 @@ def amend_plan(db: Database, principal: Principal, exp_id: str, req: AmendReques
         max_n = req.max_n if req.max_n is not None else exp.max_n
         if req.max_n is not None:
             source["max_n"] = req.max_n
-        if not exp.is_experiment_plan and plan.layout is None:
+        library.amended_layout(exp, plan, "plan" if req.plan.document is not None
+                               else "design")  # the kind of plan stays
+        if plan.layout is None:
             _metric_kind(exp.metric_kind, plan, "metric_kind")
             _check_sizing(plan, max_n)
         elif req.max_n is not None:
-            library.check_experiment_create(plan.layout or {}, {"max_n": req.max_n})
-        library.amended_layout(exp, plan, "plan" if req.plan.document is not None
-                               else "design")
+            library.check_experiment_create(plan.layout, {"max_n": req.max_n})
         try:
             with db.write() as conn:
                 locked = repo.lock_experiment(conn, principal.team_id, exp_id)

@@ -367,6 +367,14 @@ def test_an_amendment_keeps_the_kind_of_plan(client, key, document):
         "reason": "two arms", "design": {"kind": "group_sequential", "looks": 3, "metric": {
             "kind": "binary", "baseline": 0.1, "mde": 0.03}}}, headers=key))
     assert err["details"][0]["location"] == ["body", "design", "kind"]
+    # with a max_n too: still the kind that is named (max_n applies to neither)
+    err = error(client.post(f"/v1/experiments/{exp['id']}/amendments", json={
+        "reason": "two arms", "max_n": 5000, "plan": two_arm["plan"]["document"]},
+        headers=key))
+    assert err["details"][0]["location"] == ["body", "plan", "kind"]
+    err = error(client.post(f"/v1/experiments/{exp['id']}/amendments", json={
+        "reason": "a cap", "max_n": 5000, "design": {"looks": 4}}, headers=key))
+    assert err["details"][0]["location"] == ["body", "max_n"]
 
 
 def test_the_documented_examples_work(client, key):
