@@ -426,17 +426,28 @@ def _number(value: Any, where: str) -> int | float:
 
 def normalize_totals(totals: Mapping[str, Mapping[str, Any]]) -> dict[str, dict[str, Any]]:
     """Cumulative totals per arm name as the client sends them: plain numbers (whole
-    floats as ints), names as strings, every value checked to be a finite number."""
+    floats as ints), names as strings, every value checked to be a finite number. An
+    experiment with several metrics takes ``{metric: {arm: {total: number}}}``: each
+    metric's arms are normalised the same way."""
+    if isinstance(totals, Mapping) and totals and all(
+            isinstance(v, Mapping) and v and all(isinstance(x, Mapping) for x in v.values())
+            for v in totals.values()):
+        return {str(m): _normalize_arms(v, f"totals[{m!r}]") for m, v in totals.items()}
+    return _normalize_arms(totals, "totals")
+
+
+def _normalize_arms(totals: Any, where: str) -> dict[str, dict[str, Any]]:
     if not isinstance(totals, Mapping) or not totals:
-        raise InputError(f"totals: got {_compact(totals)}; allowed is a mapping "
+        raise InputError(f"{where}: got {_compact(totals)}; allowed is a mapping "
                          "{arm name: {total: number}}, e.g. {'control': {'n': 1000, "
-                         "'successes': 100}, 'treatment': {...}}")
+                         "'successes': 100}, 'treatment': {...}} (an experiment with "
+                         "several metrics: {metric: {arm name: {total: number}}})")
     out: dict[str, dict[str, Any]] = {}
     for arm, values in totals.items():
         if not isinstance(values, Mapping) or not values:
-            raise InputError(f"totals[{arm!r}]: got {_compact(values)}; allowed is a mapping "
-                             "{total: number}, e.g. {'n': 1000, 'successes': 100}")
-        out[str(arm)] = {str(k): _number(v, f"totals[{arm!r}][{k!r}]")
+            raise InputError(f"{where}[{arm!r}]: got {_compact(values)}; allowed is a "
+                             "mapping {total: number}, e.g. {'n': 1000, 'successes': 100}")
+        out[str(arm)] = {str(k): _number(v, f"{where}[{arm!r}][{k!r}]")
                          for k, v in values.items()}
     return out
 
@@ -546,7 +557,7 @@ class Experiment(_AnalysisViews):
     decision: str | None
     look_count: int
     metric_kind: str
-    arms: dict[str, str]
+    arms: dict[str, str] | list[str]
     max_n: float | None = None
     plan_version: int = 1
     plan: dict[str, Any] | None = field(default=None, repr=False)
@@ -565,10 +576,24 @@ class Experiment(_AnalysisViews):
             id=str(d["id"]), name=str(d.get("name", "")), state=str(d.get("state")),
             decision=d.get("decision"), look_count=int(d.get("look_count") or 0),
             metric_kind=str(d.get("metric_kind", "")),
-            arms=dict(d.get("arms") or {}), max_n=d.get("max_n"),
+            arms=list(d["arms"]) if isinstance(d.get("arms"), list)
+            else dict(d.get("arms") or {}), max_n=d.get("max_n"),
             plan_version=int(d.get("plan_version") or 1), plan=d.get("plan"),
             looks=list(looks), analysis=analysis if analysis is not None else d.get("analysis"),
             replayed=replayed, raw=dict(d))
+
+    @property
+    def is_experiment_plan(self) -> bool:
+        """Many arms and several metrics: ``arms`` is the list of names, the control
+        first, and looks are ``{arm: totals}`` or ``{metric: {arm: totals}}``."""
+        return isinstance(self.arms, list)
+
+    @property
+    def control(self) -> str:
+        """The control arm's name."""
+        if isinstance(self.arms, list):
+            return self.arms[0]
+        return self.arms.get("control", "control")
 
     @property
     def closed(self) -> bool:
@@ -933,6 +958,8 @@ class Client:
             :func:`seqtest.design`, with ``kind="mixture"`` for :func:`seqtest.mixture_plan`).
         arms : (control, treatment) or {"control": ..., "treatment": ...}, optional
             The arms' names; looks are posted under them. Default control, treatment.
+            An experiment plan (``seqtest.experiment_plan``, many arms) names its arms
+            itself: leave them out, or give the same names, the control first.
         metric_kind, allocation, max_n, fraction_basis, description : optional
             As the service takes them; left out, the service's defaults apply.
         idempotency_key : str, optional
@@ -1129,15 +1156,20 @@ class Client:
         :meth:`post_looks` for what is accepted)."""
         if isinstance(looks, Sequence) and not isinstance(looks, (str, bytes)):
             out = [normalize_totals(lk) for lk in looks]
+            if isinstance(exp.arms, list):
+                return out          # an experiment plan's looks go as they are
+            arms = exp.arms
             roles = {"control", "treatment"}
-            names = {exp.arms.get("control"), exp.arms.get("treatment")}
+            names = {arms.get("control"), arms.get("treatment")}
             if out and names != roles and all(set(lk) == roles for lk in out):
                 # keyed by role, as seqtest.analyze takes looks: put under the names
-                out = [{exp.arms[role]: v for role, v in lk.items()} for lk in out]
+                out = [{arms[role]: v for role, v in lk.items()} for lk in out]
             return out
         table = looks
         if not hasattr(table, "treatments"):
             table = read_table_for(exp, looks, columns=columns, control=control)
+        if isinstance(exp.arms, list):
+            return [normalize_totals(lk) for lk in _by_plan_arm_names(exp, table)]
         return [normalize_totals(lk) for lk in _by_experiment_names(exp, table)]
 
 
@@ -1157,14 +1189,17 @@ def _path_id(experiment_id: str) -> str:
     return quote(experiment_id.strip(), safe="")
 
 
-def _arms(arms: Sequence[str] | Mapping[str, str]) -> dict[str, str]:
+def _arms(arms: Sequence[str] | Mapping[str, str]) -> dict[str, str] | list[str]:
     if isinstance(arms, Mapping):
         if set(arms) != {"control", "treatment"}:
             raise InputError(f"arms: got {dict(arms)!r}; allowed is {{'control': NAME, "
                              "'treatment': NAME}")
         return {"control": str(arms["control"]), "treatment": str(arms["treatment"])}
-    if isinstance(arms, (str, bytes)) or len(arms) != 2:
-        raise InputError(f"arms: got {arms!r}; allowed is (control name, treatment name)")
+    if isinstance(arms, (str, bytes)) or len(arms) < 2:
+        raise InputError(f"arms: got {arms!r}; allowed is (control name, treatment name), "
+                         "or for an experiment plan its arms' names, the control first")
+    if len(arms) > 2:
+        return [str(a) for a in arms]     # an experiment plan's arms
     return {"control": str(arms[0]), "treatment": str(arms[1])}
 
 
@@ -1185,7 +1220,11 @@ def read_table_for(exp: Experiment, frame: Any, *,
     kind = exp.metric_kind or None
     if control is not None:
         return read_arm_looks(frame, kind, columns=columns, control=control)
-    ours = exp.arms.get("control", "control")
+    if isinstance(exp.arms, list) and len(exp.raw.get("metrics") or []) > 1:
+        raise InputError(f"looks: experiment {exp.id} has several metrics, and a table of "
+                         "looks holds one; give the looks as a list of {metric: {arm: "
+                         "totals}}")
+    ours = exp.control
     try:
         return read_arm_looks(frame, kind, columns=columns, control=ours)
     except LookDataError as exc:
@@ -1194,13 +1233,26 @@ def read_table_for(exp: Experiment, frame: Any, *,
     return read_arm_looks(frame, kind, columns=columns, control=None)
 
 
+def _by_plan_arm_names(exp: Experiment, table: Any) -> list[dict[str, dict[str, Any]]]:
+    """The looks of an ArmLooks keyed by an experiment plan's arm names (the data's names
+    compared as the look tables compare them)."""
+    ours = {_arm_key(a): a for a in exp.arms}
+    names = [table.control, *table.treatments]
+    unknown = [n for n in names if _arm_key(n) not in ours]
+    if unknown:
+        raise InputError(f"arms: got {unknown[0]!r} in the data; allowed for experiment "
+                         f"{exp.id} are its arms {', '.join(exp.arms)}")
+    return [{ours[_arm_key(n)]: dict(v) for n, v in look.items()} for look in table.looks]
+
+
 def _by_experiment_names(exp: Experiment, table: Any) -> list[dict[str, dict[str, Any]]]:
     """The looks of an ArmLooks keyed by the experiment's arm names: the table's control
     is the experiment's control, its treatment the experiment's treatment; names must be
     the experiment's or the roles ``control`` and ``treatment``."""
     roles = table.roles()              # refuses more than one treatment
-    ours = {"control": exp.arms.get("control", "control"),
-            "treatment": exp.arms.get("treatment", "treatment")}
+    arms = exp.arms if isinstance(exp.arms, Mapping) else {}
+    ours = {"control": arms.get("control", "control"),
+            "treatment": arms.get("treatment", "treatment")}
     for role, name in roles.items():
         if _arm_key(name) not in (_arm_key(ours[role]), role):
             raise InputError(

@@ -34,7 +34,7 @@ import seqtest.reporting.style as reporting_style
 from seqtest import DECISIONS as _DECISIONS
 from seqtest import LookDataError
 from seqtest.core.jsonable import plain
-from seqtest.core.vocabulary import ARMS, METRIC_KINDS, PLAN_KINDS
+from seqtest.core.vocabulary import ARMS, EXPERIMENT_KIND, METRIC_KINDS, PLAN_KINDS
 from seqtest.monitoring.rules import FRACTION_BASES
 from seqtest.planning.design import MAX_LOOKS
 from service.db.records import Experiment
@@ -44,8 +44,10 @@ log = logging.getLogger("seqtest.service")
 
 DECISIONS = tuple(d.value for d in _DECISIONS)
 ROLES = ARMS  # the library's names of the two arms in a look
-__all__ = ["DECISIONS", "FRACTION_BASES", "MAX_LOOKS", "METRIC_KINDS", "PLAN_KINDS",
-           "ROLES"]
+# every kind of plan the service takes: the two-arm kinds and many-arm experiments
+DOCUMENT_KINDS = (*PLAN_KINDS, EXPERIMENT_KIND)
+__all__ = ["DECISIONS", "DOCUMENT_KINDS", "EXPERIMENT_KIND", "FRACTION_BASES", "MAX_LOOKS",
+           "METRIC_KINDS", "PLAN_KINDS", "ROLES"]
 
 # design inputs per kind of plan (the library's argument names)
 DESIGN_INPUTS = {
@@ -54,6 +56,9 @@ DESIGN_INPUTS = {
                          "futility", "binding", "metric"),
     "mixture": ("alpha", "sides", "mde", "max_n_per_arm", "unit_variance", "tau2", "scale",
                 "metric"),
+    EXPERIMENT_KIND: ("arms", "metrics", "allocations", "alpha", "sides", "power", "looks",
+                      "information_fractions", "efficacy", "futility", "binding", "method",
+                      "weights", "transitions", "power_for"),
 }
 MAX_GRID_R = 48  # integration grid of a plan document (the library's default is 24)
 
@@ -102,6 +107,8 @@ class PlanInfo:
     binding: bool
     boundaries: list[dict[str, Any]] | None
     design_inputs: dict[str, Any]  # inputs an amendment may start from
+    # an experiment plan's arms, metrics and metric kind (None for two-arm plans)
+    layout: dict[str, Any] | None = None
 
 
 def _bad_plan(location: list[Any], message: str) -> InvalidPlan:
@@ -116,14 +123,17 @@ def check_document_shape(document: Any, location: list[Any]) -> None:
         raise _bad_plan(location, "got a non-object; allowed is a plan document, a JSON "
                         "object with kind, inputs and computed (from `seqtest plan --json`)")
     kind = document.get("kind")
-    if kind not in PLAN_KINDS:
+    if kind not in DOCUMENT_KINDS:
         raise _bad_plan([*location, "kind"], f"got {kind!r}; allowed are "
-                        f"{', '.join(PLAN_KINDS)}")
+                        f"{', '.join(DOCUMENT_KINDS)}")
     for part in ("inputs", "computed"):
         if not isinstance(document.get(part), dict):
             raise _bad_plan([*location, part], f"got {type(document.get(part)).__name__}; "
                             "allowed is a JSON object, as written by `seqtest plan --json`")
     inputs = document["inputs"]
+    if kind == EXPERIMENT_KIND:
+        _check_experiment_shape(inputs, location)
+        return
     metric = inputs.get("metric")
     if metric is not None and not isinstance(metric, dict):
         raise _bad_plan([*location, "inputs", "metric"],
@@ -149,6 +159,8 @@ def inputs_of_document(document: dict[str, Any]) -> dict[str, Any]:
     """A plan document's inputs as design arguments (the names the library's design
     functions take; a first-release document's ``info_fractions`` under its new name)."""
     inputs = document.get("inputs") if isinstance(document, dict) else None
+    if isinstance(document, dict) and document.get("kind") == EXPERIMENT_KIND:
+        return _experiment_arguments(inputs or {})
     out = {k: v for k, v in (inputs or {}).items() if k != "grid_r"}
     if "info_fractions" in out:
         out["information_fractions"] = out.pop("info_fractions")
@@ -210,6 +222,8 @@ def boundary_table(plan: Any, location: list[Any]) -> list[dict[str, Any]] | Non
 
 def _plan_info(plan: Any, location: list[Any], design_inputs: dict[str, Any] | None = None
                ) -> PlanInfo:
+    if isinstance(plan, seqtest.ExperimentPlan):
+        return _experiment_info(plan, location, design_inputs)
     try:
         document = json_safe(plan.to_dict())
         metric = getattr(plan, "metric", None)
@@ -250,9 +264,12 @@ def read_plan(document: Any, location: list[Any] | None = None, *, trust: bool =
         plan = seqtest.plan_from_dict(document, trust=trust)
     except (ValueError, TypeError) as exc:
         message = _text(exc)
+        field = getattr(exc, "field", None) if document.get("kind") == EXPERIMENT_KIND \
+            else None
+        where = [*location, *_field_path(field)] if isinstance(field, str) and field \
+            else _named_location(message, location)
         raise InvalidPlan(f"The plan document is not usable: {message}",
-                          details=[{"location": _named_location(message, location),
-                                    "message": message}]) from exc
+                          details=[{"location": where, "message": message}]) from exc
     except Exception as exc:  # the library failed reading it: still the document's fault
         log.warning("plan document not readable: %s", type(exc).__name__, exc_info=True)
         raise InvalidPlan(
@@ -280,6 +297,9 @@ def design_plan(kind: str, inputs: dict[str, Any], location: list[Any] | None = 
     try:
         if kind == "mixture":
             plan = seqtest.mixture.mixture_plan(**inputs)
+        elif kind == EXPERIMENT_KIND:
+            _check_experiment_inputs(inputs, location)
+            plan = seqtest.experiment_plan(**inputs)
         else:
             plan = seqtest.design(**inputs)
     except (ValueError, TypeError) as exc:
@@ -305,7 +325,11 @@ def stored_boundaries(document: dict[str, Any]) -> list[dict[str, Any]] | None:
 
 
 def to_roles(exp: Experiment, totals: dict[str, dict[str, float]]) -> dict[str, dict]:
-    """Posted totals keyed by arm name -> keyed by role (control, treatment)."""
+    """Posted totals keyed by arm name -> keyed by role (control, treatment); for an
+    experiment plan, ``{metric: {arm: totals}}`` checked against its arms and metrics
+    (see :func:`experiment_totals`)."""
+    if exp.is_experiment_plan:
+        return experiment_totals(exp, totals)
     names = {exp.control_arm: ROLES[0], exp.treatment_arm: ROLES[1]}
     unknown = sorted(set(totals) - set(names))
     if unknown:
@@ -329,7 +353,10 @@ def to_roles(exp: Experiment, totals: dict[str, dict[str, float]]) -> dict[str, 
 
 
 def to_names(exp: Experiment, totals: dict[str, Any]) -> dict[str, Any]:
-    """Stored totals keyed by role -> keyed by the experiment's arm names."""
+    """Stored totals keyed by role -> keyed by the experiment's arm names (an experiment
+    plan's are stored by name already)."""
+    if exp.is_experiment_plan:
+        return totals
     names = {ROLES[0]: exp.control_arm, ROLES[1]: exp.treatment_arm}
     return {names.get(role, role): values for role, values in totals.items()}
 
@@ -338,13 +365,17 @@ def state_after(decision: str, final: bool, binding: bool) -> str:
     """The experiment's state after a look with this decision.
 
     ``completed`` at a final look or a completion without significance;
-    ``stopped`` for an efficacy stop or a *binding* futility stop; otherwise
-    ``running``: a non-binding futility crossing advises stopping, and further
-    looks stay valid (the type I error holds whether or not it is obeyed).
+    ``stopped`` for an efficacy stop, a stop for harm (experiment plans: the overall
+    decision, once no arm runs and one crossed a guardrail) or a *binding* futility
+    stop; otherwise ``running``: a non-binding futility crossing advises stopping, and
+    further looks stay valid (the type I error holds whether or not it is obeyed).
+    An experiment plan's decision is its overall one, so an arm that stops while
+    others run leaves the experiment ``running``.
     """
     if final or decision == "complete_not_significant":
         return "completed"
-    if decision == "stop_efficacy" or (decision == "stop_futility" and binding):
+    if decision in ("stop_efficacy", "stop_harm") or (decision == "stop_futility"
+                                                     and binding):
         return "stopped"
     return "running"
 
@@ -369,6 +400,8 @@ def analyze_look(
 ) -> LookOutcome:
     """Analyse every stored look plus the new one; keep the new look's own row and
     the summary (everything else the library computed is already stored)."""
+    if exp.is_experiment_plan:
+        return _analyze_experiment_look(exp, plan, prior, roles, final, daily_traffic)
     looks = [*prior, roles]
     options: dict[str, Any] = {}
     if exp.max_n is not None:
@@ -432,6 +465,8 @@ def _totals_error(exc: LookDataError, exp: Experiment, this_look: int) -> Invali
 
 def analysis_object(summary: dict[str, Any], rows: list[Any]) -> dict[str, Any]:
     """The analysis in the library's shape: the summary and the rows of the looks."""
+    if summary.get("kind") == EXPERIMENT_KIND:
+        return _experiment_analysis_object(summary, rows)
     return dict(sorted({**summary, "looks": rows}.items()))
 
 
@@ -555,6 +590,8 @@ class PlanDisplay:
 
 def plan_display(info: PlanInfo) -> PlanDisplay:
     """The summary and the boundary table of a plan read or designed by the library."""
+    if info.layout is not None:
+        return _experiment_plan_display(info)
     plan = _SizedOnce(info.plan)
     expected = None
     if info.kind == "group_sequential" and getattr(info.plan, "metric", None):
@@ -567,3 +604,401 @@ def plan_display(info: PlanInfo) -> PlanDisplay:
     return PlanDisplay(plan=info.plan, kind=info.kind,
                        summary=str(reporting.plan_summary(plan)),
                        table=reporting.plan_table_rows(plan), expected=expected)
+
+
+# ----------------------------------------------------------------------- experiments
+# Plans of kind "experiment" (seqtest.experiment_plan): one control, 1 to 8 treatments,
+# metrics with roles (primary, guardrail). Their looks are {arm: totals} (one metric)
+# or {metric: {arm: totals}}, stored as posted; their analysis is the library's
+# ExperimentAnalysis, stored as for two-arm plans: each look's own rows (one per
+# comparison, keyed "arm/metric") once, and the look-level summary.
+
+NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.\-]{0,63}$"  # arm and metric names a look can key
+_NAME = re.compile(NAME_PATTERN)
+MAX_METRICS = 10  # metrics of one experiment plan: each adds a comparison per arm to a look
+_INDEX = re.compile(r"\[(\d+)\]")
+
+
+def _field_path(field: str) -> list[Any]:
+    """``"computed.comparisons[0].efficacy_z[2]"`` -> its location parts."""
+    out: list[Any] = []
+    for part in field.split("."):
+        head = _INDEX.split(part)
+        if head[0]:
+            out.append(head[0])
+        out += [int(x) for x in head[1::2]]
+    return out
+
+
+def arm_state(decision: Any) -> str:
+    """A treatment arm's state after its decision (experiment plans): ``running`` while
+    it continues, ``completed`` at its final look without significance, else
+    ``stopped`` (efficacy, harm, or futility: a dropped arm is not analysed again)."""
+    if decision == "continue":
+        return "running"
+    if decision == "complete_not_significant":
+        return "completed"
+    return "stopped"
+
+
+def arm_states(summary: dict[str, Any] | None) -> dict[str, str] | None:
+    """Each treatment arm's state after a look of an experiment plan (None for two-arm
+    plans, whose state is the experiment's)."""
+    if not summary or summary.get("kind") != EXPERIMENT_KIND:
+        return None
+    return {str(a.get("arm")): arm_state(a.get("decision"))
+            for a in summary.get("arms") or [] if isinstance(a, dict)}
+
+
+def _experiment_plan_display(info: PlanInfo) -> PlanDisplay:
+    """An experiment plan's own summary and its boundary table per comparison."""
+    headers = ["arm", "metric", "role", "look", "fraction", "users, control",
+               "users, arm", "efficacy z", "p to stop", "futility z"]
+
+    def num(value: Any, digits: int = 3) -> str:
+        return "-" if value is None else f"{float(value):.{digits}f}"
+    rows = [[str(r["arm"]), str(r["metric"]), str(r["role"]), str(r["look"]),
+             num(r.get("information_fraction")),
+             "-" if r.get("n_control") is None else f"{r['n_control']:,}",
+             "-" if r.get("n_treatment") is None else f"{r['n_treatment']:,}",
+             num(r.get("efficacy_z")),
+             reporting_numbers.p_value(r.get("p_threshold"), exact=True),
+             num(r.get("futility_z"))]
+            for r in info.boundaries or []]
+    return PlanDisplay(plan=info.plan, kind=info.kind, summary=str(info.plan.summary()),
+                       table=(headers, rows), expected=None)
+
+
+def _check_experiment_shape(inputs: dict[str, Any], location: list[Any]) -> None:
+    """Caps on what a client may choose in an experiment document (the library reads
+    and verifies the rest): looks, metrics, the integration grid."""
+    fr = inputs.get("information_fractions")
+    if isinstance(fr, list) and not 1 <= len(fr) <= MAX_LOOKS:
+        raise _bad_plan([*location, "inputs", "information_fractions"],
+                        f"got {len(fr)} looks; allowed is 1 to {MAX_LOOKS}")
+    metrics = inputs.get("metrics")
+    if isinstance(metrics, list) and len(metrics) > MAX_METRICS:
+        raise _bad_plan([*location, "inputs", "metrics"],
+                        f"got {len(metrics)} metrics; allowed is 1 to {MAX_METRICS}")
+    if "grid_r" in inputs:
+        r = inputs["grid_r"]
+        if isinstance(r, bool) or not isinstance(r, int) or not 8 <= r <= MAX_GRID_R:
+            raise _bad_plan([*location, "inputs", "grid_r"],
+                            f"got {r!r}; allowed is a whole number from 8 to {MAX_GRID_R}")
+
+
+def _check_experiment_inputs(inputs: dict[str, Any], location: list[Any]) -> None:
+    metrics = inputs.get("metrics")
+    if isinstance(metrics, list) and len(metrics) > MAX_METRICS:
+        raise _bad_plan([*location, "metrics"],
+                        f"got {len(metrics)} metrics; allowed is 1 to {MAX_METRICS}")
+
+
+def _experiment_arguments(inputs: dict[str, Any]) -> dict[str, Any]:
+    """An experiment document's inputs as ``seqtest.experiment_plan``'s arguments (an
+    amendment designs from them)."""
+    out = {k: v for k, v in inputs.items()
+           if k not in ("arms", "grid_r", "weights", "transitions")}
+    arms = inputs.get("arms")
+    if isinstance(arms, list):
+        out["arms"] = [a.get("name") if isinstance(a, dict) else a for a in arms]
+        alloc = [a.get("allocation", 1.0) for a in arms[1:] if isinstance(a, dict)]
+        if alloc:
+            out["allocations"] = alloc
+    for key in ("weights", "transitions"):
+        if inputs.get(key) is not None:
+            out[key] = inputs[key]
+    return out
+
+
+def _experiment_layout(plan: Any) -> dict[str, Any]:
+    """What the service keeps of an experiment plan beside its document: the arms (the
+    control first, each treatment with its allocation), the metrics (name, role, kind)
+    and the experiment's metric kind (its first primary metric's)."""
+    arms: list[dict[str, Any]] = [{"name": plan.control}]
+    arms += [{"name": t, "allocation": float(a)}
+             for t, a in zip(plan.treatments, plan.allocations, strict=True)]
+    metrics = [{"name": m.name, "role": m.role, "metric_kind": m.kind} for m in plan.metrics]
+    primary = next(m for m in metrics if m["role"] == "primary")
+    return {"arms": arms, "metrics": metrics, "metric_kind": primary["metric_kind"]}
+
+
+def experiment_boundary_table(plan: Any, location: list[Any]) -> list[dict[str, Any]]:
+    """The boundary table per comparison: for each (arm, metric) in the plan's order
+    (primaries, then guardrails), one row per planned look with the comparison's
+    boundaries and the users (exposure, for rates) of the control and of the arm the
+    plan expects by then."""
+    rows: list[dict[str, Any]] = []
+    for c in plan.comparisons:
+        table = boundary_table(c.plan, location) or []
+        n_c, n_t = plan.sizes[c.metric][plan.control], plan.sizes[c.metric][c.arm]
+        for j, row in enumerate(table):
+            rows.append(json_safe({"arm": c.arm, "metric": c.metric, "role": c.role, **row,
+                                   "n_control": int(n_c[j]), "n_treatment": int(n_t[j])}))
+    return rows
+
+
+def _experiment_info(plan: Any, location: list[Any], design_inputs: dict[str, Any] | None
+                     ) -> PlanInfo:
+    designed = design_inputs is not None
+    for i, name in enumerate(plan.arms):
+        if not _NAME.match(name):
+            where = [*location, "arms", i] if designed else \
+                [*location, "inputs", "arms", i, "name"]
+            raise _bad_plan(where, f"got {name!r}; an arm's name must be "
+                            "1 to 64 letters, digits, '_', '.', '-', starting with a letter "
+                            "or digit (looks are keyed by it)")
+    for i, m in enumerate(plan.metrics):
+        if not _NAME.match(m.name):
+            raise _bad_plan([*location, *([] if designed else ["inputs"]), "metrics", i,
+                             "name"],
+                            f"got {m.name!r}; a metric's name must be 1 to 64 letters, "
+                            "digits, '_', '.', '-', starting with a letter or digit (looks "
+                            "are keyed by it)")
+    try:
+        document = json_safe(plan.to_dict())
+        table = experiment_boundary_table(plan, location)
+        layout = _experiment_layout(plan)
+    except InvalidPlan:
+        raise
+    except Exception as exc:  # the library failed on a plan it accepted
+        log.warning("plan not usable: %s", type(exc).__name__, exc_info=True)
+        raise _bad_plan(location, f"the plan cannot be used ({type(exc).__name__}: "
+                        f"{_text(exc)})") from exc
+    if design_inputs is None:
+        design_inputs = inputs_of_document(document)
+    return PlanInfo(plan=plan, kind=EXPERIMENT_KIND, document=document,
+                    metric_kind=layout["metric_kind"], binding=bool(plan.binding),
+                    boundaries=table, design_inputs=design_inputs, layout=layout)
+
+
+def _refuse_totals(where: list[Any], message: str, **extra: Any) -> InvalidTotals:
+    text = ".".join(str(p) for p in where[1:])
+    return InvalidTotals(f"{text}: {message}",
+                         details=[{"location": where, "message": message, **extra}])
+
+
+def experiment_totals(exp: Experiment, totals: dict[str, Any]) -> dict[str, Any]:
+    """A look of an experiment plan as posted, checked against its arms and metrics:
+    ``{arm: totals}`` (one metric) or ``{metric: {arm: totals}}`` (any number), every
+    name one of the plan's, the control present under every metric. What else the
+    totals must satisfy (every arm still running present, cumulative, possible) is the
+    library's to check. Returned as posted (stored so)."""
+    assert exp.arms is not None and exp.metrics is not None
+    arms = [a["name"] for a in exp.arms]
+    metrics = [m["name"] for m in exp.metrics]
+    control = arms[0]
+    body = ["body", "totals"]
+    nested = [k for k in totals if k in metrics]
+    flat = [k for k in totals if k not in metrics]
+    for key, values in totals.items():
+        inner = [isinstance(v, dict) for v in values.values()]
+        if key in metrics and not all(inner):
+            bad = next(f for f, v in values.items() if not isinstance(v, dict))
+            raise _refuse_totals([*body, key, bad], f"got a number under metric {key!r}; "
+                                 "allowed is {arm: {total: number}} for each metric",
+                                 metric=key)
+        if key not in metrics and any(inner):
+            if key not in arms:
+                raise _refuse_totals([*body, key], f"unknown metric {key!r}; this "
+                                     f"experiment's metrics are {', '.join(metrics)}",
+                                     metric=key)
+            bad = next(f for f, v in values.items() if isinstance(v, dict))
+            raise _refuse_totals([*body, key, bad], "got an object where a total was "
+                                 "expected; allowed is {total: number} for each arm",
+                                 arm=key)
+    if flat and (nested or len(metrics) > 1):
+        key = flat[0]
+        if key in arms:
+            raise _refuse_totals([*body, key], f"arm {key!r} at the top of the look; this "
+                                 "experiment has the metrics " + ", ".join(metrics) +
+                                 ", so a look is {metric: {arm: totals}}", arm=key)
+        raise _refuse_totals([*body, key], f"unknown metric {key!r}; this experiment's "
+                             f"metrics are {', '.join(metrics)}", metric=key)
+    per = {m: totals[m] for m in nested} if nested else {metrics[0]: totals}
+    for metric, values in per.items():
+        prefix = [*body, metric] if nested else list(body)
+        for arm in values:
+            if arm not in arms:
+                raise _refuse_totals([*prefix, arm], f"unknown arm {arm!r}; this "
+                                     f"experiment's arms are {', '.join(arms)} (the "
+                                     "control first)", arm=arm,
+                                     metric=metric if nested else None)
+        if control not in values:
+            raise _refuse_totals([*prefix, control], f"the control {control!r} is "
+                                 "missing; every look needs the control's totals"
+                                 + (f" for every metric ({metric!r})" if nested else ""),
+                                 arm=control, metric=metric if nested else None)
+    missing = [m for m in metrics if m not in per]
+    if missing:
+        raise _refuse_totals([*body, missing[0]], f"metric {missing[0]!r} is missing; every "
+                             f"look needs the totals of every metric ({', '.join(metrics)})",
+                             metric=missing[0])
+    return {k: {a: dict(v) for a, v in values.items()} for k, values in totals.items()} \
+        if nested else {a: dict(v) for a, v in totals.items()}
+
+
+def _experiment_totals_error(exc: LookDataError, exp: Experiment, new_look: dict[str, Any],
+                             this_look: int) -> InvalidTotals:
+    """A library refusal of an experiment's totals, located where the new look puts the
+    value (``["body", "totals", (metric,) arm, field]``)."""
+    assert exp.metrics is not None
+    metric = getattr(exc, "metric", None)
+    nested = any(k in {m["name"] for m in exp.metrics} for k in new_look)
+    location: list[Any] = ["body", "totals"]
+    if metric is not None and nested:
+        location.append(metric)
+    if exc.arm is not None:
+        location.append(exc.arm)
+    if exc.field is not None and exc.field != "metric":
+        location.append(exc.field)
+    detail = exc.detail
+    if exc.look is not None and exc.look != this_look:
+        detail += f" (at stored look {exc.look})"
+    where = ".".join(str(p) for p in location[1:])
+    return InvalidTotals(f"{where}: {detail}", details=[{
+        "location": location, "message": detail, "look": exc.look, "arm": exc.arm,
+        "metric": metric, "field": exc.field}])
+
+
+def _analyze_experiment_look(exp: Experiment, plan: PlanInfo, prior: list[dict[str, Any]],
+                             look: dict[str, Any], final: bool,
+                             daily_traffic: float | None) -> LookOutcome:
+    if daily_traffic is not None:
+        raise Unprocessable(
+            "daily_traffic: does not apply to an experiment with many arms (its analysis "
+            "projects no days); leave it out",
+            details=[{"location": ["body", "daily_traffic"],
+                      "message": "not for experiment plans"}])
+    looks = [*prior, look]
+    number = len(looks)
+    try:
+        result = seqtest.analyze(plan.plan, looks, final=final)
+        analysis = json_safe(result.to_dict())
+    except LookDataError as exc:
+        raise _experiment_totals_error(exc, exp, look, number) from exc
+    except (ValueError, TypeError) as exc:
+        message = _text(exc)
+        raise Unprocessable(f"The look cannot be analysed: {message}",
+                            details=[{"location": _named_location(message, ["body"]),
+                                      "message": message}]) from exc
+    except Exception as exc:
+        log.warning("analysis failed on experiment %s: %s", exp.id, type(exc).__name__,
+                    exc_info=True)
+        raise AnalysisFailed(
+            "The look cannot be analysed: the computation failed on these totals under "
+            f"this plan ({type(exc).__name__}: {_text(exc)}). Nothing was stored. Check "
+            "that the totals are cumulative and in a plausible range."
+        ) from exc
+    decision = analysis.get("decision")
+    if decision not in DECISIONS:
+        raise AnalysisFailed(f"The look cannot be analysed: the library returned the unknown "
+                             f"decision {decision!r}. Nothing was stored.")
+    rows: dict[str, Any] = {}
+    comparisons = []
+    for c in analysis.get("comparisons") or []:
+        label = f"{c.get('arm')}/{c.get('metric')}"
+        for row in c.get("looks") or []:
+            if isinstance(row, dict) and row.get("look") == number:
+                rows[label] = row
+        comparisons.append({k: v for k, v in c.items() if k != "looks"})
+    summary = {**analysis, "comparisons": comparisons}
+    return LookOutcome(decision=decision, state=state_after(decision, final, plan.binding),
+                       result=rows, summary=summary)
+
+
+def _experiment_analysis_object(summary: dict[str, Any], rows: list[Any]) -> dict[str, Any]:
+    """An experiment's analysis: the summary, each comparison with the stored rows of
+    the looks given (``rows``: each look's ``{"arm/metric": row}``)."""
+    comparisons = []
+    for c in summary.get("comparisons") or []:
+        label = f"{c.get('arm')}/{c.get('metric')}"
+        looks = [r[label] for r in rows if isinstance(r, dict) and isinstance(r.get(label),
+                                                                              dict)]
+        comparisons.append({**c, "looks": looks})
+    return dict(sorted({**summary, "comparisons": comparisons}.items()))
+
+
+def check_experiment_create(layout: dict[str, Any], given: dict[str, Any]) -> None:
+    """A create request's own fields against its experiment plan: arms, metric kind and
+    allocation, when given, must be the plan's; ``max_n`` and a fraction basis other
+    than ``sample`` do not apply (the plan sizes every arm, fractions are by sample)."""
+    arms = [a["name"] for a in layout["arms"]]
+    treatments = arms[1:]
+
+    def refuse(where: list[Any], message: str) -> Unprocessable:
+        return Unprocessable(f"{'.'.join(str(p) for p in where)}: {message}",
+                             details=[{"location": ["body", *where],
+                                       "message": message}])
+    kind = given.get("metric_kind")
+    if kind is not None and kind != layout["metric_kind"]:
+        raise refuse(["metric_kind"], f"got {kind!r} but the plan's primary metric is "
+                     f"{layout['metric_kind']!r}; give the same kind, or leave it out")
+    names = given.get("arms")
+    if isinstance(names, list):
+        if names != arms:
+            i = next((j for j, (a, b) in enumerate(zip(names, arms, strict=False))
+                      if a != b),
+                     min(len(names), len(arms)))
+            raise refuse(["arms", i] if i < len(names) else ["arms"],
+                         f"got {names!r} but the plan's arms are {arms!r} (the control "
+                         "first); give the same names, or leave arms out")
+    elif isinstance(names, dict):
+        if names.get("control") != arms[0]:
+            raise refuse(["arms", "control"], f"got {names.get('control')!r} but the plan's "
+                         f"control is {arms[0]!r}; give the same name, or leave arms out")
+        if len(treatments) != 1 or names.get("treatment") != treatments[0]:
+            raise refuse(["arms", "treatment"], f"got {names.get('treatment')!r} but the "
+                         f"plan's treatments are {', '.join(treatments)}; give arms as the "
+                         "plan's list of names, or leave arms out")
+    alloc = given.get("allocation")
+    planned = [a["allocation"] for a in layout["arms"][1:]]
+    if alloc is not None and any(abs(float(alloc) - p) > 1e-12 for p in planned):
+        shown = ", ".join(f"{t} {p:g}" for t, p in zip(treatments, planned, strict=True))
+        raise refuse(["allocation"], f"got {alloc!r} but the plan's allocations are "
+                     f"{shown}; leave allocation out (the plan carries each arm's)")
+    if given.get("max_n") is not None:
+        raise refuse(["max_n"], "does not apply to an experiment plan (it sizes every arm "
+                     "of every metric itself); leave it out")
+    basis = given.get("fraction_basis")
+    if basis is not None and basis != "sample":
+        raise refuse(["fraction_basis"], f"got {basis!r}; an experiment plan measures "
+                     "fractions by sample; leave it out")
+
+
+def amended_layout(exp: Experiment, plan: PlanInfo, source: str) -> dict[str, Any] | None:
+    """An amendment's plan against the experiment: a two-arm experiment stays two-arm and
+    an experiment plan stays one; once looks exist an experiment plan keeps its arms
+    and its metrics (names, roles, kinds). Returns the layout to store when an amendment
+    before the first look changed it, else None."""
+    if exp.is_experiment_plan != (plan.layout is not None):
+        have = "an experiment plan (many arms)" if exp.is_experiment_plan else \
+            "a two-arm plan"
+        raise Unprocessable(
+            f"{source}.kind: got {plan.kind!r} but this experiment has {have}; an "
+            "amendment keeps the kind of plan (create a new experiment for another)",
+            details=[{"location": ["body", source, "kind"],
+                      "message": "differs from the experiment's kind of plan"}])
+    if plan.layout is None:
+        return None
+    new = plan.layout
+    if new["arms"] == exp.arms and new["metrics"] == exp.metrics:
+        return None
+    if exp.look_count == 0:
+        return new
+    old_arms = [a["name"] for a in exp.arms or []]
+    new_arms = [a["name"] for a in new["arms"]]
+    if new_arms != old_arms or new["arms"] != exp.arms:
+        what, field = (f"arms {new_arms} (allocations "
+                       f"{[a.get('allocation') for a in new['arms'][1:]]}) instead of "
+                       f"{old_arms} (allocations "
+                       f"{[a.get('allocation') for a in (exp.arms or [])[1:]]})"), "arms"
+    else:
+        what, field = (f"metrics {new['metrics']} instead of {exp.metrics}", "metrics")
+    raise Unprocessable(
+        f"{source}.{field}: the amended plan has {what}, and {exp.look_count} look(s) are "
+        "recorded; once looks exist an amendment keeps the experiment's arms and metrics "
+        "(create a new experiment for others)",
+        details=[{"location": ["body", source, *(["inputs"] if source == "plan" else []),
+                               field],
+                  "message": "differs from the experiment's; looks exist"}])

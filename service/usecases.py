@@ -66,6 +66,9 @@ class CreateRequest:
     fraction_basis: str | None
     plan: PlanRequest
     deprecations: list[str] = field(default_factory=list)
+    # the request's own fields as given (an experiment plan checks them against its own):
+    # metric_kind, arms (an object or a list), allocation, max_n, fraction_basis
+    given: dict[str, Any] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -204,12 +207,20 @@ def library_defaults(pv: PlanVersion) -> tuple[str, dict[str, Any]]:
 
 def merge_inputs(base: dict[str, Any], given: dict[str, Any]) -> dict[str, Any]:
     """``given`` over ``base``; a new number of looks drops inherited fractions and new
-    fractions drop an inherited number of looks (the two must agree)."""
+    fractions drop an inherited number of looks (the two must agree); new arms drop
+    inherited allocations, and new arms or metrics the inherited graph."""
     merged = {**base, **given}
     if "looks" in given and "information_fractions" not in given:
         merged.pop("information_fractions", None)
     if "information_fractions" in given and "looks" not in given:
         merged.pop("looks", None)
+    # experiment plans: allocations are per treatment, the graph per hypothesis
+    if "arms" in given and "allocations" not in given:
+        merged.pop("allocations", None)
+    if ("arms" in given or "metrics" in given) and "weights" not in given:
+        merged.pop("weights", None)
+        if "transitions" not in given:
+            merged.pop("transitions", None)
     return merged
 
 
@@ -245,6 +256,17 @@ def _check_sizing(plan: library.PlanInfo, max_n: float | None) -> None:
     )
 
 
+def _check_two_arms(given: dict[str, Any]) -> None:
+    """Arms given as a list name a two-arm plan's two arms, the control first."""
+    names = given.get("arms")
+    if isinstance(names, list) and len(names) != 2:
+        raise Unprocessable(
+            f"arms: got {len(names)} arms but the plan is a two-arm plan; give "
+            "{control, treatment} or two names, the control first (an experiment with "
+            "more arms needs a plan of kind experiment)",
+            details=[{"location": ["body", "arms"], "message": "two arms for a two-arm plan"}])
+
+
 def _closed(exp: Experiment, what: str) -> StateConflict:
     decision = f"decision {exp.decision!r} at look {exp.look_count}" if exp.decision \
         else "no decision"
@@ -271,8 +293,17 @@ def create_experiment(db: Database, principal: Principal, req: CreateRequest,
     if prior is not None:
         return prior
     plan, source = _build_plan(req.plan, None, "plan")
-    _check_sizing(plan, req.max_n)
-    metric_kind = _metric_kind(req.metric_kind, plan, "metric_kind")
+    control_arm, treatment_arm, allocation = req.control_arm, req.treatment_arm, \
+        req.allocation
+    if plan.layout is not None:  # many arms, several metrics: the plan names them
+        library.check_experiment_create(plan.layout, req.given)
+        metric_kind = plan.layout["metric_kind"]
+        control_arm, treatment_arm = (a["name"] for a in plan.layout["arms"][:2])
+        allocation = plan.layout["arms"][1]["allocation"]
+    else:
+        _check_two_arms(req.given)
+        _check_sizing(plan, req.max_n)
+        metric_kind = _metric_kind(req.metric_kind, plan, "metric_kind")
     try:
         with db.write() as conn:
             prior = _claim(db, conn, principal.team_id, idem)
@@ -282,11 +313,13 @@ def create_experiment(db: Database, principal: Principal, req: CreateRequest,
             exp = Experiment(
                 id=repo.new_id("exp"), team_id=principal.team_id, name=req.name,
                 description=req.description, metric_kind=metric_kind,
-                control_arm=req.control_arm, treatment_arm=req.treatment_arm,
-                allocation=req.allocation, max_n=req.max_n,
+                control_arm=control_arm, treatment_arm=treatment_arm,
+                allocation=allocation, max_n=req.max_n,
                 fraction_basis=req.fraction_basis, plan_version=1, look_count=0,
                 state="planned", decision=None, created_at=ts, created_by=principal.key_id,
                 updated_at=ts,
+                arms=None if plan.layout is None else plan.layout["arms"],
+                metrics=None if plan.layout is None else plan.layout["metrics"],
             )
             pv = PlanVersion(
                 version=1, kind=plan.kind, document=plan.document, source=source,
@@ -373,8 +406,13 @@ def amend_plan(db: Database, principal: Principal, exp_id: str, req: AmendReques
         max_n = req.max_n if req.max_n is not None else exp.max_n
         if req.max_n is not None:
             source["max_n"] = req.max_n
-        _metric_kind(exp.metric_kind, plan, "metric_kind")
-        _check_sizing(plan, max_n)
+        library.amended_layout(exp, plan, "plan" if req.plan.document is not None
+                               else "design")  # the kind of plan stays
+        if plan.layout is None:
+            _metric_kind(exp.metric_kind, plan, "metric_kind")
+            _check_sizing(plan, max_n)
+        elif req.max_n is not None:
+            library.check_experiment_create(plan.layout, {"max_n": req.max_n})
         try:
             with db.write() as conn:
                 locked = repo.lock_experiment(conn, principal.team_id, exp_id)
@@ -387,6 +425,8 @@ def amend_plan(db: Database, principal: Principal, exp_id: str, req: AmendReques
                     raise _closed(locked, "amendments")
                 if locked.plan_version != exp.plan_version:
                     continue  # another amendment came first: start from it
+                layout = library.amended_layout(
+                    locked, plan, "plan" if req.plan.document is not None else "design")
                 ts = repo.now()
                 pv = PlanVersion(
                     version=locked.plan_version + 1, kind=plan.kind, document=plan.document,
@@ -395,9 +435,13 @@ def amend_plan(db: Database, principal: Principal, exp_id: str, req: AmendReques
                     boundaries=plan.boundaries, boundaries_stored=True,
                 )
                 repo.insert_plan_version(conn, exp_id, pv)
-                repo.update_after_amendment(conn, exp_id, pv.version, max_n, ts)
+                repo.update_after_amendment(conn, exp_id, pv.version, max_n, ts, layout)
                 exp_after = replace(locked, plan_version=pv.version, max_n=max_n,
                                     updated_at=ts)
+                if layout is not None:
+                    exp_after = replace(exp_after, arms=layout["arms"],
+                                        metrics=layout["metrics"],
+                                        metric_kind=layout["metric_kind"])
                 body = views.amendment(exp_after, pv, req.deprecations)
                 if idem is not None:
                     repo.remember_key(conn, principal.team_id, idem.key, idem.request_hash,

@@ -14,15 +14,30 @@ from service import library
 from service.db.records import Experiment, Look, PlanVersion
 
 
+def _layout(exp: Experiment) -> dict[str, Any]:
+    """How the arms, allocations and metrics read: two-arm experiments by role, an
+    experiment plan's as lists (the control first)."""
+    if exp.arms is None:
+        return {"arms": {"control": exp.control_arm, "treatment": exp.treatment_arm},
+                "allocations": None, "metrics": None, "allocation": exp.allocation}
+    allocations = {a["name"]: a["allocation"] for a in exp.arms[1:]}
+    common = set(allocations.values())
+    return {"arms": [a["name"] for a in exp.arms], "allocations": allocations,
+            "metrics": exp.metrics, "allocation": common.pop() if len(common) == 1 else None}
+
+
 def summary(exp: Experiment) -> dict[str, Any]:
+    layout = _layout(exp)
     return {
         "id": exp.id,
         "name": exp.name,
         "description": exp.description,
         "metric_kind": exp.metric_kind,
         "metric": exp.metric_kind,  # deprecated: metric_kind
-        "arms": {"control": exp.control_arm, "treatment": exp.treatment_arm},
-        "allocation": exp.allocation,
+        "arms": layout["arms"],
+        "allocations": layout["allocations"],
+        "metrics": layout["metrics"],
+        "allocation": layout["allocation"],
         "max_n": exp.max_n,
         "fraction_basis": exp.fraction_basis,
         "fraction": exp.fraction_basis,  # deprecated: fraction_basis
@@ -96,6 +111,7 @@ def look(exp: Experiment, lk: Look, rows: list[Any], state: str) -> dict[str, An
         "recorded_by": lk.recorded_by,
         "result": lk.result,
         "analysis": library.analysis_object(lk.summary, rows),
+        "arm_states": library.arm_states(lk.summary),
     }
 
 
@@ -118,4 +134,5 @@ def detail(exp: Experiment, current: PlanVersion, versions: list[PlanVersion],
         "looks_page": looks_page,
         "analysis": analysis,
         "current": analysis,  # deprecated: analysis
+        "arm_states": library.arm_states(latest.summary if latest is not None else None),
     }

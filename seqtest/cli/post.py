@@ -231,6 +231,8 @@ def _create(client: Any, args: argparse.Namespace, frame: Any,
     from seqtest.cli.common import read_plan_document
     doc = read_plan_document(args.plan)
     arms = None
+    if doc.get("kind") == "experiment":       # many arms: the plan names them
+        return _create_experiment_plan(client, args, doc, frame, columns, say)
     if args.arms is not None:
         arms = [a.strip() for a in args.arms.split(",")]
         if len(arms) != 2 or not all(arms):
@@ -249,6 +251,66 @@ def _create(client: Any, args: argparse.Namespace, frame: Any,
     return exp, table
 
 
+def _create_experiment_plan(client: Any, args: argparse.Namespace, doc: dict[str, Any],
+                            frame: Any, columns: dict[str, Any], say: Any
+                            ) -> tuple[Any, Any]:
+    """``--create`` from an experiment plan (``seqtest.experiment_plan``): the arms and
+    metrics are the plan's; a table of looks holds its one metric."""
+    from seqtest.monitoring.lookfile import read_arm_looks
+    inputs = doc.get("inputs") or {}
+    names = [a.get("name") for a in inputs.get("arms") or [] if isinstance(a, dict)]
+    metrics = [m for m in inputs.get("metrics") or [] if isinstance(m, dict)]
+    if len(metrics) != 1:
+        raise UsageError("--create: the plan has several metrics, and a table of looks "
+                         "holds one; post its looks with seqtest.client (a list of "
+                         "{metric: {arm: totals}})")
+    arms = None
+    if args.arms is not None:
+        arms = [a.strip() for a in args.arms.split(",")]
+        if arms != names:
+            raise UsageError(f"--arms: got {args.arms!r}; the plan's arms are "
+                             f"{','.join(str(n) for n in names)} (leave --arms out)")
+    table = read_arm_looks(frame, metrics[0].get("kind"), columns=columns,
+                           control=args.control or (names[0] if names else None))
+    exp = client.create_experiment(
+        args.name, plan=doc, arms=arms, metric_kind=args.metric, max_n=args.max_n,
+        allocation=args.allocation, fraction_basis=args.fraction_basis,
+        description=args.description)
+    how = "found (created by an earlier run)" if exp.replayed else "created"
+    say(f"experiment {exp.id} ({exp.name}): {how}; post later looks with "
+        f"--experiment {exp.id}")
+    return exp, table
+
+
+class _ExperimentRecord:
+    """An experiment's analysis as the service answers it (JSON), read where the rule
+    of its exit status (:func:`seqtest.cli.experiment.exit_status`) reads the object."""
+
+    def __init__(self, analysis: dict[str, Any]) -> None:
+        self.sample_ratio_mismatch = list(analysis.get("sample_ratio_mismatch") or [])
+        self.decision = argparse.Namespace(value=analysis.get("decision"))
+
+
+def _status(analysis: dict[str, Any] | None) -> int:
+    from seqtest.reporting.status import ExitStatus, exit_status
+    if not analysis:
+        return int(ExitStatus.CONTINUE)
+    if analysis.get("kind") == "experiment":
+        from seqtest.cli.experiment import exit_status as experiment_status
+        return experiment_status(_ExperimentRecord(analysis))
+    return int(exit_status(analysis))
+
+
+def _experiment_text(analysis: dict[str, Any]) -> str:
+    """The decision of an experiment with many arms, per arm, and the caution."""
+    from seqtest.cli.experiment import _wrap
+    out = [f"Decision: {analysis.get('decision')}", _wrap(str(analysis.get("reason_text")))]
+    out += [_wrap(str(a.get("reason"))) for a in analysis.get("arms") or []]
+    out += [_wrap(f"warning: {w}", "") for w in analysis.get("warnings") or []]
+    out += ["", _wrap(f"Note: {analysis.get('caution')}", "")]
+    return "\n".join(out)
+
+
 def _show_look(number: int, answer: Any) -> None:
     if answer is None:
         print(f"look {number}: already stored", flush=True)
@@ -260,7 +322,7 @@ def _show_look(number: int, answer: Any) -> None:
 
 
 def cmd_post(args: argparse.Namespace) -> int:
-    from seqtest.reporting.status import ExitStatus, exit_status
+    from seqtest.reporting.status import ExitStatus
     if not args.create:
         stray = [o for o, v in (("--plan", args.plan), ("--name", args.name),
                                 ("--arms", args.arms), ("--description", args.description),
@@ -308,7 +370,7 @@ def cmd_post(args: argparse.Namespace) -> int:
                 where = ".".join(str(x) for x in d.get("location", []))
                 print(f"  {where}: {d.get('message')}", file=sys.stderr)
         return int(ExitStatus.USAGE_ERROR)
-    status = exit_status(result.analysis) if result.analysis else ExitStatus.CONTINUE
+    status = _status(result.analysis)
     if args.json:
         write(json.dumps({
             "experiment_id": result.experiment_id,
@@ -320,7 +382,7 @@ def cmd_post(args: argparse.Namespace) -> int:
             "decision": result.decision,
             "look_count": result.look_count,
             "notes": result.notes,
-            "exit_status": int(status),
+            "exit_status": status,
             "analysis": result.analysis,
         }, indent=2, allow_nan=False), args.json)
     if text_out:
@@ -328,8 +390,11 @@ def cmd_post(args: argparse.Namespace) -> int:
             print(f"note: {note}")
         print(f"experiment {result.experiment_id}: {result.look_count} look(s) stored, "
               f"state {result.state}")
-        if result.analysis:
+        if result.analysis and result.analysis.get("kind") == "experiment":
+            print()
+            print(_experiment_text(result.analysis))
+        elif result.analysis:
             from seqtest.cli.analyze import analysis_text
             print()
             print(analysis_text(result.analysis))
-    return int(status)
+    return status

@@ -44,6 +44,8 @@ class LookDataError(InputError):
         Arm at fault (its role or the name given).
     field : str or None
         Total at fault, e.g. ``"successes"``.
+    metric : str or None
+        Metric at fault, for an experiment with named metrics (None otherwise).
     detail : str
         What is wrong, without the location prefix.
     """
@@ -55,10 +57,12 @@ class LookDataError(InputError):
         look: int | None = None,
         arm: str | None = None,
         field: str | None = None,
+        metric: str | None = None,
     ) -> None:
         self.look = look
         self.arm = arm
         self.field = field
+        self.metric = metric
         self.detail = detail
         where = []
         if look is not None:

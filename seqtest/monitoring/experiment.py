@@ -709,7 +709,8 @@ def _metric_name(plan: ExperimentPlan, name: Any, look: int) -> str:
             if _key(m) == _key(name):
                 return m
     raise LookDataError(f"unknown metric {name!r}; the plan's metrics are "
-                        f"{', '.join(names)}", look=look, field="metric")
+                        f"{', '.join(names)}", look=look, field="metric",
+                        metric=str(name))
 
 
 def _normalise(plan: ExperimentPlan, looks: Any) -> list[dict[str, dict[str, Mapping]]]:
@@ -755,11 +756,12 @@ def _normalise(plan: ExperimentPlan, looks: Any) -> list[dict[str, dict[str, Map
                     m = _metric_name(plan, x, j)
                     if m in per:
                         raise LookDataError(f"metric {m!r} posted twice", look=j,
-                                            field="metric")
+                                            field="metric", metric=m)
                     val = look[x]
                     if not isinstance(val, Mapping):
                         raise LookDataError(f"metric {m!r}: expected a mapping {{arm: "
-                                            f"totals}}, got {type(val).__name__}", look=j)
+                                            f"totals}}, got {type(val).__name__}", look=j,
+                                            metric=m)
                     per[m] = _arms_of(plan, val, j, m)
         elif isinstance(look, Sequence) and not isinstance(look, (str, bytes)):
             for row in look:
@@ -778,7 +780,7 @@ def _normalise(plan: ExperimentPlan, looks: Any) -> list[dict[str, dict[str, Map
                 if arm in per[mm]:
                     raise LookDataError(f"metric {mm!r}: the arm is posted twice at this "
                                         "look; allowed is one row per arm and metric",
-                                        look=j, arm=arm)
+                                        look=j, arm=arm, metric=mm)
                 per[mm][arm] = {kk: v for kk, v in row.items() if kk not in ("arm", "metric")}
         else:
             raise LookDataError(f"expected a mapping of arms (or metrics) or a list of rows, "
@@ -797,10 +799,11 @@ def _arms_of(plan: ExperimentPlan, look: Mapping, j: int, metric: str) -> dict[s
         arm = _arm_name(plan, x, j)
         if arm in out:
             raise LookDataError(f"metric {metric!r}: the arm is posted twice (names that "
-                                "differ only in letter case or separators)", look=j, arm=arm)
+                                "differ only in letter case or separators)", look=j, arm=arm,
+                                metric=metric)
         if not isinstance(totals, Mapping):
             raise LookDataError(f"metric {metric!r}: expected a mapping of totals, got "
-                                f"{type(totals).__name__}", look=j, arm=arm)
+                                f"{type(totals).__name__}", look=j, arm=arm, metric=metric)
         out[arm] = totals
     return out
 
@@ -828,10 +831,12 @@ def _validate(plan: ExperimentPlan, data: list[dict[str, dict[str, Mapping]]]
             got = data[j].get(m.name)
             if got is None:
                 raise LookDataError(f"metric {m.name!r} is missing; every look needs the "
-                                    "totals of every metric", look=j + 1, field="metric")
+                                    "totals of every metric", look=j + 1, field="metric",
+                                    metric=m.name)
             if plan.control not in got:
                 raise LookDataError(f"metric {m.name!r}: the control's totals are missing; "
-                                    "every look needs them", look=j + 1, arm=plan.control)
+                                    "every look needs them", look=j + 1, arm=plan.control,
+                                    metric=m.name)
             ctrl.append(got[plan.control])
         controls[m.name] = _checked(m.kind, [{"control": c, "treatment": c} for c in ctrl],
                                     list(range(n_j)), plan.control, plan.control,
@@ -859,7 +864,7 @@ def _checked(kind: str, pairs: list[dict], idx: list[int], control: str, arm: st
         if "at look" in exc.detail and exc.look is not None and exc.look > 1:
             prev = f" (the arm's previous posted look was {idx[exc.look - 2] + 1})"
         raise LookDataError(f"metric {metric!r}: {exc.detail}{prev}", look=look, arm=who,
-                            field=exc.field) from None
+                            field=exc.field, metric=metric) from None
 
 
 # ---------------------------------------------------------------------------------
@@ -991,10 +996,11 @@ def analyze_experiment(plan: ExperimentPlan, looks: Any, *, final: bool = False,
             if why == "missing":
                 raise LookDataError(f"metric {c.metric!r}: the arm's totals are missing, and "
                                     "it was still running (every look needs the control and "
-                                    "every arm that has not stopped)", look=look + 1, arm=c.arm)
+                                    "every arm that has not stopped)", look=look + 1, arm=c.arm,
+                                    metric=c.metric)
             raise LookDataError(f"metric {c.metric!r}: the arm's information fraction did not "
                                 "grow; a look needs new data for every arm still running",
-                                look=look + 1, arm=c.arm)
+                                look=look + 1, arm=c.arm, metric=c.metric)
     warnings: list[str] = list(plan.notes)
     comps = _comparison_results(plan, series, frames, bounds, out, warnings)
     arms = _arm_results(plan, out, comps)

@@ -1,8 +1,14 @@
 """Examples shown in the OpenAPI schema.
 
-The scenario is invented: Juniper Street Bakery sells loaves online and tests a
+The scenarios are invented. Juniper Street Bakery sells loaves online and tests a
 larger "Place order" button on its checkout page against the classic one. The
 metric is binary: a visitor who reaches checkout either orders or does not.
+
+The Millbrook Tea Room's ordering app tests two new texts of its "Add to basket"
+button ("Add to tray", "Order now") against the current one, with one primary metric
+(visitors who order) and one guardrail (orders refunded, which must not rise): an
+experiment plan with many arms and several metrics. Its design inputs are written
+once, here (:data:`EXPERIMENT_DESIGN`); service/README.md shows the same.
 """
 
 from __future__ import annotations
@@ -64,5 +70,43 @@ AMENDMENT = {
         "reason": "Holiday closure halved traffic; one more look planned, agreed by the "
         "shop's analytics lead on the weekly call.",
         "design": {"looks": 5},
+    },
+}
+
+
+# An experiment plan (seqtest.experiment_plan): the arms, the control first, and the
+# metrics with their roles. The one place the examples spell out experiment metrics.
+EXPERIMENT_DESIGN = {
+    "kind": "experiment",
+    "arms": ["basket", "add-to-tray", "order-now"],
+    "metrics": [
+        {"name": "orders", "kind": "binary", "baseline": 0.10, "mde": 0.03},
+        {"name": "refunds", "role": "guardrail", "direction": "decrease",
+         "kind": "binary", "baseline": 0.05, "mde": 0.03},
+    ],
+    "looks": 3,
+}
+
+CREATE_EXPERIMENT_PLAN = {
+    "summary": "An experiment plan: three arms, a primary metric and a guardrail",
+    "value": {
+        "name": "Basket button: three texts",
+        "description": "Millbrook Tea Room app; visitors who open a product page.",
+        "design": EXPERIMENT_DESIGN,
+    },
+}
+
+LOOK_EXPERIMENT = {
+    "summary": "An experiment plan's look: cumulative totals per metric and arm",
+    "value": {
+        "totals": {
+            "orders": {"basket": {"n": 1800, "successes": 181},
+                       "add-to-tray": {"n": 1810, "successes": 230},
+                       "order-now": {"n": 1795, "successes": 185}},
+            "refunds": {"basket": {"n": 181, "successes": 9},
+                        "add-to-tray": {"n": 230, "successes": 11},
+                        "order-now": {"n": 185, "successes": 9}},
+        },
+        "final": False,
     },
 }

@@ -25,19 +25,20 @@ from pydantic import (
 
 from service.library import (
     DESIGN_INPUTS,
+    DOCUMENT_KINDS,
     FRACTION_BASES,
     MAX_LOOKS,
     METRIC_KINDS,
-    PLAN_KINDS,
+    NAME_PATTERN,
 )
 
 MetricKind = Literal[METRIC_KINDS]  # type: ignore[valid-type]
 FractionBasis = Literal[FRACTION_BASES]  # type: ignore[valid-type]
-PlanKind = Literal[PLAN_KINDS]  # type: ignore[valid-type]
+PlanKind = Literal[DOCUMENT_KINDS]  # type: ignore[valid-type]
 
 ArmName = Annotated[
     str,
-    StringConstraints(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.\-]{0,63}$"),
+    StringConstraints(pattern=NAME_PATTERN),
     Field(description="1 to 64 letters, digits, '_', '.', '-', starting with a letter or digit"),
 ]
 FieldName = Annotated[str, StringConstraints(min_length=1, max_length=64)]
@@ -69,6 +70,30 @@ def _total(value: Any) -> int | float:
 
 Total = Annotated[int | float, PlainValidator(_total), WithJsonSchema({"type": "number"})]
 
+
+def _total_or_arm(value: Any) -> int | float | dict[str, int | float]:
+    """A total, or (a look of an experiment with several metrics) an arm's totals."""
+    if not isinstance(value, dict):
+        return _total(value)
+    if len(value) > 16:
+        raise ValueError(f"got {len(value)} totals; allowed is at most 16 per arm")
+    out: dict[str, int | float] = {}
+    for name, v in value.items():
+        if not 1 <= len(name) <= 64:
+            raise ValueError(f"{name[:64]!r}: a total's name has 1 to 64 characters")
+        try:
+            out[name] = _total(v)
+        except ValueError as exc:
+            raise ValueError(f"{name}: {exc}") from None
+    return out
+
+
+TotalOrArm = Annotated[
+    int | float | dict[str, int | float], PlainValidator(_total_or_arm),
+    WithJsonSchema({"oneOf": [{"type": "number"}, {
+        "type": "object", "additionalProperties": {"type": "number"}, "maxProperties": 16,
+        "description": "an arm's totals, in a look of an experiment given per metric"}]})]
+
 STATES = ("planned", "running", "stopped", "completed")
 State = Literal[STATES]  # type: ignore[valid-type]
 
@@ -93,10 +118,6 @@ class Arms(_Strict):
         return self
 
 
-_GROUP_SEQUENTIAL_FIELDS = DESIGN_INPUTS["group_sequential"]
-_MIXTURE_FIELDS = DESIGN_INPUTS["mixture"]
-
-
 class DesignInputs(_Strict):
     """Inputs from which the library designs the plan; omitted fields take its defaults.
 
@@ -106,7 +127,8 @@ class DesignInputs(_Strict):
 
     kind: PlanKind | None = Field(
         default=None, description="group_sequential (default; for an amendment: the "
-        "current version's kind) or mixture")
+        "current version's kind), mixture, or experiment (`seqtest.experiment_plan`: many "
+        "arms, several metrics)")
     alpha: Number | None = None
     sides: Annotated[int, Strict()] | None = None
     power: Number | None = None
@@ -141,6 +163,27 @@ class DesignInputs(_Strict):
     scale: Literal["difference", "relative"] | None = Field(
         default=None, description="mixture only"
     )
+    arms: Annotated[list[ArmName], Field(min_length=2, max_length=9)] | \
+        Annotated[int, Strict(), Field(ge=2, le=9)] | None = Field(
+        default=None, description="experiment: the arms' names, the control first (2 to "
+        "9), or their number")
+    metrics: Annotated[list[dict[str, Any]], Field(min_length=1, max_length=10)] | \
+        dict[str, Any] | None = Field(
+        default=None, description="experiment: the metrics, each with name, role (primary "
+        "or guardrail), the direction in which it is better, and its sizing description "
+        "(kind, baseline, mde, ...)")
+    allocations: Annotated[list[Number], Field(min_length=1, max_length=8)] | Number | \
+        dict[str, Number] | None = Field(
+        default=None, description="experiment: users per control user of each treatment")
+    method: Literal["graphical", "dunnett"] | None = Field(
+        default=None, description="experiment: how the primaries' family-wise error is split")
+    weights: Annotated[list[Number], Field(max_length=80)] | dict[str, Number] | None = Field(
+        default=None, description="experiment: the graph's weight of each hypothesis")
+    transitions: Annotated[list[Annotated[list[Number], Field(max_length=80)]],
+                           Field(max_length=80)] | None = Field(
+        default=None, description="experiment: the graph's transition matrix")
+    power_for: Literal["each", "any"] | None = Field(
+        default=None, description="experiment: power for each comparison, or for any arm")
 
     @model_validator(mode="after")
     def _fields_of_kind(self) -> DesignInputs:
@@ -150,7 +193,7 @@ class DesignInputs(_Strict):
                                  "is its deprecated name)")
         if self.kind is None:
             return self  # checked against the kind it ends up with, by the library
-        allowed = _MIXTURE_FIELDS if self.kind == "mixture" else _GROUP_SEQUENTIAL_FIELDS
+        allowed = DESIGN_INPUTS[self.kind]
         given = {"information_fractions" if f == "info_fractions" else f
                  for f in self.model_fields_set}
         wrong = [f for f in given if f != "kind" and f not in allowed]
@@ -178,7 +221,9 @@ class DesignInputs(_Strict):
 
 class _PlanChoice(_Strict):
     plan: dict[str, Any] | None = Field(
-        default=None, description="a plan document as written by `seqtest plan --json`"
+        default=None, description="a plan document as written by `seqtest plan --json` "
+        "(kind group_sequential, mixture, or experiment: many arms and several metrics, "
+        "from `seqtest.experiment_plan(...).to_dict()`)"
     )
     design: DesignInputs | None = Field(
         default=None, description="inputs from which the service designs the plan"
@@ -206,7 +251,10 @@ class ExperimentCreate(_PlanChoice):
         description="deprecated name of metric_kind (accepted for one release; the answer "
         "then carries a Deprecation header and a note in 'deprecations')",
     )
-    arms: Arms = Field(default_factory=Arms)
+    arms: Arms | Annotated[list[ArmName], Field(min_length=2, max_length=9)] = Field(
+        default_factory=Arms,
+        description="the arms' names: {control, treatment}, or a list with the control "
+        "first; an experiment plan names its arms itself (given, they must be the plan's)")
     allocation: Number = Field(
         default=1.0,
         gt=0,
@@ -261,9 +309,11 @@ class AmendmentCreate(_PlanChoice):
 
 class LookCreate(_Strict):
     totals: Annotated[
-        dict[ArmName, Annotated[dict[FieldName, Total], Field(max_length=16)]],
-        Field(max_length=8),
-    ] = Field(description="cumulative totals per arm name, since the start of the experiment")
+        dict[ArmName, Annotated[dict[FieldName, TotalOrArm], Field(max_length=16)]],
+        Field(max_length=10),
+    ] = Field(description="cumulative totals per arm name, since the start of the "
+              "experiment: {arm: {total: number}}; for an experiment plan (many arms) "
+              "{arm: totals} with one metric, or {metric: {arm: totals}}")
     final: Annotated[bool, Strict()] = Field(
         default=False,
         description="true for the last look: it spends whatever error is left",
@@ -299,6 +349,11 @@ class BoundaryRow(BaseModel):
     n_control: int | None = Field(default=None, description="users (exposure for rates) "
                                   "in the control arm the plan expects by this look")
     n_treatment: int | None = Field(default=None, description="the same for the treatment")
+    arm: str | None = Field(default=None, description="experiment plans: the treatment arm "
+                            "of the comparison (null for two-arm plans)")
+    metric: str | None = Field(default=None, description="experiment plans: its metric")
+    role: Literal["primary", "guardrail"] | None = Field(
+        default=None, description="experiment plans: what the metric is for")
 
 
 class PlanOut(BaseModel):
@@ -313,14 +368,32 @@ class PlanOut(BaseModel):
     recorded_by: str
 
 
+class ExperimentMetric(BaseModel):
+    """A metric of an experiment plan."""
+
+    name: str
+    role: Literal["primary", "guardrail"]
+    metric_kind: str
+
+
 class ExperimentSummary(BaseModel):
     id: str
     name: str
     description: str
-    metric_kind: str
+    metric_kind: str = Field(description="the kind of the metric the totals describe (an "
+                             "experiment plan: its first primary metric's; see metrics)")
     metric: str = Field(deprecated=True, description="deprecated name of metric_kind")
-    arms: Arms
-    allocation: float
+    arms: Arms | list[str] = Field(description="two-arm plans: {control, treatment}; "
+                                   "experiment plans: the arms' names, the control first")
+    allocations: dict[str, float] | None = Field(
+        default=None, description="experiment plans: users per control user of each "
+        "treatment (null for two-arm plans)")
+    metrics: list[ExperimentMetric] | None = Field(
+        default=None, description="experiment plans: the metrics, primaries and guardrails "
+        "(null for two-arm plans)")
+    allocation: float | None = Field(description="planned treatment units per control "
+                                     "unit (an experiment plan: the treatments' common "
+                                     "allocation, null when they differ)")
     max_n: float | None
     fraction_basis: str | None
     fraction: str | None = Field(deprecated=True,
@@ -335,25 +408,37 @@ class ExperimentSummary(BaseModel):
     updated_at: str
 
 
+LookTotals = dict[str, dict[str, int | float]] | dict[str, dict[str, dict[str, int | float]]]
+
+
 class LookOut(BaseModel):
     experiment_id: str
     look: int
     plan_version: int
     final: bool
-    totals: dict[str, dict[str, int | float]]
+    totals: LookTotals = Field(description="as posted: per arm name; an experiment plan's "
+                               "per arm, or per metric and arm")
     decision: str
     state: State
     recorded_at: str
     recorded_by: str
-    result: dict[str, Any] | None = Field(description="the monitor's row for this look")
-    analysis: dict[str, Any] = Field(description="everything the monitor computed at this look")
+    result: dict[str, Any] | None = Field(
+        description="the monitor's row for this look; an experiment plan's: one row per "
+        "comparison still analysed, keyed 'arm/metric'")
+    analysis: dict[str, Any] = Field(
+        description="everything the monitor computed at this look; an experiment plan's: "
+        "decision, reason, reason_text, arms (per-arm decision and state), comparisons "
+        "(each with its looks), srm, warnings, caution")
+    arm_states: dict[str, State] | None = Field(
+        default=None, description="experiment plans: each treatment arm's state after this "
+        "look (running, stopped, completed); null for two-arm plans")
 
 
 class LookSummary(BaseModel):
     look: int
     plan_version: int
     final: bool
-    totals: dict[str, dict[str, int | float]]
+    totals: LookTotals
     decision: str
     recorded_at: str
     recorded_by: str
@@ -383,6 +468,10 @@ class ExperimentOut(ExperimentSummary):
     )
     current: dict[str, Any] | None = Field(
         deprecated=True, description="deprecated name of analysis (kept one release)")
+    arm_states: dict[str, State] | None = Field(
+        default=None, description="experiment plans: each treatment arm's state after the "
+        "latest look (running, stopped, completed); null for two-arm plans and before the "
+        "first look")
 
 
 class ExperimentCreated(ExperimentSummary):
@@ -418,6 +507,7 @@ class ErrorDetail(BaseModel):
     message: str
     look: int | None = None
     arm: str | None = None
+    metric: str | None = None
     field: str | None = None
 
 

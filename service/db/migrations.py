@@ -37,7 +37,7 @@ from sqlalchemy import (
 
 from service.db import tables
 
-LATEST = 4
+LATEST = 5
 
 
 def _v1_metadata() -> MetaData:
@@ -160,6 +160,18 @@ def _v4_service_secrets(conn: Connection) -> None:
                       "value TEXT NOT NULL, created_at VARCHAR(32) NOT NULL)"))
 
 
+def _v5_experiment_layout(conn: Connection) -> None:
+    """Experiments with many arms and several metrics (plans of kind ``experiment``):
+    their arms (names, the control first, with each treatment's allocation) and their
+    metrics (name, role, kind), as JSON text; NULL for two-arm experiments. Existing
+    rows are not rewritten; the append-only triggers on looks and plan versions stay."""
+    for stmt in (
+        "ALTER TABLE experiments ADD COLUMN arms TEXT",
+        "ALTER TABLE experiments ADD COLUMN metrics TEXT",
+    ):
+        conn.execute(text(stmt))
+
+
 MIGRATIONS: list[tuple[int, str, Callable[[Connection], None]]] = [
     (1, "teams, API keys, experiments, plan versions, looks, idempotency keys", _v1_tables),
     (2, "looks and plan versions are append-only (UPDATE and DELETE refused)", _v2_append_only),
@@ -167,6 +179,8 @@ MIGRATIONS: list[tuple[int, str, Callable[[Connection], None]]] = [
         "keys; health write check", _v3_store_once),
     (4, "service secrets (the key that signs the pages' session cookies)",
      _v4_service_secrets),
+    (5, "experiments with many arms and several metrics: their arms and metrics",
+     _v5_experiment_layout),
 ]
 assert [m[0] for m in MIGRATIONS] == list(range(1, LATEST + 1))
 

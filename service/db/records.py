@@ -45,6 +45,15 @@ class Experiment:
     created_at: str
     created_by: str
     updated_at: str
+    # an experiment plan's arms ({"name", "allocation"}, the control first) and metrics
+    # ({"name", "role", "metric_kind"}); None for a two-arm experiment
+    arms: list[dict[str, Any]] | None = None
+    metrics: list[dict[str, Any]] | None = None
+
+    @property
+    def is_experiment_plan(self) -> bool:
+        """Many arms and several metrics (a plan of kind ``experiment``)."""
+        return self.arms is not None
 
 
 @dataclass(frozen=True)

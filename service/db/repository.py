@@ -86,7 +86,13 @@ def _experiment(row: Any) -> Experiment:
         fraction_basis=m["fraction"], plan_version=int(m["plan_version"]),
         look_count=int(m["look_count"]), state=m["state"], decision=m["decision"],
         created_at=m["created_at"], created_by=m["created_by"], updated_at=m["updated_at"],
+        arms=_json_or_none(m, "arms"), metrics=_json_or_none(m, "metrics"),
     )
+
+
+def _json_or_none(m: Any, name: str) -> Any:
+    value = m.get(name)
+    return None if value is None else json.loads(value)
 
 
 def _plan_version(row: Any) -> PlanVersion:
@@ -286,6 +292,8 @@ def insert_experiment(conn: Connection, exp: Experiment) -> None:
         plan_version=exp.plan_version, look_count=exp.look_count, state=exp.state,
         decision=exp.decision, created_at=exp.created_at, created_by=exp.created_by,
         updated_at=exp.updated_at,
+        arms=None if exp.arms is None else dump_json(exp.arms),
+        metrics=None if exp.metrics is None else dump_json(exp.metrics),
     ))
 
 
@@ -322,10 +330,16 @@ def update_after_look(conn: Connection, exp_id: str, look_count: int, state: str
 
 
 def update_after_amendment(conn: Connection, exp_id: str, version: int, max_n: float | None,
-                           updated_at: str) -> None:
+                           updated_at: str, layout: dict[str, Any] | None = None) -> None:
+    """The plan version in force; ``layout`` (``arms``, ``metrics`` and ``metric_kind``
+    of an experiment plan) when an amendment before the first look changed them."""
     e = tables.experiments
-    conn.execute(update(e).where(e.c.id == exp_id).values(
-        plan_version=version, max_n=max_n, updated_at=updated_at))
+    values: dict[str, Any] = {"plan_version": version, "max_n": max_n,
+                              "updated_at": updated_at}
+    if layout is not None:
+        values.update(arms=dump_json(layout["arms"]), metrics=dump_json(layout["metrics"]),
+                      metric=layout["metric_kind"])
+    conn.execute(update(e).where(e.c.id == exp_id).values(**values))
 
 
 # --------------------------------------------------------------------------- plan versions

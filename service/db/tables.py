@@ -77,6 +77,10 @@ experiments = Table(
     Column("created_at", String(32), nullable=False),
     Column("created_by", String(40), nullable=False),
     Column("updated_at", String(32), nullable=False),
+    # v5: an experiment plan's arms ([{"name", "allocation"}], the control first) and
+    # metrics ([{"name", "role", "metric_kind"}]); NULL for two-arm experiments
+    Column("arms", Text, nullable=True),
+    Column("metrics", Text, nullable=True),
 )
 Index("experiments_team_state", experiments.c.team_id, experiments.c.state)
 Index("experiments_team_created", experiments.c.team_id, experiments.c.created_at)

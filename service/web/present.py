@@ -196,6 +196,53 @@ def _projection(analysis: dict[str, Any], kind: str) -> list[tuple[str, str]]:
     return rows
 
 
+@dataclass
+class ExperimentView:
+    """An experiment plan's block (many arms, several metrics): the overall decision
+    and its reason, one row per treatment arm, one row per comparison at the latest
+    look, the warnings and the caution, all in the library's words and numbers."""
+
+    decision: str
+    reason_text: str | None
+    arms: list[dict[str, str]]
+    comparisons: list[dict[str, str]]
+    warnings: list[str]
+    caution: str
+
+
+def _number(value: Any, digits: int = 2) -> str:
+    return f"{float(value):.{digits}f}" if isinstance(value, (int, float)) \
+        and not isinstance(value, bool) else "-"
+
+
+def experiment_view(d: dict[str, Any]) -> ExperimentView:
+    analysis = d.get("analysis") or {}
+    states = d.get("arm_states") or {}
+    arms = [{"arm": str(a.get("arm")),
+             "decision": library.decision_words(a.get("decision")),
+             "state": STATE_WORDS.get(states.get(str(a.get("arm")), ""), "-"),
+             "stopped_at": "-" if a.get("stopped_at") is None else f"look {a['stopped_at']}",
+             "reason": str(a.get("reason") or "")}
+            for a in analysis.get("arms") or [] if isinstance(a, dict)]
+    comps = []
+    for c in analysis.get("comparisons") or []:
+        if not isinstance(c, dict):
+            continue
+        rows = [r for r in c.get("looks") or [] if isinstance(r, dict)]
+        last = rows[-1] if rows else {}
+        comps.append({"arm": str(c.get("arm")), "metric": str(c.get("metric")),
+                      "role": str(c.get("role")),
+                      "look": "-" if not last else str(last.get("look")),
+                      "z": _number(last.get("z")), "boundary": _number(last.get("efficacy_z")),
+                      "decision": library.decision_words(c.get("decision"),
+                                                         c.get("direction"))})
+    return ExperimentView(
+        decision=library.decision_words(d["decision"]) if d.get("decision") else
+        "no look yet", reason_text=analysis.get("reason_text"), arms=arms,
+        comparisons=comps, warnings=[str(w) for w in analysis.get("warnings") or []],
+        caution=str(analysis.get("caution") or library.caution()))
+
+
 def comparisons(data: ExperimentData, plan: PlanView) -> list[Comparison]:
     d = data.detail
     title = str(d["name"])
@@ -224,6 +271,8 @@ def experiment_context(data: ExperimentData) -> dict[str, Any]:
     d = data.detail
     plan = plan_view(data)
     analysis = d.get("analysis") or {}
+    if isinstance(d["arms"], list):  # an experiment plan: many arms, several metrics
+        return _experiment_plan_context(data, plan)
     facts = [
         ("Metric", str(d["metric_kind"])),
         ("Arms", f"{d['arms']['control']} (control), {d['arms']['treatment']} (treatment)"),
@@ -244,6 +293,38 @@ def experiment_context(data: ExperimentData) -> dict[str, Any]:
         "facts": facts,
         "plan": plan,
         "comparisons": comparisons(data, plan),
+        "experiment": None,
+        "experiment_failed": False,
+        "json_url": f"/v1/experiments/{d['id']}",
+    }
+
+
+def _experiment_plan_context(data: ExperimentData, plan: PlanView) -> dict[str, Any]:
+    d = data.detail
+    arms = list(d["arms"])
+    allocations = d.get("allocations") or {}
+    metrics = d.get("metrics") or []
+    facts = [
+        ("Metrics", ", ".join(f"{m['name']} ({m['role']}, {m['metric_kind']})"
+                              for m in metrics)),
+        ("Arms", f"{arms[0]} (control), " + ", ".join(arms[1:])),
+        ("Planned allocation", ", ".join(f"{a} {allocations.get(a, 1.0):g}" for a in arms[1:])
+         + " per control"),
+        ("Plan", f"experiment, version {plan.version}"),
+        ("Looks recorded", str(d["look_count"])),
+        ("Created", f"{when(d['created_at'])} by {who(d['created_by'], data.key_labels)}"),
+    ]
+    view = _section("experiment", d["id"], lambda: experiment_view(d))
+    return {
+        "exp": d,
+        "state": STATE_WORDS.get(d["state"], d["state"]),
+        "decision": library.decision_words(d["decision"]) if d["decision"]
+        else "no look yet",
+        "facts": facts,
+        "plan": plan,
+        "comparisons": [],
+        "experiment": view,
+        "experiment_failed": view is None,
         "json_url": f"/v1/experiments/{d['id']}",
     }
 

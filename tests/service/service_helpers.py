@@ -134,3 +134,43 @@ def new_key(database_url: str, team: str, label: str = "tests") -> str:
 
 def auth(token: str) -> dict[str, str]:
     return {"Authorization": f"Bearer {token}"}
+
+
+# --------------------------------------------------------------------- experiment plans
+# The one place the service tests describe an experiment's metrics (their spelling may
+# change in the library: change it here only). Invented scenario: the Millbrook Tea
+# Room's ordering app tests two new texts of its "Add to basket" button against the
+# current one; "orders" (visitors who order) is the primary, "refunds" (orders
+# refunded) a guardrail that must not rise.
+
+EXPERIMENT_ARMS = ("basket", "add-to-tray", "order-now")
+
+
+def experiment_metrics(*, guardrail: bool = True, kind: str = "binary") -> list[dict]:
+    """Metric descriptions for ``seqtest.experiment_plan`` (primary first)."""
+    primary: dict = {"name": "orders", "kind": "binary", "baseline": 0.10, "mde": 0.03}
+    if kind == "continuous":
+        primary = {"name": "order_value", "kind": "continuous", "sd": 6.0, "mde": 1.0}
+    out = [primary]
+    if guardrail:
+        out.append({"name": "refunds", "role": "guardrail", "direction": "decrease",
+                    "kind": "binary", "baseline": 0.05, "mde": 0.03})
+    return out
+
+
+def experiment_inputs(arms: tuple[str, ...] | list[str] = EXPERIMENT_ARMS, *,
+                      guardrail: bool = True, kind: str = "binary", looks: int = 3,
+                      **options: object) -> dict:
+    """The arguments of ``seqtest.experiment_plan`` for a test experiment."""
+    return {"arms": list(arms), "metrics": experiment_metrics(guardrail=guardrail, kind=kind),
+            "looks": looks, **options}
+
+
+def experiment_document(arms: tuple[str, ...] | list[str] = EXPERIMENT_ARMS, *,
+                        guardrail: bool = True, kind: str = "binary", looks: int = 3,
+                        **options: object) -> dict:
+    """A plan document of kind ``experiment`` made by the library."""
+    import seqtest
+    from service.library import json_safe
+    return json_safe(seqtest.experiment_plan(**experiment_inputs(
+        arms, guardrail=guardrail, kind=kind, looks=looks, **options)).to_dict())

@@ -24,7 +24,7 @@ from typing import Any
 import httpx
 import numpy as np
 import pytest
-from service_helpers import REPO, Server
+from service_helpers import EXPERIMENT_ARMS, REPO, Server, experiment_document
 
 import seqtest
 from seqtest.cli import main
@@ -472,3 +472,79 @@ def test_post_reads_looks_with_a_query(client, env, capsys, plan_doc, tmp_path):
     assert rc == ExitStatus.CONTINUE, err
     stored = client.experiment(exp_id).looks
     assert [normalize_totals(lk.totals) for lk in stored] == looks
+
+
+# ---------------------------------------------------------------------------
+# Experiment plans: many arms, several metrics
+# ---------------------------------------------------------------------------
+
+def _binary(n: int, s: int) -> dict[str, int]:
+    return {"n": n, "successes": s}
+
+
+def test_client_posts_an_experiment_plans_looks_per_metric_and_arm(client):
+    control, tray, now = EXPERIMENT_ARMS
+    doc = experiment_document()
+    exp = client.create_experiment(f"basket texts {time.time_ns()}", plan=doc)
+    assert exp.is_experiment_plan and exp.arms == list(EXPERIMENT_ARMS)
+    # the guardrail (refunds) is crossed by one arm at the first look
+    look1 = {"orders": {control: _binary(900, 90), tray: _binary(900, 92),
+                        now: _binary(900, 88)},
+             "refunds": {control: _binary(400, 20), tray: _binary(400, 48),
+                         now: _binary(400, 19)}}
+    look2 = {"orders": {control: _binary(1800, 181), now: _binary(1800, 175)},
+             "refunds": {control: _binary(800, 41), now: _binary(800, 40)}}
+    result = client.post_looks(exp.id, [look1, look2])
+    assert [a.look for a in result.posted] == [1, 2]
+    expected = seqtest.analyze(doc, [look1, look2]).to_dict()
+    assert result.decision == expected["decision"] == "continue"
+    assert {a["arm"]: a["decision"] for a in result.analysis["arms"]} == \
+        {tray: "stop_harm", now: "continue"}
+    assert result.posted[0].raw["arm_states"] == {tray: "stopped", now: "running"}
+    # run again: nothing is posted twice; a different stored look is refused
+    again = client.post_looks(exp.id, [look1, look2])
+    assert again.already_stored == [1, 2] and again.posted == []
+    changed = json.loads(json.dumps(look1))
+    changed["orders"][control]["n"] = 901
+    with pytest.raises(LookMismatchError):
+        client.post_looks(exp.id, [changed])
+
+
+def test_post_sends_an_experiment_plans_looks_and_exits_with_its_decision(
+        client, env, capsys, tmp_path):
+    control, tray, now = EXPERIMENT_ARMS
+    plan = tmp_path / "experiment.json"
+    plan.write_text(json.dumps(experiment_document(guardrail=False)))
+
+    def totals(*arms: tuple[str, int, int]) -> list[str]:
+        out: list[str] = []
+        for arm, n, s in arms:
+            out += ["--total", f"{arm}.n={n}", "--total", f"{arm}.successes={s}"]
+        return out
+    name = f"cli basket texts {time.time_ns()}"
+    rc, out, err = post(["--create", "--plan", str(plan), "--name", name,
+                         *totals((control, 900, 90), (tray, 900, 95), (now, 900, 92))], capsys)
+    assert rc == ExitStatus.CONTINUE, err
+    assert "Decision: continue" in out and "qualified statistician" in out
+    exp_id = out.split("experiment ", 1)[1].split(" ", 1)[0]
+    # 10% against 30% for both arms at 1800 per arm: beyond any boundary (fact of the
+    # trade): both arms stop for efficacy, the experiment stops: exit status 3
+    rc, out, err = post(["--experiment", exp_id, *totals((control, 1800, 180),
+                                                         (tray, 1800, 540),
+                                                         (now, 1800, 545))], capsys)
+    assert rc == ExitStatus.STOP, (out, err)
+    assert client.experiment(exp_id).state == "stopped"
+
+
+def test_post_exits_with_a_stop_for_harm(client, env, capsys):
+    control, tray, now = EXPERIMENT_ARMS
+    exp = client.create_experiment(f"harm {time.time_ns()}", plan=experiment_document(
+        arms=[control, tray]))
+    # refunds 12% against 5% at 400 orders: the harm boundary (Pocock-type, one-sided
+    # 0.05, z about 2) is crossed; the only arm stops for harm, so does the experiment
+    look = {"orders": {control: _binary(900, 90), tray: _binary(900, 92)},
+            "refunds": {control: _binary(400, 20), tray: _binary(400, 48)}}
+    answer = client.post_look(exp.id, look)
+    assert answer.decision == "stop_harm" and answer.state == "stopped"
+    from seqtest.cli.post import _status
+    assert _status(answer.analysis) == ExitStatus.STOP

@@ -462,6 +462,44 @@ def test_pages_read_well_at_a_phones_width(browser: Any, live: Any):
         browser.set_window_size(1100, 900)
 
 
+def test_experiment_plan_page_shows_the_arms_and_comparisons_of_the_json(
+        browser: Any, live: Any):
+    from selenium.webdriver.common.by import By
+    from service_helpers import EXPERIMENT_ARMS, experiment_document
+    srv, s, _ = live
+    control, tray, now = EXPERIMENT_ARMS
+    r = httpx.post(srv.base_url + "/v1/experiments", headers=auth(s.bakery_key), timeout=60,
+                   json={"name": "Basket button texts", "plan": experiment_document()})
+    assert r.status_code == 201, r.text
+    exp_id = r.json()["id"]
+    # refunds 12% against 5% at 400 orders: add-to-tray crosses the harm boundary
+    look = {"orders": {control: {"n": 900, "successes": 90},
+                       tray: {"n": 900, "successes": 92}, now: {"n": 900, "successes": 88}},
+            "refunds": {control: {"n": 400, "successes": 20},
+                        tray: {"n": 400, "successes": 48}, now: {"n": 400, "successes": 19}}}
+    r = httpx.post(srv.base_url + f"/v1/experiments/{exp_id}/looks", timeout=60,
+                   headers=auth(s.bakery_key), json={"totals": look})
+    assert r.status_code == 201, r.text
+    data = api(srv, s.bakery_key, f"/v1/experiments/{exp_id}")
+    forget_cookies(browser)
+    sign_in(browser, srv.base_url, s.bakery_key, start=f"/experiments/{exp_id}")
+    rows = browser.find_elements(By.CSS_SELECTOR, "#arms tbody tr")
+    shown = {r.find_element(By.CSS_SELECTOR, "td.name").text:
+             r.find_element(By.CSS_SELECTOR, "td[data-label=State]").text for r in rows}
+    assert shown == data["arm_states"] == {tray: "stopped", now: "running"}
+    comps = browser.find_elements(By.CSS_SELECTOR, "#comparisons tbody tr")
+    assert len(comps) == len(data["analysis"]["comparisons"]) == 4
+    assert data["analysis"]["reason_text"] in browser.find_element(By.ID, "summary").text
+    shot(browser, "experiment-plan")
+    browser.set_window_size(PHONE, 844)
+    try:
+        browser.get(srv.base_url + f"/experiments/{exp_id}")
+        no_sideways_scroll(browser)
+        shot(browser, "phone-experiment-plan")
+    finally:
+        browser.set_window_size(1100, 900)
+
+
 def test_api_page_loads_from_this_machine_alone(browser: Any, live: Any):
     from selenium.webdriver.common.by import By
     from selenium.webdriver.support import expected_conditions as ec

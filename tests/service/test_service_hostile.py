@@ -28,7 +28,14 @@ from pathlib import Path
 from typing import Any
 
 import httpx
-from service_helpers import Server, auth, new_key
+from service_helpers import (
+    EXPERIMENT_ARMS,
+    Server,
+    auth,
+    experiment_document,
+    experiment_inputs,
+    new_key,
+)
 
 import seqtest
 from service.library import json_safe
@@ -48,6 +55,10 @@ DOCS = [
     json_safe(seqtest.design(looks=5, efficacy="haybittle-peto").to_dict()),
     json_safe(seqtest.mixture.mixture_plan(alpha=0.05, metric=METRICS["binary"]).to_dict()),
 ]
+# experiment plans (many arms, several metrics): kind "experiment" in the generator
+EXP_DOCS = [experiment_document(), experiment_document(arms=EXPERIMENT_ARMS[:2],
+                                                       guardrail=False, looks=2)]
+EXP_METRICS = [["orders", "refunds"], ["orders"]]
 HOSTILE_NUMBERS = ["NaN", "Infinity", "-Infinity", "1e999", "-1e999", "1" + "0" * 60,
                    "1e308", "-1e308", "1e-320", "0", "-0", "-1", "0.5", "1" + "0" * 400,
                    "123456789012345678901234567890", "2", "3", "100", "1e15"]
@@ -188,8 +199,31 @@ class Gen:
                 d["binding"] = r.random() < 0.5
         return d
 
+    def experiment_totals(self, kind: str, arms: list[str], n: int) -> dict[str, Any]:
+        """A look of an experiment plan: per arm (one metric) or per metric and arm,
+        sometimes with an unknown metric or arm, an arm left out, or a metric's totals
+        flat."""
+        r = self.rng
+        metrics = EXP_METRICS[int(kind.split(":")[1])]
+        per = {m: {a: {"n": n if m == "orders" else n // 10,
+                       "successes": max(0, (n // 10 if m == "orders" else n // 200)
+                                        + r.randint(-2, 2))} for a in arms}
+               for m in metrics}
+        x = r.random()
+        if x < 0.05:
+            per["sales"] = copy.deepcopy(per[metrics[0]])
+        elif x < 0.1:
+            per[metrics[0]]["teapot"] = {"n": n, "successes": 1}
+        elif x < 0.15 and len(arms) > 2:
+            del per[metrics[0]][arms[-1]]
+        if len(metrics) == 1 and r.random() < 0.7:
+            return per[metrics[0]]
+        return per
+
     def totals(self, kind: str, arms: list[str], n: int) -> dict[str, Any]:
         r = self.rng
+        if kind.startswith("experiment"):
+            return self.experiment_totals(kind, arms, n)
         out = {}
         for arm in arms:  # plausible totals of two similar arms (most looks continue)
             if kind == "binary":
@@ -264,7 +298,19 @@ class Gen:
         r = self.rng
         body: dict[str, Any] = {"name": r.choice(["checkout", "basket", "banner"]),
                                 "arms": {"control": "classic", "treatment": "large"}}
-        if r.random() < 0.6:
+        x = r.random()
+        if x < 0.04:  # an experiment plan's document, often tampered by body_variant
+            body = {"name": "basket texts", "plan": copy.deepcopy(r.choice(EXP_DOCS))}
+            if r.random() < 0.3:
+                body["arms"] = r.choice([list(EXPERIMENT_ARMS), ["basket"],
+                                         [f"arm{i}" for i in range(10)],
+                                         {"control": "basket", "treatment": "add-to-tray"}])
+        elif x < 0.07:  # design inputs of an experiment plan, with hostile arm counts
+            inputs = experiment_inputs(looks=r.randint(1, 4))
+            inputs["arms"] = r.choice([list(EXPERIMENT_ARMS), ["basket"], 1, 10,
+                                       [f"arm{i}" for i in range(10)], 3])
+            body = {"name": "basket texts", "design": {"kind": "experiment", **inputs}}
+        elif r.random() < 0.6:
             body["design"] = self.design()
         else:
             doc = copy.deepcopy(r.choice(DOCS))
@@ -376,6 +422,13 @@ def test_hostile_requests_through_a_real_server(module_database_url: str, tmp_pa
                     "design": {"looks": 5, "metric": metric}, "max_n": 10**7})
                 assert r.status_code == 201, r.text
                 gen.experiments.append((r.json()["id"], kind, arms, 0))
+        for i, doc in enumerate(EXP_DOCS):  # experiment plans: many arms, metrics
+            for _ in range(3):
+                r = c.post("/v1/experiments", json={"name": f"experiment {i}", "plan": doc})
+                assert r.status_code == 201, r.text
+                gen.experiments.append((r.json()["id"], f"experiment:{i}",
+                                        list(r.json()["arms"]), 0))
+        setup = len(gen.experiments)
     # generate every request up front, from the one seeded generator; the threads
     # only send them (a look's totals grow in the order generated)
     planned = [gen.request() for _ in range(REQUESTS)]
@@ -383,6 +436,7 @@ def test_hostile_requests_through_a_real_server(module_database_url: str, tmp_pa
     by_route: Counter[str] = Counter()
     problems: list[str] = []
     created: list[tuple[str, Any]] = []  # id, the Authorization it was created with
+    looks_stored: Counter[str] = Counter()  # looks answered 201 (not replayed), per id
     lock = threading.Lock()
     t0 = time.monotonic()
 
@@ -411,6 +465,10 @@ def test_hostile_requests_through_a_real_server(module_database_url: str, tmp_pa
                 elif method == "POST" and url == "/v1/experiments" and r.status_code == 201:
                     with lock:
                         created.append((r.json()["id"], headers["Authorization"]))
+                elif method == "POST" and url.endswith("/looks") and r.status_code == 201 \
+                        and r.headers.get("Seqtest-Replayed") != "true":
+                    with lock:
+                        looks_stored[r.json()["experiment_id"]] += 1
 
     parts = [planned[i::THREADS] for i in range(THREADS)]
     pool = [threading.Thread(target=worker, args=(p,)) for p in parts]
@@ -423,6 +481,7 @@ def test_hostile_requests_through_a_real_server(module_database_url: str, tmp_pa
 
     # every experiment created is readable, with its looks
     unreadable: list[str] = []
+    miscounted: list[str] = []
     mine = f"Bearer {key}"
     to_read = created + [(e[0], mine) for e in gen.experiments]
     t1 = time.monotonic()
@@ -437,6 +496,9 @@ def test_hostile_requests_through_a_real_server(module_database_url: str, tmp_pa
                     unreadable.append(f"{exp_id}: {r.status_code} {r.text[:200]}")
                     continue
                 n = r.json()["look_count"]
+                if n != looks_stored[exp_id]:  # a refused look stored nothing
+                    miscounted.append(f"{exp_id}: {n} looks stored, "
+                                      f"{looks_stored[exp_id]} acknowledged")
                 if n and c.get(f"/v1/experiments/{exp_id}/looks/{n}",
                                headers=h).status_code != 200:
                     unreadable.append(f"{exp_id}: look {n} unreadable")
@@ -447,6 +509,8 @@ def test_hostile_requests_through_a_real_server(module_database_url: str, tmp_pa
     for t in readers:
         t.join()
     read_took = time.monotonic() - t1
+    with httpx.Client(base_url=srv.base_url, timeout=60, headers=auth(key)) as c:
+        listed_total = c.get("/v1/experiments").json()["total"]
     srv.stop()
     assert srv.log_file is not None
     log = srv.log_file.read_text()
@@ -457,6 +521,16 @@ def test_hostile_requests_through_a_real_server(module_database_url: str, tmp_pa
     assert not problems, problems[:20]
     assert not raw_problems, raw_problems
     assert not unreadable, unreadable[:20]
+    assert not miscounted, miscounted[:20]
+    # a refused create stored nothing: the team has the experiments set up and those
+    # acknowledged, no more
+    mine_created = {i for i, who in created if who == mine}
+    print(f"experiment plans: {sum(1 for e in gen.experiments if e[1].startswith('exp'))} "
+          f"set up, {sum(looks_stored[e[0]] for e in gen.experiments if e[1].startswith('exp'))}"
+          " looks stored")
+    slow_creates = sum(1 for i in range(30) if i % 3 == 1)  # _slow_and_unfinished's 201s
+    assert listed_total == setup + len(mine_created) + slow_creates, (
+        listed_total, setup, len(mine_created), slow_creates)
     assert sum(statuses.values()) == REQUESTS
     assert statuses[201] > 200 and statuses[422] > 1000  # it reached the library, and beyond
     assert set(by_route) >= {"health", "list", "get", "get_look", "other", "create", "look",

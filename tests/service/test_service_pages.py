@@ -18,7 +18,7 @@ from typing import Any
 
 import pytest
 from fastapi.testclient import TestClient
-from service_helpers import auth, open_db
+from service_helpers import EXPERIMENT_ARMS, auth, experiment_document, open_db
 
 import seqtest
 from service import usecases
@@ -341,6 +341,49 @@ def test_a_mixture_plan_has_its_page_too(client: TestClient, app_db: Database):
     assert html.unescape(f"{shown.group(1)} {shown.group(2)}") == summary
     assert "Plan: mixture SPRT" in page and 'id="plan-table"' not in page
     assert page.count("<svg") == 2
+
+
+def test_an_experiment_plan_has_its_page(client: TestClient, app_db: Database):
+    key = _key(app_db)
+    control, tray, now = EXPERIMENT_ARMS
+    r = client.post("/v1/experiments", headers=auth(key), json={
+        "name": "Basket button texts", "plan": experiment_document()})
+    assert r.status_code == 201, r.text
+    exp = r.json()
+    _signed_in(client, key)
+    page = client.get(f"/experiments/{exp['id']}")
+    assert page.status_code == 200 and 'id="no-looks"' in page.text
+    assert "Experiment plan: 2 treatment(s)" in page.text and 'id="plan-table"' in page.text
+    # the guardrail is crossed by one arm at the first look (refunds 12% against 5%)
+    look = {"orders": {control: {"n": 900, "successes": 90}, tray: {"n": 900, "successes": 92},
+                       now: {"n": 900, "successes": 88}},
+            "refunds": {control: {"n": 400, "successes": 20},
+                        tray: {"n": 400, "successes": 48},
+                        now: {"n": 400, "successes": 19}}}
+    r = client.post(f"/v1/experiments/{exp['id']}/looks", headers=auth(key),
+                    json={"totals": look})
+    assert r.status_code == 201, r.text
+    answer = r.json()
+    page = client.get(f"/experiments/{exp['id']}")
+    assert page.status_code == 200, page.text
+    text = html.unescape(page.text)
+    assert answer["analysis"]["reason_text"] in text
+    arms = re.search(r'id="arms">(.*?)</table>', page.text, re.S)
+    comps = re.search(r'id="comparisons">(.*?)</table>', page.text, re.S)
+    assert arms is not None and comps is not None
+    arm_rows = re.findall(r"<tr><td class=\"name\">(.*?)</td>.*?State\">(.*?)</td>",
+                          arms.group(1), re.S)
+    assert dict(arm_rows) == {tray: "stopped", now: "running"}
+    assert answer["arm_states"] == {tray: "stopped", now: "running"}
+    comp_rows = re.findall(r'<tr><td class="name">(.*?)</td><td data-label="Metric">(.*?)'
+                           r'</td>.*?data-label="z">(.*?)</td>', comps.group(1), re.S)
+    z = {(c["arm"], c["metric"]): c["looks"][-1]["z"]
+         for c in answer["analysis"]["comparisons"]}
+    assert {(a, m): float(v) for a, m, v in comp_rows} == pytest.approx(
+        {k: round(v, 2) for k, v in z.items()}, abs=0.006)
+    assert seqtest.CAUTION in text
+    listing = client.get("/experiments")
+    assert listing.status_code == 200 and "Basket button texts" in listing.text
 
 
 @pytest.mark.parametrize("query, field", [

@@ -44,7 +44,7 @@ def _new(db: Database, p) -> str:
 
 
 def test_schema_is_versioned_and_migration_is_repeatable(storage: Database, database_url: str):
-    assert storage.schema_version == migrations.LATEST == 4
+    assert storage.schema_version == migrations.LATEST == 5
     again = open_db(database_url)  # a second start applies nothing new
     try:
         assert again.schema_version == migrations.LATEST
@@ -55,6 +55,59 @@ def test_schema_is_versioned_and_migration_is_repeatable(storage: Database, data
         assert rows == list(range(1, migrations.LATEST + 1))
     finally:
         again.close()
+
+
+def test_a_version_4_database_upgrades_in_place(database_url: str):
+    """Migration 5 adds an experiment plan's arms and metrics beside the rows already
+    there: a two-arm experiment recorded at version 4 reads the same after the upgrade,
+    takes looks, and its looks stay append-only."""
+    import json
+
+    from sqlalchemy import create_engine
+    url = resolve_database_url(database_url)
+    eng = create_engine(url)
+    try:
+        assert migrations.migrate(eng, target=4) == 4
+        with eng.begin() as conn:
+            conn.execute(text(
+                "INSERT INTO teams (id, name, created_at) VALUES ('team_old', 'old', "
+                "'2024-01-01T00:00:00.000000Z')"))
+            conn.execute(text(
+                "INSERT INTO experiments (id, team_id, name, description, metric, "
+                "control_arm, treatment_arm, allocation, max_n, fraction, plan_version, "
+                "look_count, state, decision, created_at, created_by, updated_at) VALUES "
+                "('exp_old', 'team_old', 'recorded at v4', '', 'binary', 'classic', "
+                "'large', 1.0, NULL, NULL, 1, 0, 'planned', NULL, "
+                "'2024-01-01T00:00:00.000000Z', 'key_old', '2024-01-01T00:00:00.000000Z')"))
+            conn.execute(tables.plan_versions.insert().values(
+                experiment_id="exp_old", version=1, kind="group_sequential",
+                document=json.dumps(json_plan()), source='{"from": "document"}',
+                reason=None, after_look=0, recorded_at="2024-01-01T00:00:00.000000Z",
+                recorded_by="key_old", boundaries=None))
+    finally:
+        eng.dispose()
+    db = open_db(database_url)
+    try:
+        assert db.schema_version == 5
+        got = usecases.read_experiment(db, "team_old", "exp_old")
+        assert got["arms"] == {"control": "classic", "treatment": "large"}
+        assert got["metrics"] is None and got["allocations"] is None
+        _, token = usecases.create_key(db, "old")
+        p = usecases.authenticate(db, token)
+        assert p is not None
+        usecases.append_look(db, p, "exp_old", look_of(1000))
+        with pytest.raises(DBAPIError, match="append-only"):
+            with db.engine.begin() as conn:
+                conn.execute(update(tables.looks).values(decision="stop_efficacy"))
+    finally:
+        db.close()
+
+
+def json_plan() -> dict:
+    import seqtest
+    from service.library import json_safe
+    return json_safe(seqtest.design(looks=3, metric={"kind": "binary", "baseline": 0.1,
+                                                     "mde": 0.02}).to_dict())
 
 
 def test_database_from_a_newer_service_is_refused(storage: Database, database_url: str):

@@ -65,26 +65,42 @@ def create_experiment(
     body: Annotated[
         ExperimentCreate,
         Body(openapi_examples={"design": examples.CREATE_WITH_DESIGN,
-                               "document": examples.CREATE_WITH_PLAN}),
+                               "document": examples.CREATE_WITH_PLAN,
+                               "experiment plan": examples.CREATE_EXPERIMENT_PLAN}),
     ],
 ) -> JSONResponse:
     """Create an experiment: metric kind, arm names, planned allocation, and the plan,
     given either as a plan document or as the inputs to design it. The answer carries
     the experiment's id and the plan's boundary table. The plan is frozen from the first
-    look on; changes are recorded amendments."""
+    look on; changes are recorded amendments. A plan of kind `experiment` (one control,
+    1 to 8 treatments, primary and guardrail metrics) names its arms and metrics
+    itself: `arms`, `metric_kind` and `allocation`, when given, must be the plan's, and
+    its boundary table has one row per comparison (arm, metric) and planned look."""
+    metric_kind = body.metric_kind if body.metric_kind is not None \
+        else body.__dict__["metric"]  # the deprecated name, read without a warning
+    fraction_basis = body.fraction_basis if body.fraction_basis is not None \
+        else body.__dict__["fraction"]
+    arms = body.arms
+    given: dict[str, Any] = {"metric_kind": metric_kind, "max_n": body.max_n,
+                             "fraction_basis": fraction_basis}
+    if "arms" in body.model_fields_set:
+        given["arms"] = list(arms) if isinstance(arms, list) else arms.model_dump()
+    if "allocation" in body.model_fields_set:
+        given["allocation"] = body.allocation
+    control, treatment = (arms[0], arms[1]) if isinstance(arms, list) else \
+        (arms.control, arms.treatment)
     req = usecases.CreateRequest(
         name=body.name,
         description=body.description,
-        metric_kind=body.metric_kind if body.metric_kind is not None
-        else body.__dict__["metric"],  # the deprecated name, read without a warning
-        control_arm=body.arms.control,
-        treatment_arm=body.arms.treatment,
+        metric_kind=metric_kind,
+        control_arm=control,
+        treatment_arm=treatment,
         allocation=body.allocation,
         max_n=body.max_n,
-        fraction_basis=body.fraction_basis if body.fraction_basis is not None
-        else body.__dict__["fraction"],
+        fraction_basis=fraction_basis,
         plan=plan_request(body),
         deprecations=body.deprecations(),
+        given=given,
     )
     answer = usecases.create_experiment(db, principal, req, idem_for(key, request, body))
     return respond(answer, {"Location": f"/v1/experiments/{answer.body['id']}"})

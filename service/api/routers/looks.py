@@ -39,14 +39,19 @@ def post_look(
     body: Annotated[
         LookCreate,
         Body(openapi_examples={"binary": examples.LOOK_BINARY,
-                               "continuous": examples.LOOK_CONTINUOUS}),
+                               "continuous": examples.LOOK_CONTINUOUS,
+                               "experiment plan": examples.LOOK_EXPERIMENT}),
     ],
 ) -> JSONResponse:
     """Totals are cumulative since the start and keyed by the experiment's arm names.
     The look is numbered (1, 2, ...), analysed by the monitor over every look so far,
     and its own result stored once, in one transaction. Totals that go backwards,
     unknown arms and fields that do not fit the metric are refused with 422 naming the
-    field. A stopped or completed experiment refuses looks with 409."""
+    field. A stopped or completed experiment refuses looks with 409. An experiment plan
+    (many arms) takes `{arm: totals}` (one metric) or `{metric: {arm: totals}}`, with
+    the control and every arm still running; an arm that stopped may still be posted
+    (checked, not analysed); refusals are located at `["body", "totals", (metric,) arm,
+    field]`."""
     req = usecases.LookRequest(totals=body.totals, final=body.final,
                                daily_traffic=body.daily_traffic)
     answer = usecases.append_look(db, principal, experiment_id, req,
