@@ -380,3 +380,11 @@ def test_exit_status_of_an_experiment_follows_the_same_table(decision, mismatch,
     record = {"kind": "experiment", "decision": decision, "looks": 2,
               "srm": [{"look": 1, "mismatch": False}, {"look": 2, "mismatch": mismatch}]}
     assert exit_status(record) == status
+
+
+def test_every_decision_has_its_words():
+    # a page or a table shows a decision in words, never as its code (stop_harm was
+    # shown raw on the experiment page before it had words)
+    from seqtest.reporting.style import DECISION_WORDS, decision_words
+    assert set(DECISION_WORDS) == {d.value for d in seqtest.Decision}
+    assert decision_words("stop_harm") == "stop for harm"

@@ -93,6 +93,7 @@ DECISION_WORDS: dict[str, str] = {
     "stop_efficacy": "stop for efficacy",
     "stop_futility": "stop for futility",
     "complete_not_significant": "complete, not significant",
+    "stop_harm": "stop for harm",
 }
 
 

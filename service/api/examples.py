@@ -81,7 +81,7 @@ EXPERIMENT_DESIGN = {
     "arms": ["basket", "add-to-tray", "order-now"],
     "metrics": [
         {"name": "orders", "kind": "binary", "baseline": 0.10, "mde": 0.03},
-        {"name": "refunds", "role": "guardrail", "direction": "decrease",
+        {"name": "refunds", "role": "guardrail", "better": "lower",
          "kind": "binary", "baseline": 0.05, "mde": 0.03},
     ],
     "looks": 3,

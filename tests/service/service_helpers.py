@@ -151,9 +151,14 @@ def experiment_metrics(*, guardrail: bool = True, kind: str = "binary") -> list[
     primary: dict = {"name": "orders", "kind": "binary", "baseline": 0.10, "mde": 0.03}
     if kind == "continuous":
         primary = {"name": "order_value", "kind": "continuous", "sd": 6.0, "mde": 1.0}
+    if kind == "ratio":
+        # items per order, visitors randomised (a pilot's per-visitor moments)
+        primary = {"name": "items_per_order", "kind": "ratio", "numerator_mean": 2.4,
+                   "denominator_mean": 1.1, "numerator_sd": 2.0, "denominator_sd": 0.8,
+                   "covariance": 1.2, "mde": 0.15}
     out = [primary]
     if guardrail:
-        out.append({"name": "refunds", "role": "guardrail", "direction": "decrease",
+        out.append({"name": "refunds", "role": "guardrail", "better": "lower",
                     "kind": "binary", "baseline": 0.05, "mde": 0.03})
     return out
 

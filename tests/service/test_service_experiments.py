@@ -405,3 +405,18 @@ def test_impossible_sums_of_squares_are_located(client, key):
     assert detail["location"] == ["body", "totals", CONTROL, "sum_sq"]
     assert detail["metric"] == "order_value"
     assert client.get(f"/v1/experiments/{exp['id']}", headers=key).json()["look_count"] == 0
+
+
+def test_a_zero_denominator_of_a_ratio_metric_is_located(client, key):
+    exp = create(client, key, experiment_document(guardrail=False, kind="ratio"))
+    good = {"n": 100, "numerator": 240.0, "denominator": 110.0, "numerator_sq": 980.0,
+            "denominator_sq": 185.0, "cross": 390.0}
+    bad = {**good, "denominator": 0.0, "denominator_sq": 0.0, "cross": 0.0}
+    look = {CONTROL: good, ARM_A: good, ARM_B: bad}
+    detail = error(post(client, key, exp["id"], look))["details"][0]
+    assert detail["location"][:3] == ["body", "totals", ARM_B], detail
+    assert detail["metric"] == "items_per_order" and detail["arm"] == ARM_B
+    assert "denominator" in detail["message"], detail
+    assert client.get(f"/v1/experiments/{exp['id']}", headers=key).json()["look_count"] == 0
+    r = post(client, key, exp["id"], {CONTROL: good, ARM_A: good, ARM_B: good})
+    assert r.status_code == 201, r.text
