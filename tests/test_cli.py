@@ -180,3 +180,21 @@ def test_mixture_plan_refuses_look_options(capsys):
     rc, _, err = run(["plan", "--kind", "mixture", "--looks", "5", "--metric", "binary",
                       "--baseline", "0.1", "--mde", "0.02"], capsys)
     assert rc == 2 and "--looks" in err
+
+
+def test_every_command_with_a_metric_option_offers_every_metric_kind():
+    # one vocabulary: a command that takes --metric offers the library's kinds (post
+    # once offered only the first three)
+    import argparse
+
+    from seqtest.cli import build_parser
+    from seqtest.core.vocabulary import METRIC_KINDS
+    parser = build_parser()
+    sub = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    seen = []
+    for name, command in sub.choices.items():
+        for action in command._actions:
+            if "--metric" in action.option_strings:
+                seen.append(name)
+                assert tuple(action.choices) == tuple(METRIC_KINDS), name
+    assert {"plan", "analyze", "post"} <= set(seen)

@@ -28,6 +28,7 @@ from pathlib import Path
 from typing import Any
 
 from seqtest.cli.common import UsageError, write
+from seqtest.core.vocabulary import METRIC_KINDS
 
 __all__ = ["register"]
 
@@ -90,7 +91,7 @@ def register(sub: Any) -> None:
     exp.add_argument("--description", default=None, help="with --create")
     exp.add_argument("--arms", metavar="CONTROL,TREATMENT", default=None,
                      help="with --create: the arms' names (default: the data's)")
-    exp.add_argument("--metric", choices=("binary", "continuous", "rate"), default=None,
+    exp.add_argument("--metric", choices=METRIC_KINDS, default=None,
                      help="with --create: metric kind when the plan has none")
     exp.add_argument("--max-n", type=float, default=None, dest="max_n",
                      help="with --create: maximum total over both arms, when the plan has "
