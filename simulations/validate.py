@@ -415,8 +415,8 @@ def _experiment_cells(full: bool, reps: int) -> list[tuple]:
                 {"name": "guardrail-power", "metrics": [
                     {"name": "y", "data": EXP_DATA}, gdata]},
                 reps if full else small,
-                {"labels": {"case": "treatment_1 harms load by its mde (0.08 beyond a "
-                                    "0.02 margin); primaries null"}}))
+                {"labels": {"case": "treatment_1 harms load by its mde, 0.08 (0.06 "
+                                    "beyond the 0.02 margin); primaries null"}}))
     composed = {"experiment": {
         "arms": ["control", "a", "b", "c"], "alpha": 0.025, "sides": 1, "looks": 4,
         "metrics": [{"name": "orders", "kind": "binary", "baseline": 0.10, "mde": 0.02},
