@@ -41,21 +41,6 @@ def _validate():
     return mod
 
 
-def random_cross(v, reps: int) -> list:
-    cells = []
-    for kind in v.METRICS:
-        for label, fam in v.FAMILIES:
-            for k in (2, 5, 10):
-                for sides in (1, 2):
-                    cid = f"random-cross-{kind}-{label}-K{k}-s{sides}"
-                    cells.append(v.Cell(cid, "random-traffic cross",
-                                        v._gs(fam, k, sides, v.METRICS[kind][0]),
-                                        v._scenario(cid, v.METRICS[kind][1], v.RANDOM_TRAFFIC),
-                                        reps, labels={"family": label, "K": k,
-                                                      "sides": sides, "data": kind}))
-    return cells
-
-
 def stratum(cell) -> tuple:
     lab = cell.labels
     data = lab.get("data") or cell.scenario["data"]["kind"]
@@ -131,7 +116,7 @@ def main() -> None:
     args = ap.parse_args()
     v = _validate()
     full = v.build_grid("full")
-    cross = random_cross(v, 100_000)
+    cross = v.random_cross_cells(100_000)
     print(f"full grid: {len(full)} cells; random-traffic cross: {len(cross)} cells; "
           f"{args.per_stratum} sampled per stratum at {args.sample_reps:,} replicates")
     estimate(v, full + cross, args.sample_reps, args.per_stratum, args.seed)

@@ -454,9 +454,27 @@ def _bonferroni_users(k: int) -> int:
     return _USERS[k]
 
 
-def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None
-               ) -> list[Cell]:
-    """The cells of the ``reduced`` or ``full`` grid (see the module docstring)."""
+def random_cross_cells(reps: int) -> list[Cell]:
+    """The random-traffic cross: every data model x efficacy family x K in {2, 5, 10}
+    x one and two sides, on the grid's random day-to-day traffic (cv 0.4)."""
+    cells = []
+    for kind in METRICS:
+        for label, fam in FAMILIES:
+            for k in (2, 5, 10):
+                for sides in (1, 2):
+                    cid = f"random-cross-{kind}-{label}-K{k}-s{sides}"
+                    cells.append(Cell(cid, "random-traffic cross",
+                                      _gs(fam, k, sides, METRICS[kind][0]),
+                                      _scenario(cid, METRICS[kind][1], RANDOM_TRAFFIC),
+                                      reps, labels={"family": label, "K": k,
+                                                    "sides": sides, "data": kind}))
+    return cells
+
+
+def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None,
+               random_cross: bool = False) -> list[Cell]:
+    """The cells of the ``reduced`` or ``full`` grid (see the module docstring), and
+    with ``random_cross`` the random-traffic cross (:func:`random_cross_cells`)."""
     if grid not in ("reduced", "full"):
         raise ValueError(f"grid: got {grid!r}; allowed are reduced and full")
     full = grid == "full"
@@ -612,6 +630,8 @@ def build_grid(grid: str, reps: int = 100_000, random_reps: int | None = None
             _scenario(f"random-{kind}-{label}-K{k}-s{sides}", METRICS[kind][1],
                       RANDOM_TRAFFIC), random_reps,
             labels={"family": label, "K": k, "sides": sides, "data": kind})
+    if random_cross:
+        cells += random_cross_cells(random_reps)
     return cells
 
 
@@ -1077,9 +1097,12 @@ def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int
         "",
         "## What is claimed, and its limits",
         "",
-        "The z statistics use estimated variances (Welch's statistic for continuous "
-        "data, the unpooled Wald statistic for proportions, the Poisson variance for "
-        "counts) and discrete data, so a plan's type I error is approximately alpha, "
+        "The z statistics use estimated variances (for proportions and rates the "
+        "skewness-corrected score statistic with its variance restricted to the null; "
+        "Welch's statistic for continuous data; the delta method for ratio metrics; "
+        "the regression-adjusted mean for adjusted ones; the counts' own variance for "
+        "count metrics) and discrete data, so a plan's type I error is approximately "
+        "alpha, "
         "exactly so only as the samples grow. The rule above detects an excess over "
         "alpha of about 3 Monte Carlo standard errors (0.0020 at alpha 0.05 and "
         "100,000 replicates, 0.0015 at alpha 0.025); a smaller excess passes. The "
@@ -1152,11 +1175,12 @@ def write_report(a: Assessment, out: Path, *, grid: str, seed: int, workers: int
 def run(grid: str, out: Path | str, *, reps: int = 100_000, random_reps: int | None = None,
         seed: int = 0, workers: int = 1, budget_seconds: float | None = None,
         log: Any = None, client: Any = None, progress: Any = None,
-        only: str | None = None) -> Assessment:
+        only: str | None = None, random_cross: bool = False) -> Assessment:
     """Build, run, assess and report a grid; returns the assessment. With a Dask
     ``client`` the chunks run on its cluster (``workers`` is then ignored); ``only``
-    keeps the cells whose id starts with it."""
-    cells = build_grid(grid, reps, random_reps)
+    keeps the cells whose id starts with it; ``random_cross`` adds the random-traffic
+    cross."""
+    cells = build_grid(grid, reps, random_reps, random_cross)
     if only is not None:
         cells = [c for c in cells if c.id.startswith(only)]
     t0 = time.perf_counter()
@@ -1208,6 +1232,10 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--cells", default=None, metavar="PREFIX",
                    help="run only the cells whose id starts with PREFIX (e.g. "
                         "experiment-)")
+    p.add_argument("--random-cross", action="store_true", dest="random_cross",
+                   help="add the random-traffic cross: every data model x efficacy "
+                        "family x K = 2, 5, 10 x both sides on random day-to-day traffic "
+                        "(240 cells; ids random-cross-...)")
     args = p.parse_args(argv)
     if args.render_only:
         a = render(args.out)
@@ -1249,7 +1277,8 @@ def main(argv: list[str] | None = None) -> int:
                     return 2
             a = run(args.grid, args.out, reps=args.reps, random_reps=args.random_reps,
                     seed=args.seed, workers=max(1, args.workers), budget_seconds=budget,
-                    log=log, client=client, progress=progress, only=args.cells)
+                    log=log, client=client, progress=progress, only=args.cells,
+                    random_cross=args.random_cross)
     finally:
         if bar is not None:
             bar.close()
