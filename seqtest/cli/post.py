@@ -283,22 +283,11 @@ def _create_experiment_plan(client: Any, args: argparse.Namespace, doc: dict[str
     return exp, table
 
 
-class _ExperimentRecord:
-    """An experiment's analysis as the service answers it (JSON), read where the rule
-    of its exit status (:func:`seqtest.cli.experiment.exit_status`) reads the object."""
-
-    def __init__(self, analysis: dict[str, Any]) -> None:
-        self.sample_ratio_mismatch = list(analysis.get("sample_ratio_mismatch") or [])
-        self.decision = argparse.Namespace(value=analysis.get("decision"))
-
-
 def _status(analysis: dict[str, Any] | None) -> int:
+    """The exit status of the service's analysis (two-arm or experiment: one table)."""
     from seqtest.reporting.status import ExitStatus, exit_status
     if not analysis:
         return int(ExitStatus.CONTINUE)
-    if analysis.get("kind") == "experiment":
-        from seqtest.cli.experiment import exit_status as experiment_status
-        return experiment_status(_ExperimentRecord(analysis))
     return int(exit_status(analysis))
 
 
