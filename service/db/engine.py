@@ -302,6 +302,12 @@ class Database:
         self.last_write_failure: tuple[float, str] | None = None
         self._probed_at = -1e9
         self._probe_reason: str | None = None
+        # SQLite: this process's writers queue on a lock of their own before BEGIN
+        # IMMEDIATE, so the database's lock only arbitrates between processes. A writer
+        # waiting on the database's lock is woken by SQLite's busy handler, which polls
+        # with sleeps growing to 100 ms: under load, writers of one process queueing
+        # there wait far longer than the writes themselves take.
+        self._writers = threading.Lock() if self.dialect == "sqlite" else None
         self.schema_version = self._migrate() if migrate else 0
 
     def close(self) -> None:
@@ -386,12 +392,27 @@ class Database:
                 yield conn
 
     @contextmanager
+    def _writer_turn(self) -> Iterator[None]:
+        """SQLite: wait (at most the busy timeout) for this process's other writers."""
+        if self._writers is None:
+            yield
+            return
+        if not self._writers.acquire(timeout=self.settings.busy_timeout_s):
+            raise self._unavailable("busy", True, "work")
+        try:
+            yield
+        finally:
+            self._writers.release()
+
+    @contextmanager
     def write(self) -> Iterator[Connection]:
         """One write transaction; committed when the block ends without an error.
 
-        SQLite: ``BEGIN IMMEDIATE`` (the write lock from the first statement).
+        SQLite: ``BEGIN IMMEDIATE`` (the write lock from the first statement), after
+        this process's other writers (:meth:`_writer_turn`).
         """
-        with self._guard(writing=True) as st, self._connect(st, seqtest_write=True) as conn:
+        with self._writer_turn(), self._guard(writing=True) as st, \
+                self._connect(st, seqtest_write=True) as conn:
             trans = conn.begin()
             try:
                 yield conn
