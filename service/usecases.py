@@ -1,4 +1,5 @@
-"""What the service does, one function per action, each in ONE transaction it opens.
+"""What the service does, one function per action, each in the transactions it opens
+(one write at most; a look and an amendment read first, outside the write lock).
 
 The write path of a look: in a read transaction, read the experiment, its stored
 looks and its plan in force (the parsed plan comes from a process-local cache of
