@@ -1,5 +1,5 @@
 """What the service does, one function per action, each in the transactions it opens
-(one write at most; a look and an amendment read first, outside the write lock).
+(a look and an amendment read first, outside the write lock, then write).
 
 The write path of a look: in a read transaction, read the experiment, its stored
 looks and its plan in force (the parsed plan comes from a process-local cache of
