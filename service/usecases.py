@@ -369,31 +369,42 @@ def _stored_plan(db: Database, conn: Connection, exp: Experiment) -> library.Pla
 
 @dataclass
 class _Snapshot:
-    """What a look is analysed on: the experiment row as read, the stored looks, the
-    plan in force, and the outcome (or the refusal) of the analysis."""
+    """What a look is analysed on: the experiment row as read, its stored looks and
+    its plan in force; then the outcome (or the refusal) of the analysis."""
 
     exp: Experiment
     totals: list[dict[str, Any]]
     results: list[dict[str, Any] | None]
+    plan: library.PlanInfo | None = None
     roles: dict[str, dict[str, Any]] | None = None
     outcome: library.LookOutcome | None = None
     error: Exception | None = None
 
 
-def _analyse(db: Database, conn: Connection, exp: Experiment, req: LookRequest
-             ) -> _Snapshot:
-    """Read the stored looks and the plan on ``conn`` and analyse the new look on them.
-    A refusal (bad totals, a plan or an analysis that fails) is kept, not raised: it
-    belongs to this snapshot and is raised only once the snapshot is known to hold."""
+def _read_state(db: Database, conn: Connection, exp: Experiment) -> _Snapshot:
+    """The stored looks and the plan in force of ``exp``, read on ``conn``."""
     totals, results = repo.look_history(conn, exp.id)
     if len(totals) != exp.look_count:  # pragma: no cover - one transaction's snapshot
         raise RuntimeError("look count out of step with stored looks")
     snap = _Snapshot(exp, totals, results)
     try:
-        plan = _stored_plan(db, conn, exp)
-        snap.roles = library.to_roles(exp, req.totals)
-        snap.outcome = library.analyze_look(exp, plan, totals, snap.roles, req.final,
-                                            req.daily_traffic)
+        snap.plan = _stored_plan(db, conn, exp)
+    except Unprocessable as exc:  # a stored plan the library cannot read
+        snap.error = exc
+    return snap
+
+
+def _analyse(snap: _Snapshot, req: LookRequest) -> _Snapshot:
+    """The new look analysed on ``snap``. A refusal (bad totals, a plan or an analysis
+    that fails) is kept, not raised: it belongs to this snapshot and is raised only
+    once the snapshot is known to hold."""
+    if snap.error is not None:
+        return snap
+    assert snap.plan is not None
+    try:
+        snap.roles = library.to_roles(snap.exp, req.totals)
+        snap.outcome = library.analyze_look(snap.exp, snap.plan, snap.totals, snap.roles,
+                                            req.final, req.daily_traffic)
     except Unprocessable as exc:  # InvalidTotals, InvalidPlan, AnalysisFailed, ...
         snap.error = exc
     return snap
@@ -401,7 +412,8 @@ def _analyse(db: Database, conn: Connection, exp: Experiment, req: LookRequest
 
 def _snapshot(db: Database, principal: Principal, exp_id: str, req: LookRequest
               ) -> _Snapshot | None:
-    """The analysis on a read snapshot, outside the write lock; None when the
+    """The look analysed on a read snapshot, outside the write lock and after the read
+    transaction ended (it holds no connection while it computes); None when the
     experiment is closed (the write path answers that, after the idempotency check)."""
     with db.read() as conn:
         exp = repo.get_experiment(conn, principal.team_id, exp_id)
@@ -409,7 +421,8 @@ def _snapshot(db: Database, principal: Principal, exp_id: str, req: LookRequest
             raise _not_found(exp_id)
         if exp.state in ("stopped", "completed"):
             return None
-        return _analyse(db, conn, exp, req)
+        snap = _read_state(db, conn, exp)
+    return _analyse(snap, req)
 
 
 def append_look(db: Database, principal: Principal, exp_id: str, req: LookRequest,
@@ -447,7 +460,7 @@ def append_look(db: Database, principal: Principal, exp_id: str, req: LookReques
                 if snap is None or snap.exp != exp:
                     if attempt < _SNAPSHOT_TRIES - 1:
                         continue  # a look or an amendment came in: analyse again
-                    snap = _analyse(db, conn, exp, req)  # last resort: under the lock
+                    snap = _analyse(_read_state(db, conn, exp), req)  # under the lock
                 if snap.error is not None:
                     raise snap.error
                 assert snap.outcome is not None and snap.roles is not None
