@@ -392,13 +392,16 @@ class Database:
                 yield conn
 
     @contextmanager
-    def _writer_turn(self) -> Iterator[None]:
-        """SQLite: wait (at most the busy timeout) for this process's other writers."""
+    def _writer_turn(self, wait_s: float | None = None, writing: bool = True
+                     ) -> Iterator[None]:
+        """SQLite: wait (at most ``wait_s``, by default the busy timeout) for this
+        process's other writers."""
         if self._writers is None:
             yield
             return
-        if not self._writers.acquire(timeout=self.settings.busy_timeout_s):
-            raise self._unavailable("busy", True, "work")
+        wait = self.settings.busy_timeout_s if wait_s is None else wait_s
+        if not self._writers.acquire(timeout=wait):
+            raise self._unavailable("busy", writing, "work")
         try:
             yield
         finally:
@@ -460,7 +463,11 @@ class Database:
 
     def _probe_write(self) -> str | None:
         try:
-            with self._guard(writing=False) as st, \
+            # in this process's queue of writers, like any write (else, on SQLite, the
+            # probe would poll for the database's lock between writers that hand it
+            # to each other, and report a busy database under a steady load of writes)
+            with self._writer_turn(1.0, writing=False), \
+                    self._guard(writing=False) as st, \
                     self._connect(st, seqtest_write=True) as conn:
                 raw: Any = conn.connection.dbapi_connection
                 if self.dialect == "sqlite":  # outside any transaction, on the driver

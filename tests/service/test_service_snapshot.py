@@ -187,3 +187,47 @@ def test_the_plan_cache_is_bounded_and_drops_the_least_recently_used():
     assert cache.get(("db", "b", 1)) is None
     assert cache.get(("db", "a", 1)) is a and cache.get(("db", "c", 1)) is c
     assert (cache.hits, cache.misses) == (3, 1)
+
+
+# ------------------------------------------- SQLite: the writers of one process queue
+
+
+def test_sqlite_writers_of_one_process_queue_and_a_long_wait_is_a_503(sqlite_url: str):
+    from service_helpers import open_db
+    from sqlalchemy import func, select, text
+
+    from service.db import tables
+    from service.errors import Unavailable
+
+    db = open_db(sqlite_url, busy_timeout_s=0.5)
+    holding, release = threading.Event(), threading.Event()
+
+    def hold() -> None:
+        with db.write() as conn:
+            conn.execute(text("INSERT INTO health_checks (checked_at) VALUES ('held')"))
+            holding.set()
+            release.wait(30)
+
+    holder = threading.Thread(target=hold)
+    holder.start()
+    try:
+        assert holding.wait(30)
+        with pytest.raises(Unavailable, match="Nothing was stored") as caught:
+            with db.write() as conn:
+                conn.execute(text("INSERT INTO health_checks (checked_at) VALUES ('x')"))
+        assert caught.value.details == [{"location": ["database"], "message": "busy"}]
+        # the health route's write probe waits its turn too, and says why it cannot
+        db._probed_at = -1e9
+        assert db.check_writable() == "busy"
+    finally:
+        release.set()
+        holder.join()
+    db._probed_at = -1e9
+    db.last_write_failure = None
+    assert db.check_writable() is None
+    with db.engine.connect() as conn:
+        rows = conn.execute(select(tables.health_checks.c.checked_at)).scalars().all()
+        assert rows == ["held"]  # the refused write stored nothing
+        assert conn.execute(select(func.count()).select_from(tables.health_checks)
+                            ).scalar() == 1
+    db.close()
