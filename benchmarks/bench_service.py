@@ -13,6 +13,17 @@ Loopback only. Prints p50/p99 latency, throughput, and the ratios look/health.
 
     python benchmarks/bench_service.py [--requests 300] [--seconds 60]
     SEQTEST_SQLITE_SYNCHRONOUS=NORMAL python benchmarks/bench_service.py
+
+``--compare`` measures, in one run and side by side, on SQLite (synchronous FULL and
+NORMAL) and on PostgreSQL (a fresh schema in ``--postgres-url``, dropped after):
+
+- server CPU per request: the server process's own CPU time (user + system, from
+  /proc/PID/stat) over N health requests and over N look posts, one client;
+- latency under load: 50 concurrent clients (threads, one keep-alive connection
+  each), first all asking for health, then all posting looks (each client to its own
+  experiment, cumulative totals); p50 and p99 of each, and their ratio.
+
+    python benchmarks/bench_service.py --compare [--requests 200] [--clients 50]
 """
 
 from __future__ import annotations
@@ -25,7 +36,10 @@ import statistics
 import subprocess
 import sys
 import tempfile
+import threading
 import time
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import httpx
@@ -104,6 +118,192 @@ def pct(values: list[float], q: float) -> float:
     return s[min(len(s) - 1, int(round(q * (len(s) - 1))))]
 
 
+def cpu_seconds(pid: int) -> float:
+    """User + system CPU time of process ``pid`` and of its finished, waited-for
+    children (/proc/PID/stat fields 14-17, in clock ticks)."""
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    ticks = sum(int(x) for x in fields[11:15])
+    return ticks / os.sysconf("SC_CLK_TCK")
+
+
+def server_cpu(pid: int) -> float:
+    """CPU seconds of the server: its process and every live descendant (worker
+    processes of ``--workers``)."""
+    total = cpu_seconds(pid)
+    for child in Path("/proc").iterdir():
+        if not child.name.isdigit() or int(child.name) == pid:
+            continue
+        try:
+            stat = (child / "stat").read_text()
+        except OSError:
+            continue
+        if int(stat.rsplit(")", 1)[1].split()[1]) == pid:  # ppid
+            total += server_cpu(int(child.name))
+    return total
+
+
+def look_body(k: int, n: int) -> dict:
+    return {"totals": {"control": {"n": n, "successes": n // 10},
+                       "treatment": {"n": n, "successes": n // 10 + k % 7}}}
+
+
+def new_experiments(client: httpx.Client, count: int) -> list[str]:
+    ids = []
+    for i in range(count):
+        r = client.post("/v1/experiments", json={
+            "name": f"bench {i}", "metric_kind": "binary", "max_n": 10**9,
+            "design": {"looks": 5}})
+        r.raise_for_status()
+        ids.append(r.json()["id"])
+    return ids
+
+
+def concurrent(base: str, headers: dict, clients: int, each: int,
+               request: Callable[[httpx.Client, int, int], httpx.Response]) -> list[float]:
+    """``clients`` threads, each with its own keep-alive connection, each sending
+    ``each`` requests back to back (``request(client, thread, i)``); the latencies."""
+    latencies: list[float] = []
+    errors: list[str] = []
+    lock = threading.Lock()
+    ready = threading.Barrier(clients + 1)
+
+    def run(t: int) -> None:
+        mine = []
+        with httpx.Client(base_url=base, timeout=120, headers=headers) as c:
+            c.get("/v1/health")  # connect before the start
+            ready.wait()
+            for i in range(each):
+                t0 = time.perf_counter()
+                r = request(c, t, i)
+                mine.append(time.perf_counter() - t0)
+                if r.status_code >= 300:
+                    errors.append(f"{r.status_code} {r.text[:200]}")
+        with lock:
+            latencies.extend(mine)
+
+    threads = [threading.Thread(target=run, args=(t,)) for t in range(clients)]
+    for th in threads:
+        th.start()
+    ready.wait()
+    for th in threads:
+        th.join()
+    if errors:
+        raise SystemExit(f"{len(errors)} requests failed under load, e.g. {errors[0]}")
+    return latencies
+
+
+def compare_one(label: str, url: str, tmp: Path, requests: int, clients: int, each: int,
+                env: dict[str, str]) -> dict[str, float]:
+    """One database: CPU per request (one client) and p99 at ``clients`` clients."""
+    store = Database(Settings.from_env({"database_url": url}))
+    token = usecases.create_key(store, "bench-bakery", "benchmark")[1]
+    store.close()
+    saved = {k: os.environ.get(k) for k in env}
+    os.environ.update(env)
+    try:
+        proc, base = start_server(url, tmp / f"server-{label.split()[0]}.log")
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+    headers = {"Authorization": f"Bearer {token}"}
+    out: dict[str, float] = {}
+    try:
+        with httpx.Client(base_url=base, timeout=60, headers=headers) as client:
+            per_exp = 10
+            n_exp = -(-requests // per_exp)
+            exps = new_experiments(client, n_exp + clients)
+            seq, load = exps[:n_exp], exps[n_exp:]
+            for _ in range(20):
+                client.get("/v1/health").raise_for_status()
+            # (a) server CPU per request, one client, one request at a time
+            c0 = server_cpu(proc.pid)
+            for _ in range(requests):
+                client.get("/v1/health").raise_for_status()
+            c1 = server_cpu(proc.pid)
+            one: list[float] = []
+            for k in range(requests):
+                t0 = time.perf_counter()
+                r = client.post(f"/v1/experiments/{seq[k % n_exp]}/looks",
+                                json=look_body(k, 1000 * (k // n_exp + 1)))
+                one.append(time.perf_counter() - t0)
+                if r.status_code != 201:
+                    raise SystemExit(f"look refused: {r.status_code} {r.text}")
+            c2 = server_cpu(proc.pid)
+        out["cpu_health_ms"] = (c1 - c0) / requests * 1e3
+        out["cpu_look_ms"] = (c2 - c1) / requests * 1e3
+        out["one_look_ms"] = pct(one, 0.5) * 1e3
+        # (b) latency at `clients` concurrent clients: health, then looks
+        health = concurrent(base, headers, clients, each,
+                            lambda c, t, i: c.get("/v1/health"))
+        looks = concurrent(base, headers, clients, each,
+                           lambda c, t, i: c.post(f"/v1/experiments/{load[t]}/looks",
+                                                  json=look_body(i, 1000 * (i + 1))))
+        for name, xs in (("health", health), ("look", looks)):
+            out[f"p50_{name}_ms"] = pct(xs, 0.50) * 1e3
+            out[f"p99_{name}_ms"] = pct(xs, 0.99) * 1e3
+    finally:
+        os.killpg(proc.pid, signal.SIGTERM)
+        proc.wait(timeout=30)
+    return out
+
+
+@contextmanager
+def postgres_schema(base: str) -> Iterator[str]:
+    """A fresh schema on ``base`` (a PostgreSQL URL), dropped afterwards."""
+    import psycopg
+
+    libpq = base.replace("postgresql+psycopg://", "postgresql://", 1)
+    schema = f"seqtest_bench_{os.getpid()}"
+    with psycopg.connect(libpq, autocommit=True) as conn:
+        conn.execute(f'CREATE SCHEMA "{schema}"')
+    sep = "&" if "?" in base else "?"
+    try:
+        yield f"{base}{sep}options=-csearch_path%3D{schema}"
+    finally:
+        with psycopg.connect(libpq, autocommit=True) as conn:
+            conn.execute(f'DROP SCHEMA IF EXISTS "{schema}" CASCADE')
+
+
+def compare(args: argparse.Namespace) -> int:
+    requests = max(20, min(args.requests, 5000))
+    clients = max(1, min(args.clients, 200))
+    each = max(2, min(args.each, 100))
+    tmp = Path(tempfile.mkdtemp(prefix="seqtest-bench-"))
+    rows: list[tuple[str, dict[str, float]]] = []
+    for sync in ("FULL", "NORMAL"):
+        label = f"SQLite synchronous={sync}"
+        url = f"sqlite:///{tmp / f'bench-{sync.lower()}.db'}"
+        rows.append((label, compare_one(label, url, tmp, requests, clients, each,
+                                        {"SEQTEST_SQLITE_SYNCHRONOUS": sync})))
+    if args.postgres_url:
+        with postgres_schema(args.postgres_url) as url:
+            rows.append(("PostgreSQL", compare_one("PostgreSQL", url, tmp, requests, clients,
+                                                   each, {})))
+    print(f"one server process (uvicorn, 1 worker) on loopback; {os.cpu_count()} CPUs "
+          "shared with the clients and anything else running")
+    print(f"(a) server CPU per request, {requests} of each, one client; "
+          f"(b) {clients} concurrent clients x {each} requests of each kind")
+    head = (f"{'database':<26}{'look 1 client':>14}{'CPU health':>11}{'CPU look':>10}"
+            f"{'ratio':>7}"
+            f"{'p50 health':>12}{'p50 look':>10}{'p99 health':>12}{'p99 look':>10}"
+            f"{'ratio':>7}")
+    print(head)
+    print(f"{'':<26}{'p50 ms':>14}{'ms':>11}{'ms':>10}{'':>7}{'ms':>12}{'ms':>10}"
+          f"{'ms':>12}{'ms':>10}")
+    for label, r in rows:
+        print(f"{label:<26}{r['one_look_ms']:>14.2f}"
+              f"{r['cpu_health_ms']:>11.2f}{r['cpu_look_ms']:>10.2f}"
+              f"{r['cpu_look_ms'] / r['cpu_health_ms']:>6.1f}x"
+              f"{r['p50_health_ms']:>12.1f}{r['p50_look_ms']:>10.1f}"
+              f"{r['p99_health_ms']:>12.1f}{r['p99_look_ms']:>10.1f}"
+              f"{r['p99_look_ms'] / r['p99_health_ms']:>6.1f}x")
+    print("goals: CPU ratio look/health <= 4x; p99 ratio look/health <= 2x")
+    return 0
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--requests", type=int, default=300, help="per kind (max 5000)")
@@ -117,7 +317,18 @@ def main() -> int:
     ap.add_argument("--database-url", default=None,
                     help="default: a fresh SQLite file; a PostgreSQL URL must name an "
                     "existing, empty schema (?options=-csearch_path%%3Dname)")
+    ap.add_argument("--compare", action="store_true",
+                    help="CPU per request and p99 under load, look vs health, on SQLite "
+                    "(FULL and NORMAL) and PostgreSQL side by side")
+    ap.add_argument("--clients", type=int, default=50, help="concurrent clients (--compare)")
+    ap.add_argument("--each", type=int, default=6,
+                    help="requests of each kind per concurrent client (--compare)")
+    ap.add_argument("--postgres-url", default="postgresql://postgres@127.0.0.1:5432/test",
+                    help="PostgreSQL server for --compare (a schema is created and dropped); "
+                    "empty: SQLite only")
     args = ap.parse_args()
+    if args.compare:
+        return compare(args)
     requests = max(10, min(args.requests, 5000))
     per_exp = max(1, min(args.looks_per_experiment, 40))
 

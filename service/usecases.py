@@ -1,10 +1,13 @@
-"""What the service does, one function per action, each in ONE transaction it opens.
+"""What the service does, one function per action, each in the transactions it opens
+(a look and an amendment read first, outside the write lock, then write).
 
-The write path of a look: open the write transaction (the experiment locked), check
-the idempotency key, read the stored looks' totals and the current plan version,
-read the plan once, ask the library for the analysis, store the new look's own
-result once, update the experiment, render the answer, remember the key, commit.
-No callbacks go into storage; storage knows no statistics.
+The write path of a look: in a read transaction, read the experiment, its stored
+looks and its plan in force (the parsed plan comes from a process-local cache of
+immutable plan versions) and ask the library for the analysis, outside any write
+lock; then open the write transaction (the experiment locked), check the idempotency
+key, check that the experiment row is unchanged since the read (else analyse again),
+store the new look's own result once, update the experiment, render the answer,
+remember the key, commit. No callbacks go into storage; storage knows no statistics.
 
 Requests arrive here as plain dataclasses (the HTTP layer's schemas are above this
 module and are not imported by it).
@@ -16,6 +19,7 @@ import json
 import secrets
 import threading
 import time
+from collections import OrderedDict
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -337,48 +341,193 @@ def create_experiment(db: Database, principal: Principal, req: CreateRequest,
         return _after_race(db, principal.team_id, idem, exc)
 
 
+# ----------------------------------------------------------------------- looks
+
+_SNAPSHOT_TRIES = 3  # snapshots analysed; the last, if stale, is redone under the lock
+_PLAN_CACHE_SIZE = 256
+
+
+class PlanCache:
+    """Plans read from stored versions, most recently used first, at most ``size``.
+
+    Keyed by (database URL, experiment id, plan version): a stored version is never
+    changed (plan versions are append-only, their rows refuse UPDATE and DELETE), so
+    an entry never goes stale, and a look neither reads nor parses the plan document
+    again. Process-local and thread-safe (one lock around the dictionary; the plans
+    themselves are immutable)."""
+
+    def __init__(self, size: int = _PLAN_CACHE_SIZE) -> None:
+        self.size = size
+        self._items: OrderedDict[tuple[str, str, int], library.PlanInfo] = OrderedDict()
+        self._lock = threading.Lock()
+        self.hits = 0
+        self.misses = 0
+
+    def get(self, key: tuple[str, str, int]) -> library.PlanInfo | None:
+        with self._lock:
+            info = self._items.get(key)
+            if info is None:
+                self.misses += 1
+                return None
+            self._items.move_to_end(key)
+            self.hits += 1
+            return info
+
+    def put(self, key: tuple[str, str, int], info: library.PlanInfo) -> None:
+        with self._lock:
+            self._items[key] = info
+            self._items.move_to_end(key)
+            while len(self._items) > self.size:
+                self._items.popitem(last=False)
+
+    def clear(self) -> None:
+        with self._lock:
+            self._items.clear()
+            self.hits = self.misses = 0
+
+
+PLANS = PlanCache()
+
+
+def _stored_plan(db: Database, conn: Connection, exp: Experiment) -> library.PlanInfo:
+    """The plan version in force, read (and parsed) once per process."""
+    key = (db.url, exp.id, exp.plan_version)
+    info = PLANS.get(key)
+    if info is None:
+        pv = repo.plan_version(conn, exp.id, exp.plan_version)
+        info = library.read_plan(pv.document, ["plan"], trust=True)
+        PLANS.put(key, info)
+    return info
+
+
+@dataclass
+class _Snapshot:
+    """What a look is analysed on: the experiment row as read, its stored looks and
+    its plan in force; then the outcome (or the refusal) of the analysis."""
+
+    exp: Experiment
+    totals: list[dict[str, Any]]
+    results: list[dict[str, Any] | None]
+    plan: library.PlanInfo | None = None
+    roles: dict[str, dict[str, Any]] | None = None
+    outcome: library.LookOutcome | None = None
+    error: Exception | None = None
+
+
+def _read_state(db: Database, conn: Connection, exp: Experiment) -> _Snapshot:
+    """The stored looks and the plan in force of ``exp``, read on ``conn``."""
+    totals, results = repo.look_history(conn, exp.id)
+    if len(totals) != exp.look_count:  # pragma: no cover - one transaction's snapshot
+        raise RuntimeError("look count out of step with stored looks")
+    snap = _Snapshot(exp, totals, results)
+    try:
+        snap.plan = _stored_plan(db, conn, exp)
+    except Unprocessable as exc:  # a stored plan the library cannot read
+        snap.error = exc
+    return snap
+
+
+def _analyse(snap: _Snapshot, req: LookRequest) -> _Snapshot:
+    """The new look analysed on ``snap``. A refusal (bad totals, a plan or an analysis
+    that fails) is kept, not raised: it belongs to this snapshot and is raised only
+    once the snapshot is known to hold."""
+    if snap.error is not None:
+        return snap
+    assert snap.plan is not None
+    try:
+        snap.roles = library.to_roles(snap.exp, req.totals)
+        snap.outcome = library.analyze_look(snap.exp, snap.plan, snap.totals, snap.roles,
+                                            req.final, req.daily_traffic)
+    except Unprocessable as exc:  # InvalidTotals, InvalidPlan, AnalysisFailed, ...
+        snap.error = exc
+    return snap
+
+
+def _snapshot(db: Database, principal: Principal, exp_id: str, req: LookRequest
+              ) -> _Snapshot | None:
+    """The look analysed on a read snapshot, outside the write lock and after the read
+    transaction ended (it holds no connection while it computes); None when the
+    experiment is closed (the write path answers that, after the idempotency check)."""
+    with db.read() as conn:
+        exp = repo.get_experiment(conn, principal.team_id, exp_id)
+        if exp is None:
+            raise _not_found(exp_id)
+        if exp.state in ("stopped", "completed"):
+            return None
+        snap = _read_state(db, conn, exp)
+    return _analyse(snap, req)
+
+
 def append_look(db: Database, principal: Principal, exp_id: str, req: LookRequest,
                 idem: Idem | None = None) -> Answer:
+    """Record a look.
+
+    The analysis (the dear part) runs outside the write lock, on a read snapshot:
+    the experiment row, its stored looks and its plan in force. The write then locks
+    the experiment, checks the idempotency key, and stores the look only if the
+    experiment row is still the one the snapshot read (no look and no amendment came
+    in meanwhile: looks and plan versions are append-only, and every look and every
+    amendment rewrites the row, so an unchanged row means unchanged looks and plan).
+    Otherwise it analyses again on a new snapshot; when the last of
+    ``_SNAPSHOT_TRIES`` snapshots is stale too, it analyses under the lock, as a last
+    resort, so a look to a busy experiment still gets through. A refusal found on a
+    snapshot is raised only under the lock once the snapshot is known to hold, so
+    the order of answers (404, idempotency replay or 409, closed 409, then 422) is
+    that of an analysis under the lock.
+    """
     prior = _replay_before(db, principal.team_id, idem)
     if prior is not None:
         return prior
     try:
-        with db.write() as conn:
-            exp = repo.lock_experiment(conn, principal.team_id, exp_id)
-            if exp is None:
-                raise _not_found(exp_id)
-            prior = _claim(db, conn, principal.team_id, idem)
-            if prior is not None:
-                return prior
-            if exp.state in ("stopped", "completed"):
-                raise _closed(exp, "looks")
-            roles = library.to_roles(exp, req.totals)
-            totals, results = repo.look_history(conn, exp_id)
-            if len(totals) != exp.look_count:  # pragma: no cover - guarded by the lock
-                raise RuntimeError("look count out of step with stored looks")
-            pv = repo.plan_version(conn, exp_id, exp.plan_version)
-            plan = library.read_plan(pv.document, ["plan"], trust=True)
-            outcome = library.analyze_look(exp, plan, totals, roles, req.final,
-                                           req.daily_traffic)
-            ts = repo.now()
-            number = exp.look_count + 1
-            lk = Look(
-                number=number, plan_version=pv.version, totals=roles, final=req.final,
-                decision=outcome.decision, state=outcome.state,
-                result=_canonical(outcome.result), summary=_canonical(outcome.summary),
-                recorded_at=ts, recorded_by=principal.key_id,
-            )
-            repo.insert_look(conn, exp_id, lk)
-            repo.update_after_look(conn, exp_id, number, outcome.state, outcome.decision, ts)
-            exp_after = replace(exp, look_count=number, state=outcome.state,
-                                decision=outcome.decision, updated_at=ts)
-            body = views.look(exp_after, lk, [*results, lk.result], outcome.state)
-            if idem is not None:
-                repo.remember_key(conn, principal.team_id, idem.key, idem.request_hash, 201,
-                                  None, experiment_id=exp_id, look_number=number)
-        return Answer(201, body)
+        for attempt in range(_SNAPSHOT_TRIES):
+            snap = _snapshot(db, principal, exp_id, req)
+            with db.write() as conn:
+                exp = repo.lock_experiment(conn, principal.team_id, exp_id)
+                if exp is None:
+                    raise _not_found(exp_id)
+                prior = _claim(db, conn, principal.team_id, idem)
+                if prior is not None:
+                    return prior
+                if exp.state in ("stopped", "completed"):
+                    raise _closed(exp, "looks")
+                if snap is None or snap.exp != exp:
+                    if attempt < _SNAPSHOT_TRIES - 1:
+                        continue  # a look or an amendment came in: analyse again
+                    snap = _analyse(_read_state(db, conn, exp), req)  # under the lock
+                if snap.error is not None:
+                    raise snap.error
+                assert snap.outcome is not None and snap.roles is not None
+                body = _store_look(conn, principal, exp, snap.roles, snap.outcome,
+                                   snap.results, req.final, idem)
+            return Answer(201, body)
     except IntegrityError as exc:
         return _after_race(db, principal.team_id, idem, exc)
+    raise AssertionError("unreachable: the last attempt analyses under the lock")
+
+
+def _store_look(conn: Connection, principal: Principal, exp: Experiment,
+                roles: dict[str, dict[str, Any]], outcome: library.LookOutcome,
+                results: list[dict[str, Any] | None], final: bool, idem: Idem | None
+                ) -> dict[str, Any]:
+    """Store the look (its own result once), update the experiment, remember the key;
+    the answer's body."""
+    ts = repo.now()
+    number = exp.look_count + 1
+    lk = Look(
+        number=number, plan_version=exp.plan_version, totals=roles, final=final,
+        decision=outcome.decision, state=outcome.state,
+        result=_canonical(outcome.result), summary=_canonical(outcome.summary),
+        recorded_at=ts, recorded_by=principal.key_id,
+    )
+    repo.insert_look(conn, exp.id, lk)
+    repo.update_after_look(conn, exp.id, number, outcome.state, outcome.decision, ts)
+    exp_after = replace(exp, look_count=number, state=outcome.state,
+                        decision=outcome.decision, updated_at=ts)
+    body = views.look(exp_after, lk, [*results, lk.result], outcome.state)
+    if idem is not None:
+        repo.remember_key(conn, principal.team_id, idem.key, idem.request_hash, 201,
+                          None, experiment_id=exp.id, look_number=number)
+    return body
 
 
 def _canonical(value: Any) -> Any:

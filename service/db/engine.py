@@ -302,6 +302,12 @@ class Database:
         self.last_write_failure: tuple[float, str] | None = None
         self._probed_at = -1e9
         self._probe_reason: str | None = None
+        # SQLite: this process's writers queue on a lock of their own before BEGIN
+        # IMMEDIATE, so the database's lock only arbitrates between processes. A writer
+        # waiting on the database's lock is woken by SQLite's busy handler, which polls
+        # with sleeps growing to 100 ms: under load, writers of one process queueing
+        # there wait far longer than the writes themselves take.
+        self._writers = threading.Lock() if self.dialect == "sqlite" else None
         self.schema_version = self._migrate() if migrate else 0
 
     def close(self) -> None:
@@ -386,12 +392,30 @@ class Database:
                 yield conn
 
     @contextmanager
+    def _writer_turn(self, wait_s: float | None = None, writing: bool = True
+                     ) -> Iterator[None]:
+        """SQLite: wait (at most ``wait_s``, by default the busy timeout) for this
+        process's other writers."""
+        if self._writers is None:
+            yield
+            return
+        wait = self.settings.busy_timeout_s if wait_s is None else wait_s
+        if not self._writers.acquire(timeout=wait):
+            raise self._unavailable("busy", writing, "work")
+        try:
+            yield
+        finally:
+            self._writers.release()
+
+    @contextmanager
     def write(self) -> Iterator[Connection]:
         """One write transaction; committed when the block ends without an error.
 
-        SQLite: ``BEGIN IMMEDIATE`` (the write lock from the first statement).
+        SQLite: ``BEGIN IMMEDIATE`` (the write lock from the first statement), after
+        this process's other writers (:meth:`_writer_turn`).
         """
-        with self._guard(writing=True) as st, self._connect(st, seqtest_write=True) as conn:
+        with self._writer_turn(), self._guard(writing=True) as st, \
+                self._connect(st, seqtest_write=True) as conn:
             trans = conn.begin()
             try:
                 yield conn
@@ -439,7 +463,11 @@ class Database:
 
     def _probe_write(self) -> str | None:
         try:
-            with self._guard(writing=False) as st, \
+            # in this process's queue of writers, like any write (else, on SQLite, the
+            # probe would poll for the database's lock between writers that hand it
+            # to each other, and report a busy database under a steady load of writes)
+            with self._writer_turn(1.0, writing=False), \
+                    self._guard(writing=False) as st, \
                     self._connect(st, seqtest_write=True) as conn:
                 raw: Any = conn.connection.dbapi_connection
                 if self.dialect == "sqlite":  # outside any transaction, on the driver
