@@ -390,6 +390,38 @@ class LookOutcome:
     summary: dict[str, Any]
 
 
+def _library_analysis(exp: Experiment, compute: Callable[[], Any],
+                      totals_error: Callable[[LookDataError], Exception]
+                      ) -> tuple[dict[str, Any], str]:
+    """Run the library's analysis of a look and return its JSON and decision; every
+    refusal becomes the service's error (nothing is stored): bad totals through
+    ``totals_error``, other refusals a 422, a failed computation an AnalysisFailed."""
+    try:
+        analysis = json_safe(compute().to_dict())
+    except LookDataError as exc:
+        raise totals_error(exc) from exc
+    except (ValueError, TypeError) as exc:
+        message = _text(exc)
+        raise Unprocessable(f"The look cannot be analysed: {message}",
+                            details=[{"location": _named_location(message, ["body"]),
+                                      "message": message}]) from exc
+    except Exception as exc:
+        # The library could not compute on these totals under this plan (numbers near
+        # the float range, a plan it accepted but cannot use). Nothing is stored.
+        log.warning("analysis failed on experiment %s: %s", exp.id, type(exc).__name__,
+                    exc_info=True)
+        raise AnalysisFailed(
+            "The look cannot be analysed: the computation failed on these totals under "
+            f"this plan ({type(exc).__name__}: {_text(exc)}). Nothing was stored. Check "
+            "that the totals are cumulative and in a plausible range."
+        ) from exc
+    decision = analysis.get("decision")
+    if decision not in DECISIONS:
+        raise AnalysisFailed(f"The look cannot be analysed: the library returned the unknown "
+                             f"decision {decision!r}. Nothing was stored.")
+    return analysis, str(decision)
+
+
 def analyze_look(
     exp: Experiment,
     plan: PlanInfo,
@@ -410,31 +442,10 @@ def analyze_look(
         options["fraction_basis"] = exp.fraction_basis
     if daily_traffic is not None:
         options["daily_traffic"] = daily_traffic
-    try:
-        result = seqtest.analyze(plan.plan, looks, metric=exp.metric_kind,
-                                 allocation=exp.allocation, final=final, **options)
-        analysis = json_safe(result.to_dict())
-    except LookDataError as exc:
-        raise _totals_error(exc, exp, len(looks)) from exc
-    except (ValueError, TypeError) as exc:
-        message = _text(exc)
-        raise Unprocessable(f"The look cannot be analysed: {message}",
-                            details=[{"location": _named_location(message, ["body"]),
-                                      "message": message}]) from exc
-    except Exception as exc:
-        # The library could not compute on these totals under this plan (numbers near
-        # the float range, a plan it accepted but cannot use). Nothing is stored.
-        log.warning("analysis failed on experiment %s: %s", exp.id, type(exc).__name__,
-                    exc_info=True)
-        raise AnalysisFailed(
-            "The look cannot be analysed: the computation failed on these totals under "
-            f"this plan ({type(exc).__name__}: {_text(exc)}). Nothing was stored. Check "
-            "that the totals are cumulative and in a plausible range."
-        ) from exc
-    decision = analysis.get("decision")
-    if decision not in DECISIONS:
-        raise AnalysisFailed(f"The look cannot be analysed: the library returned the unknown "
-                             f"decision {decision!r}. Nothing was stored.")
+    analysis, decision = _library_analysis(
+        exp, lambda: seqtest.analyze(plan.plan, looks, metric=exp.metric_kind,
+                                     allocation=exp.allocation, final=final, **options),
+        lambda exc: _totals_error(exc, exp, len(looks)))
     rows = analysis.get("looks")
     number = len(looks)
     row = rows[number - 1] if isinstance(rows, list) and len(rows) >= number else None
@@ -872,28 +883,9 @@ def _analyze_experiment_look(exp: Experiment, plan: PlanInfo, prior: list[dict[s
                       "message": "not for experiment plans"}])
     looks = [*prior, look]
     number = len(looks)
-    try:
-        result = seqtest.analyze(plan.plan, looks, final=final)
-        analysis = json_safe(result.to_dict())
-    except LookDataError as exc:
-        raise _experiment_totals_error(exc, exp, look, number) from exc
-    except (ValueError, TypeError) as exc:
-        message = _text(exc)
-        raise Unprocessable(f"The look cannot be analysed: {message}",
-                            details=[{"location": _named_location(message, ["body"]),
-                                      "message": message}]) from exc
-    except Exception as exc:
-        log.warning("analysis failed on experiment %s: %s", exp.id, type(exc).__name__,
-                    exc_info=True)
-        raise AnalysisFailed(
-            "The look cannot be analysed: the computation failed on these totals under "
-            f"this plan ({type(exc).__name__}: {_text(exc)}). Nothing was stored. Check "
-            "that the totals are cumulative and in a plausible range."
-        ) from exc
-    decision = analysis.get("decision")
-    if decision not in DECISIONS:
-        raise AnalysisFailed(f"The look cannot be analysed: the library returned the unknown "
-                             f"decision {decision!r}. Nothing was stored.")
+    analysis, decision = _library_analysis(
+        exp, lambda: seqtest.analyze(plan.plan, looks, final=final),
+        lambda exc: _experiment_totals_error(exc, exp, look, number))
     rows: dict[str, Any] = {}
     comparisons = []
     for c in analysis.get("comparisons") or []:
