@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import itertools
 import threading
+import time
 from pathlib import Path
 
 import httpx
@@ -56,6 +57,12 @@ def test_sixteen_writers_across_four_processes(postgres_url: str, tmp_path: Path
         assert not failures, failures
         for srv in servers:  # each instance runs two worker processes
             assert srv.log_file is not None
+            # an instance answers as soon as one worker is up; on a busy machine the
+            # second may log its start a few seconds later
+            deadline = time.monotonic() + 120
+            while (srv.log_file.read_text().count("Started server process") < 2
+                   and time.monotonic() < deadline):
+                time.sleep(0.2)
             assert srv.log_file.read_text().count("Started server process") == 2
         db = open_db(postgres_url)
         try:
