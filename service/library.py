@@ -36,7 +36,7 @@ from seqtest import LookDataError
 from seqtest.core.jsonable import plain
 from seqtest.core.vocabulary import ARMS, EXPERIMENT_KIND, METRIC_KINDS, PLAN_KINDS
 from seqtest.monitoring.rules import FRACTION_BASES
-from seqtest.planning.design import MAX_LOOKS
+from seqtest.planning.design import MAX_LOOKS, MIN_GRID_R
 from service.db.records import Experiment
 from service.errors import AnalysisFailed, InvalidPlan, InvalidTotals, Unprocessable
 
@@ -117,6 +117,17 @@ def _bad_plan(location: list[Any], message: str) -> InvalidPlan:
                        details=[{"location": location, "message": message}])
 
 
+def _check_grid_r(inputs: dict[str, Any], location: list[Any]) -> None:
+    """A plan document's integration grid: the library's smallest, up to the service's
+    cap (a finer grid makes every look dearer)."""
+    if "grid_r" in inputs:
+        r = inputs["grid_r"]
+        if isinstance(r, bool) or not isinstance(r, int) or not MIN_GRID_R <= r <= MAX_GRID_R:
+            raise _bad_plan([*location, "inputs", "grid_r"],
+                            f"got {r!r}; allowed is a whole number from {MIN_GRID_R} to "
+                            f"{MAX_GRID_R}")
+
+
 def check_document_shape(document: Any, location: list[Any]) -> None:
     """What the service itself relies on in a plan document (see the module docstring)."""
     if not isinstance(document, dict):
@@ -143,11 +154,7 @@ def check_document_shape(document: Any, location: list[Any]) -> None:
             metric.get("kind") not in METRIC_KINDS:
         raise _bad_plan([*location, "inputs", "metric", "kind"],
                         f"got {metric.get('kind')!r}; allowed are {', '.join(METRIC_KINDS)}")
-    if "grid_r" in inputs:
-        r = inputs["grid_r"]
-        if isinstance(r, bool) or not isinstance(r, int) or not 4 <= r <= MAX_GRID_R:
-            raise _bad_plan([*location, "inputs", "grid_r"],
-                            f"got {r!r}; allowed is a whole number from 4 to {MAX_GRID_R}")
+    _check_grid_r(inputs, location)
     for name in ("info_fractions", "information_fractions"):
         fr = inputs.get(name)
         if isinstance(fr, list) and not 1 <= len(fr) <= MAX_LOOKS:
@@ -691,11 +698,7 @@ def _check_experiment_shape(inputs: dict[str, Any], location: list[Any]) -> None
     if isinstance(metrics, list) and len(metrics) > MAX_METRICS:
         raise _bad_plan([*location, "inputs", "metrics"],
                         f"got {len(metrics)} metrics; allowed is 1 to {MAX_METRICS}")
-    if "grid_r" in inputs:
-        r = inputs["grid_r"]
-        if isinstance(r, bool) or not isinstance(r, int) or not 8 <= r <= MAX_GRID_R:
-            raise _bad_plan([*location, "inputs", "grid_r"],
-                            f"got {r!r}; allowed is a whole number from 8 to {MAX_GRID_R}")
+    _check_grid_r(inputs, location)
 
 
 def _check_experiment_inputs(inputs: dict[str, Any], location: list[Any]) -> None:

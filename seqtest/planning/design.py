@@ -118,13 +118,14 @@ def _check_fractions(looks: Any, fractions: Any,
     return t
 
 
+MIN_GRID_R = 8
 MAX_GRID_R = 64
 
 
 def _check_r(r: Any) -> int:
-    return checks.whole("r", r, lo=8, hi=MAX_GRID_R,
-                        allowed=f"a whole number from 8 to {MAX_GRID_R} (grid size of the "
-                                "numerical integration)")
+    return checks.whole("r", r, lo=MIN_GRID_R, hi=MAX_GRID_R,
+                        allowed=f"a whole number from {MIN_GRID_R} to {MAX_GRID_R} (grid size "
+                                "of the numerical integration)")
 
 
 # -- the plan ----------------------------------------------------------------------

@@ -203,6 +203,8 @@ HOSTILE_PLANS: list[tuple[str, Any, str]] = [
     ("grid_r_infinity", json.dumps(_GS).replace('"grid_r": 24', '"grid_r": Infinity'),
      "grid_r"),
     ("grid_r_200", _with(_GS, "inputs.grid_r", 200), "grid_r"),
+    # below the library's smallest grid: the same bounds for every kind of plan
+    ("grid_r_5", _with(_GS, "inputs.grid_r", 5), "grid_r"),
     ("alpha_300_digits", json.dumps(_GS).replace('"alpha": 0.05', '"alpha": 1' + "0" * 300),
      "alpha"),
     ("efficacy_z_10e400", json.dumps(_GS).replace('"efficacy_z": [',
