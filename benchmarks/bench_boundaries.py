@@ -26,10 +26,10 @@ from __future__ import annotations
 
 import statistics
 import sys
-import time
 from collections.abc import Callable
 
 import numpy as np
+from _timing import samples
 from scipy import optimize, stats
 
 import seqtest
@@ -45,13 +45,7 @@ def timed(fn: Callable[[], object], repeat: int) -> tuple[float, float]:
     warm-up. CPU time is what the goals are judged on: the machines are shared, and
     a busy neighbour inflates wall time but not the CPU time of a single-threaded
     computation."""
-    fn()
-    wall, cpu = [], []
-    for _ in range(repeat):
-        w0, c0 = time.perf_counter(), time.process_time()
-        fn()
-        cpu.append(time.process_time() - c0)
-        wall.append(time.perf_counter() - w0)
+    cpu, wall = samples(fn, repeat, warm_up=True)
     return statistics.median(wall), statistics.median(cpu)
 
 

@@ -17,10 +17,10 @@ from __future__ import annotations
 
 import argparse
 import statistics
-import time
 from collections.abc import Callable
 
 import numpy as np
+from _timing import samples
 
 from seqtest.monitoring.metrics import effect, validate_looks
 
@@ -56,12 +56,7 @@ def looks_of(kind: str, k: int) -> list[dict]:
 
 
 def measure(fn: Callable[[], object], repeat: int) -> tuple[float, float]:
-    cpu, wall = [], []
-    for _ in range(repeat):
-        c0, w0 = time.process_time(), time.perf_counter()
-        fn()
-        cpu.append(time.process_time() - c0)
-        wall.append(time.perf_counter() - w0)
+    cpu, wall = samples(fn, repeat)
     return statistics.median(cpu), statistics.median(wall)
 
 

@@ -37,6 +37,7 @@ import time  # noqa: E402
 from collections.abc import Callable  # noqa: E402
 
 import numpy as np  # noqa: E402
+from _timing import samples  # noqa: E402
 from scipy import optimize, stats  # noqa: E402
 
 from seqtest import spending  # noqa: E402
@@ -50,13 +51,7 @@ def OBF(t: np.ndarray, alpha: float) -> np.ndarray:
 
 def timed(fn: Callable[[], object], repeat: int) -> tuple[float, float]:
     """Median wall and CPU time (seconds) over ``repeat`` calls after a warm-up."""
-    fn()
-    wall, cpu = [], []
-    for _ in range(repeat):
-        w0, c0 = time.perf_counter(), time.process_time()
-        fn()
-        cpu.append(time.process_time() - c0)
-        wall.append(time.perf_counter() - w0)
+    cpu, wall = samples(fn, repeat, warm_up=True)
     return statistics.median(wall), statistics.median(cpu)
 
 

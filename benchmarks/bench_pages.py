@@ -29,6 +29,8 @@ import time
 from collections.abc import Callable
 from pathlib import Path
 
+from _timing import samples
+
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
@@ -64,13 +66,7 @@ def build(client: TestClient, token: str, looks: int) -> str:
 
 
 def measure(fn: Callable[[], object], repeat: int) -> tuple[list[float], list[float]]:
-    cpu, wall = [], []
-    for _ in range(repeat):
-        c0, w0 = time.process_time(), time.perf_counter()
-        fn()
-        cpu.append(time.process_time() - c0)
-        wall.append(time.perf_counter() - w0)
-    return cpu, wall
+    return samples(fn, repeat)
 
 
 def cold_plan(document: dict) -> object:

@@ -15,8 +15,9 @@ from __future__ import annotations
 import argparse
 import math
 import statistics
-import time
 from collections.abc import Callable
+
+from _timing import samples
 
 import seqtest
 from seqtest.reporting import effect_svg, report_html, summarize, z_path_svg
@@ -33,12 +34,7 @@ def looks_of(k: int) -> list[dict]:
 
 
 def measure(fn: Callable[[], object], repeat: int) -> tuple[float, float]:
-    cpu, wall = [], []
-    for _ in range(repeat):
-        c0, w0 = time.process_time(), time.perf_counter()
-        fn()
-        cpu.append(time.process_time() - c0)
-        wall.append(time.perf_counter() - w0)
+    cpu, wall = samples(fn, repeat)
     return statistics.median(cpu), statistics.median(wall)
 
 
