@@ -22,7 +22,8 @@ from __future__ import annotations
 
 import logging
 import re
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any
 
@@ -227,11 +228,25 @@ def boundary_table(plan: Any, location: list[Any]) -> list[dict[str, Any]] | Non
     return rows
 
 
+@contextmanager
+def _usable(location: list[Any]) -> Iterator[None]:
+    """Reading a plan the library accepted: a failure of the library on it is a 422
+    naming the plan (logged with its trace), never a 500."""
+    try:
+        yield
+    except InvalidPlan:
+        raise
+    except Exception as exc:  # the library failed on a plan it accepted
+        log.warning("plan not usable: %s", type(exc).__name__, exc_info=True)
+        raise _bad_plan(location, f"the plan cannot be used ({type(exc).__name__}: "
+                        f"{_text(exc)})") from exc
+
+
 def _plan_info(plan: Any, location: list[Any], design_inputs: dict[str, Any] | None = None
                ) -> PlanInfo:
     if isinstance(plan, seqtest.ExperimentPlan):
         return _experiment_info(plan, location, design_inputs)
-    try:
+    with _usable(location):
         document = json_safe(plan.to_dict())
         metric = getattr(plan, "metric", None)
         if metric is not None and not isinstance(metric, dict):
@@ -239,12 +254,6 @@ def _plan_info(plan: Any, location: list[Any], design_inputs: dict[str, Any] | N
                             f"got {type(metric).__name__}; allowed is an object or null")
         kind = metric.get("kind") if isinstance(metric, dict) else None
         table = boundary_table(plan, location)
-    except InvalidPlan:
-        raise
-    except Exception as exc:  # the library failed on a plan it accepted
-        log.warning("plan not usable: %s", type(exc).__name__, exc_info=True)
-        raise _bad_plan(location, f"the plan cannot be used ({type(exc).__name__}: "
-                        f"{_text(exc)})") from exc
     doc_kind = str(document.get("kind", ""))
     if design_inputs is None:
         design_inputs = inputs_of_document(document)
@@ -769,16 +778,10 @@ def _experiment_info(plan: Any, location: list[Any], design_inputs: dict[str, An
                             f"got {m.name!r}; a metric's name must be 1 to 64 letters, "
                             "digits, '_', '.', '-', starting with a letter or digit (looks "
                             "are keyed by it)")
-    try:
+    with _usable(location):
         document = json_safe(plan.to_dict())
         table = experiment_boundary_table(plan, location)
         layout = _experiment_layout(plan)
-    except InvalidPlan:
-        raise
-    except Exception as exc:  # the library failed on a plan it accepted
-        log.warning("plan not usable: %s", type(exc).__name__, exc_info=True)
-        raise _bad_plan(location, f"the plan cannot be used ({type(exc).__name__}: "
-                        f"{_text(exc)})") from exc
     if design_inputs is None:
         design_inputs = inputs_of_document(document)
     return PlanInfo(plan=plan, kind=EXPERIMENT_KIND, document=document,
