@@ -22,6 +22,8 @@ References
 from __future__ import annotations
 
 import math
+import threading
+from collections import OrderedDict
 from typing import Any
 
 import numpy as np
@@ -42,7 +44,9 @@ from seqtest.core.roots import NoRoot, solve
 from seqtest.core.spending import SpendingFunction
 
 __all__ = [
+    "SOLVED",
     "Boundary",
+    "SolvedLooks",
     "binding_bounds",
     "binding_with_power",
     "constant_bounds",
@@ -54,6 +58,60 @@ __all__ = [
 
 #: How a plan's efficacy boundary is made: error spending or a classical shape.
 Boundary = SpendingFunction | ClassicalBoundary
+
+
+class SolvedLooks:
+    """Boundaries already solved look by look, and the recursion's states after them,
+    kept so that a later computation on the same first looks does not solve them again.
+
+    A look's boundary depends only on what came before it and on the look itself
+    (the information of each look, the error spent at each, the binding futility
+    boundaries, the sides, the grid; for a futility boundary also the drift and the
+    efficacy boundaries), so a key made of exactly those numbers, look by look, names
+    one result. Monitoring asks for the boundaries of every look again at each new
+    look; with the memo only the new looks are solved, and the answers are the same
+    numbers, bit for bit, as without it (the same computation, done once). The state
+    after a look also depends on the information of the look after it (it shapes the
+    next grid), which its key includes.
+
+    At most ``size`` entries, the least recently used dropped first; thread-safe (one
+    lock around the dictionary; states are not changed once made, apart from caches
+    of their own that any thread may fill with the same values).
+    """
+
+    def __init__(self, size: int = 4096) -> None:
+        self.size = size
+        self._items: OrderedDict[tuple, Any] = OrderedDict()
+        self._lock = threading.Lock()
+        self.hits = 0
+        self.misses = 0
+
+    def get(self, key: tuple) -> Any:
+        with self._lock:
+            value = self._items.get(key)
+            if value is None:
+                self.misses += 1
+                return None
+            self._items.move_to_end(key)
+            self.hits += 1
+            return value
+
+    def put(self, key: tuple, value: Any) -> None:
+        with self._lock:
+            self._items[key] = value
+            self._items.move_to_end(key)
+            while len(self._items) > self.size:
+                self._items.popitem(last=False)
+
+    def clear(self) -> None:
+        with self._lock:
+            self._items.clear()
+            self.hits = self.misses = 0
+
+
+#: The memo monitoring passes to the solvers (``reuse=True``); simulations, whose looks
+#: rarely repeat, do not use it.
+SOLVED = SolvedLooks()
 
 
 def _look_intervals(sides: int, a: float, b: float | None) -> list[tuple[float, float]]:
@@ -154,6 +212,7 @@ def spending_bounds(
     sides: int = 1,
     futility: ArrayLike | None = None,
     r: int = DEFAULT_R,
+    reuse: bool = False,
 ) -> np.ndarray:
     """Efficacy boundaries that spend a given cumulative error at each look.
 
@@ -174,6 +233,9 @@ def spending_bounds(
         efficacy boundaries ignore futility).
     r : int
         Grid size parameter.
+    reuse : bool
+        Take the looks already solved from :data:`SOLVED` (:class:`SolvedLooks`) and
+        keep the new ones there: the same numbers, computed once.
 
     Returns
     -------
@@ -205,14 +267,38 @@ def spending_bounds(
     inc = np.diff(np.concatenate(([0.0], cum))) * sides
     out = np.empty(k)
     state = _State.origin(0.0)
+    memo = SOLVED if reuse else None
+    key: tuple = ("efficacy", sides, r)
     for j in range(k):
         floor = 0.0 if sides == 2 else -BIG
         if fut is not None:
             floor = max(floor, fut[j])
-        out[j] = _solve_upper(state, inf[j], inc[j], sides, floor)
+        key = (*key, float(inf[j]), float(inc[j]), -math.inf if fut is None else float(fut[j]))
+        hit = None if memo is None else memo.get(key)
+        if hit is None:
+            out[j] = _solve_upper(state, inf[j], inc[j], sides, floor)
+            if memo is not None:
+                memo.put(key, float(out[j]))
+        else:
+            out[j] = hit
         if j + 1 < k:
-            state = state.advance(_look_intervals(sides, out[j], None if fut is None
-                                                  else fut[j]), inf[j], r, inf[j + 1])
+            iv = _look_intervals(sides, float(out[j]), None if fut is None else float(fut[j]))
+            state = _next_state(memo, (*key, float(inf[j + 1])), state, iv, float(inf[j]),
+                                r, float(inf[j + 1]))
+    return out
+
+
+def _next_state(memo: SolvedLooks | None, key: tuple, state: _State,
+                intervals: list[tuple[float, float]], info: float, r: int, info_after: float
+                ) -> _State:
+    """``state.advance(intervals, info, r, info_after)``, taken from ``memo`` when it
+    holds ``key`` (which must name everything the advance depends on)."""
+    hit = None if memo is None else memo.get(key)
+    if hit is None:
+        hit = state.advance(intervals, info, r, info_after)
+        if memo is not None:
+            memo.put(key, hit)
+    out: _State = hit
     return out
 
 
@@ -313,41 +399,58 @@ def efficacy_bounds(t: np.ndarray, alpha: float, sides: int, efficacy: Boundary,
 
 
 def futility_bounds(t: np.ndarray, drift: float, a: np.ndarray, sides: int, beta: float,
-                    futility: SpendingFunction, r: int = DEFAULT_R, final: bool = True
-                    ) -> np.ndarray:
+                    futility: SpendingFunction, r: int = DEFAULT_R, final: bool = True,
+                    reuse: bool = False) -> np.ndarray:
     """Beta-spending futility boundary under the design alternative, given the efficacy
     boundary ``a``.
 
     ``t`` are information fractions (values above 1 spend all of beta); with ``final``
-    the last look's futility boundary is the efficacy boundary (they meet)."""
-    return futility_with_power(t, drift, a, sides, beta, futility, r, final)[0]
+    the last look's futility boundary is the efficacy boundary (they meet). ``reuse``:
+    as in :func:`spending_bounds`."""
+    return futility_with_power(t, drift, a, sides, beta, futility, r, final,
+                               reuse=reuse)[0]
 
 
 def futility_with_power(t: np.ndarray, drift: float, a: np.ndarray, sides: int,
                         beta: float, futility: SpendingFunction, r: int = DEFAULT_R,
-                        final: bool = True, start: np.ndarray | None = None
-                        ) -> tuple[np.ndarray, float]:
+                        final: bool = True, start: np.ndarray | None = None,
+                        reuse: bool = False) -> tuple[np.ndarray, float]:
     """:func:`futility_bounds` and, from the same recursion under ``drift``, the
     probability of crossing the upper efficacy boundary (the power at ``drift``):
     equal to :meth:`Region.crossing`'s upper sum, without a second pass. ``start``:
     the boundary at a nearby drift, where each look's search starts (a drift search
-    passes its last one; the result is the same root, found in fewer steps)."""
+    passes its last one; the result is the same root, found in fewer steps).
+    ``reuse`` (without ``start``, whose searches end within the tolerance of the root
+    but not on the same bits): the looks already solved from :data:`SOLVED`."""
     k = t.size
     cum = futility(np.minimum(t, 1.0), beta)
     inc = np.diff(np.concatenate(([0.0], cum)))
     b = np.empty(k)
     upper = 0.0
     state = _State.origin(drift)
+    memo = SOLVED if reuse and start is None else None
+    key: tuple = ("futility", float(drift), sides, r)
     for j in range(k):
-        upper += state.prob_above(float(a[j]), t[j])
+        key = (*key, float(t[j]), float(a[j]), float(inc[j]))
         if j == k - 1 and final:
+            upper += state.prob_above(float(a[j]), t[j])
             b[j] = a[j]
             break
-        b[j] = _solve_futility(state, t[j], inc[j], a[j], sides,
-                               None if start is None else float(start[j]))
+        hit = None if memo is None else memo.get(key)
+        if hit is None:
+            exit_up = state.prob_above(float(a[j]), t[j])
+            b[j] = _solve_futility(state, t[j], inc[j], a[j], sides,
+                                   None if start is None else float(start[j]))
+            if memo is not None:
+                memo.put(key, (float(b[j]), exit_up))
+        else:
+            b[j], exit_up = hit
+        upper += exit_up
         if j == k - 1:
             break
-        state = state.advance(_look_intervals(sides, a[j], b[j]), t[j], r, t[j + 1])
+        state = _next_state(memo, (*key, float(t[j + 1])), state,
+                            _look_intervals(sides, float(a[j]), float(b[j])), float(t[j]), r,
+                            float(t[j + 1]))
     return b, upper
 
 

@@ -326,7 +326,7 @@ class GroupSequentialRule:
             raise ValueError(f"fractions: look {k} already reached the maximum information "
                              f"(fraction {t[k - 1]:.3f}), so it was the final look")
 
-    def boundaries(self, fractions: Any, *, final: bool = False
+    def boundaries(self, fractions: Any, *, final: bool = False, reuse: bool = False
                    ) -> tuple[np.ndarray, np.ndarray | None]:
         """Efficacy and futility boundaries for looks at the given fractions.
 
@@ -338,6 +338,10 @@ class GroupSequentialRule:
         final : bool
             The last look is the final one: it spends all the alpha left. A look with
             fraction >= 1 is always final.
+        reuse : bool
+            Take looks already solved, by an earlier call on the same first fractions,
+            from :data:`seqtest.core.boundaries.SOLVED` (the same numbers, computed
+            once; monitoring, which asks again at every look, passes True).
 
         Returns
         -------
@@ -352,14 +356,14 @@ class GroupSequentialRule:
         cum = self._cumulative_alpha(t, is_final)
         fut = plan.futility
         if fut is None:
-            return spending_bounds(t, cum, sides=plan.sides, r=plan.r), None
+            return spending_bounds(t, cum, sides=plan.sides, r=plan.r, reuse=reuse), None
         beta = 1.0 - plan.power
         if plan.binding:
             return binding_bounds(t, plan.alpha, plan.sides, self._spending, fut, beta,
                                   plan.drift, plan.r, final=is_final, cumulative_alpha=cum)
-        eff = spending_bounds(t, cum, sides=plan.sides, r=plan.r)
+        eff = spending_bounds(t, cum, sides=plan.sides, r=plan.r, reuse=reuse)
         return eff, futility_bounds(t, plan.drift, eff, plan.sides, beta, fut, plan.r,
-                                    final=is_final)
+                                    final=is_final, reuse=reuse)
 
     def interval_boundaries(self, fractions: Any, efficacy_z: np.ndarray, *,
                             final: bool = False) -> np.ndarray:
@@ -370,7 +374,7 @@ class GroupSequentialRule:
             return efficacy_z
         t = np.asarray(fractions, dtype=float).ravel()
         cum = self._cumulative_alpha(t, bool(final or t[-1] >= 1.0))
-        return spending_bounds(t, cum, sides=self.plan.sides, r=self.plan.r)
+        return spending_bounds(t, cum, sides=self.plan.sides, r=self.plan.r, reuse=True)
 
     def region(self, efficacy_z: np.ndarray, futility_z: np.ndarray | None,
                *, binding_only: bool = False) -> Region:
@@ -435,7 +439,7 @@ class GroupSequentialRule:
         # projection); that changes nothing before them.
         future = np.empty(0) if last_final else self.future_fractions(float(t[-1]))
         t_ext = np.concatenate([t, future])
-        a_all, b_all = self.boundaries(t_ext, final=True)
+        a_all, b_all = self.boundaries(t_ext, final=True, reuse=True)
         a, b = a_all[:last], None if b_all is None else b_all[:last]
         a_int = self.interval_boundaries(t_ext, a_all, final=True)[:last]
         z = self.sign * _arr(eff.z)[:last]
