@@ -122,22 +122,33 @@ the confidence interval and median-unbiased estimate are found, as now, on the
 canonical scale with ``theta = estimate`` and information ``1 / se^2`` at the
 stopping look.
 
-Root finding: bracket from the estimate (where ``S = 0``) outwards by doubling steps
-of a Wald-type standard error (or the exact ends of the range for a difference of
-proportions), then a safeguarded regula falsi (Anderson-Bjorck weights, and a
-bisection step whenever the interpolated point falls outside the bracket or three
-steps have not halved it) on ``arctan(z(theta)) - arctan(c)``, which stays finite at
-the ends of the range; about eight evaluations per limit. It stops when the bracket
-is narrower than ``1e-12`` times the larger of the Wald scale and the estimate's
+Root finding: the lower and the upper limits of all looks are solved together, as
+one set of problems, so that each vectorised evaluation of the statistic serves
+all of them (:func:`_limit`). The first evaluation brackets each limit with points
+from 0.15 to 14 times a Wald-type distance ``c * step`` from the estimate (``step``
+a Wald-type standard error, on the log ratio for the relative scale; dense around
+the Wald-type guess ``estimate -+ c * step``) and the end of the range; then each
+evaluation takes an inverse quadratic interpolation of ``z(theta) - (+-c)`` inside
+the bracket and points each side of it, from a quarter of the tolerance up to its
+estimated error, so that the bracket shrinks to a few times the interpolation's
+error (superlinear), and to the tolerance once that error is below it; points
+evenly across the bracket where interpolation fails. A typical look takes three
+evaluations for both limits, the test at ``null`` included (at most eight in the
+tests' random set of small, huge, rare and extreme samples). It stops when the bracket is
+narrower than ``1e-12`` times the larger of the Wald scale and the estimate's
 magnitude (on the log ratio for the relative scale), so each limit is within that
-distance of the root of the computed statistic; ``tests/test_score.py`` checks the
-limits against ``scipy.optimize.brentq`` at ``xtol=1e-15`` (agreement within
-``2e-12`` times the larger of the scale, the estimate and the limit) and against
-statsmodels' closed-form ratio interval to 1e-8. The returned limit is the final
-bracket's end on the accepting side (or the root itself when met exactly); when
-``null`` is given the limits are then moved, on the returned scale and by at most
-that tolerance, so that the interval excludes ``null`` exactly when the test at
-``null`` rejects.
+distance of a root of the computed statistic; ``tests/test_score.py`` and
+``tests/test_score_interval_solver.py`` check the limits against
+``scipy.optimize.brentq`` at a tolerance of ``1e-14`` on the same scale, and against
+statsmodels' closed-form ratio interval to 1e-8. Where the statistic is itself
+noisy at its root (both arms with nearly all successes, on the relative scale, where
+the restricted estimates lose digits), it changes sign more than once within a
+width larger than that tolerance, and the limit is one of those sign changes. The
+returned limit is the final bracket's end on the accepting side (or the root itself
+when met exactly); a relative lower limit below a log ratio of ``log 2^-52``, where
+``expm1`` stops resolving the ratio from 0, is -1. When ``null`` is given the limits
+are then moved, on the returned scale and by at most that tolerance, so that the
+interval excludes ``null`` exactly when the test at ``null`` rejects.
 
 Validity rests on ``z`` being decreasing in ``theta0``; this is proved for the rate
 ratio (``z = A / sqrt(phi0) - B sqrt(phi0)``) and checked numerically for the others
@@ -162,6 +173,8 @@ References
        Pharmaceutical Statistics 16, 334-348.
 .. [7] Jennison, C. and Turnbull, B. W. (1989). Interim analyses: the repeated
        confidence interval approach. JRSS B 51, 305-361.
+.. [8] Brent, R. P. (1973). Algorithms for Minimization without Derivatives.
+       Prentice-Hall (inverse quadratic interpolation and its order of convergence).
 """
 
 from __future__ import annotations
@@ -175,7 +188,7 @@ import numpy as np
 from scipy import special
 
 from seqtest.core.region import Region
-from seqtest.core.roots import solve, solve_brackets
+from seqtest.core.roots import solve
 
 __all__ = [
     "KINDS",
@@ -205,6 +218,10 @@ XTOL = 1e-12
 # |log ratio| beyond which a limit is reported as the end of the range (0 or inf):
 # with totals below 1e30 no finite limit comes near it (|log| < 80).
 _LOG_RANGE = 300.0
+# The log ratio below which a lower limit is reported as -1 (a ratio of 0): the
+# smallest w with expm1(w) = -1 + 2^-52; below about -36.7 expm1 rounds to -1, where
+# the statistic jumps to its value at a ratio of exactly 0.
+_LOG_FLOOR = math.log(2.0 ** -52)
 
 Array = np.ndarray
 
@@ -692,94 +709,157 @@ def log_ratio(test: ScoreTest) -> tuple[Any, Any]:
 # ---------------------------------------------------------------------------
 
 
-def _walk(f: Callable[[Array, Array], Array], x0: Array, f0: Array, step: Array,
-          end: Array, direction: int, rejecting: bool) -> tuple[Array, Array, Array, Array]:
-    """From ``x0`` step by ``step * 2^k`` in ``direction`` (clamped at ``end``) until
-    ``f >= 0`` (``rejecting=True``) or ``f < 0`` is met. Returns the last point not
-    meeting it, its value, the point meeting it (nan if the end was reached
-    without) and its value."""
-    n = x0.size
-    last, f_last = x0.copy(), f0.copy()
-    hit, f_hit = np.full(n, np.nan), np.full(n, np.nan)
-    h = step.copy()
-    todo = np.ones(n, bool)
-    for _ in range(2100):
-        if not np.any(todo):
-            break
-        j = np.flatnonzero(todo)
-        x = last[j] + direction * h[j]
-        past = (x <= end[j]) if direction < 0 else (x >= end[j])
-        x = np.where(past, end[j], x)
-        fx = f(x, j)
-        met = (fx >= 0) if rejecting else (fx < 0)
-        hit[j] = np.where(met, x, np.nan)
-        f_hit[j] = np.where(met, fx, np.nan)
-        go_on = ~met & ~past
-        last[j] = np.where(met, last[j], x)
-        f_last[j] = np.where(met, f_last[j], fx)
-        h[j] *= 2.0
-        todo[j] = go_on
-    return last, f_last, hit, f_hit
+# The points of the interval search (see :func:`_limit`): multiples of
+# ``critical * step`` beyond the estimate at which the first call evaluates each
+# limit; the number of points each side of an interpolated limit; the fractions of
+# the bracket evaluated when interpolation fails; multiples of the distance
+# covered when no sign change has been seen yet.
+_FIRST = np.array([0.15, 0.3, 0.45, 0.6, 0.7, 0.78, 0.84, 0.885, 0.92, 0.945, 0.965,
+                   0.98, 0.99, 1.0, 1.01, 1.02, 1.035, 1.055, 1.08, 1.11, 1.15, 1.21,
+                   1.3, 1.45, 1.7, 2.1, 2.8, 4.0, 6.0, 9.0, 14.0])
+_RUNGS = 7
+_POWERS = np.arange(_RUNGS)
+_EVEN = np.arange(1, 2 * _RUNGS + 1) / (2 * _RUNGS + 1)
+_EXPAND = 2.0 ** np.arange(-2, 14)
 
 
-def _limit(zfun: Callable[[Array, Array], Array], target: Array, start: Array, step: Array,
-           lo_end: Array, hi_end: Array, direction: int, xtol: Array) -> Array:
-    """Where the decreasing ``zfun`` crosses ``target``: the lower limit
-    (``direction = -1``, ``z(limit) = c``) or the upper one (``+1``, ``z = -c``).
+def _narrow(f: Callable[[Array, Array], Array], idx: Array, pts: Array, a: Array,
+            fa: Array, b: Array, fb: Array) -> tuple[Array, ...]:
+    """Evaluate ``f`` at the points ``pts`` (row ``i``: problem ``idx[i]``; nan: no
+    point) in one call and narrow each bracket ``(a, b)`` to the largest accepting
+    (``f < 0``) and smallest rejecting (``f >= 0``) point below it. Returns the new
+    ends and their values, and the point other than the ends with the smallest
+    ``|f|`` (for interpolation) and its value."""
+    ok = ~np.isnan(pts)
+    val = np.full(pts.shape, np.nan)
+    val[ok] = f(pts[ok], idx[np.nonzero(ok)[0]])
+    u = np.concatenate((pts, a[:, None], b[:, None]), axis=1)
+    v = np.concatenate((val, fa[:, None], fb[:, None]), axis=1)
+    i = np.arange(u.shape[0])
+    rej = v >= 0
+    cand = np.where(rej, u, np.inf)
+    k = np.argmin(cand, axis=1)
+    b, fb = cand[i, k], v[i, k]
+    cand = np.where(~rej & (u < b[:, None]), u, -np.inf)
+    k = np.argmax(cand, axis=1)
+    a, fa = cand[i, k], v[i, k]
+    # nan values (no point) count as infinitely far from the root
+    key = np.fmin(np.where((u != a[:, None]) & (u != b[:, None]), np.abs(v), np.inf), np.inf)
+    k = np.argmin(key, axis=1)
+    return a, fa, b, fb, u[i, k], v[i, k]
 
-    All arrays are flat. Brackets from ``start`` by :func:`_walk`, then
-    :func:`_solve` on ``+-(arctan z - arctan target)``, written so that ``>= 0`` is
-    the rejecting side. A limit beyond an end of the range is that end. Returns the
-    final bracket's end on the accepting side (the root itself if met exactly).
+
+def _limit(f: Callable[[Array, Array], Array], u0: Array, size: Array, u_end: Array,
+           u_other: Array, xtol: Array, max_calls: int = 100) -> Array:
+    """Roots of many problems ``f(u) = 0`` at once, each ``f`` increasing in ``u``
+    (``f >= 0``: the test rejects); every call of ``f`` evaluates a set of points of
+    every unfinished problem (the cost of a call barely depends on its size, so the
+    number of calls is what counts).
+
+    All arrays are flat, one entry per problem: ``u0`` the start (the estimate,
+    normally accepting), ``size`` the Wald-type distance from it to the root
+    (critical value times a Wald-type standard error), ``u_other < u_end`` the ends
+    of the range (the test rejects towards ``u_end``; an infinite end is never
+    evaluated). ``f(u, j)`` evaluates problem ``j[i]`` at ``u[i]``.
+
+    1. First call: the start, ``u0 + size * m`` for the multipliers ``_FIRST``
+       (0.15 to 14, dense around the Wald-type guess ``m = 1``, where the limits of
+       all but small or skewed samples lie, so that most brackets are then a few
+       per cent of ``size`` wide) and the end ``u_end``.
+    2. No sign change yet (a root beyond ``u0 + 14 size`` towards an infinite end,
+       or a start that rejects): points ``2^-2 .. 2^13`` times the distance covered
+       so far beyond the last point (and the far end, when the start rejects).
+    3. Bracketed: inverse quadratic interpolation through the bracket's ends and
+       the point nearest the root of the last call; twice its distance to the
+       secant point of the ends bounds its error ``d``. Evaluated: the estimate,
+       seven points each side of it at ``xtol / 4 * rho^k`` (``rho >= 2`` chosen so
+       that the largest is ``d``) and the bracket's middle. Where the estimate falls
+       outside the bracket: the secant point and 14 points evenly across it.
+
+    Each call keeps the largest accepting and the smallest rejecting point: the
+    bracket at least halves, shrinks to a few times the estimate's error when ``d``
+    bounds it, and to ``xtol / 2`` once the estimate is within ``xtol / 4`` of the
+    root. Inverse quadratic interpolation converges superlinearly (order about
+    1.84 for a simple root; Brent 1973), so two such calls usually follow the first one.
+
+    Stops when the bracket is at most ``xtol`` wide (or its ends are adjacent
+    floats) and returns its accepting end, or the root itself when a point has
+    ``f = 0``: within ``xtol`` of a root. No point rejecting up to a finite end:
+    the end. A start that rejects all the way to ``u_other``: ``u_other``.
     """
-    atan_t = np.arctan(target)
-
-    def f(x: Array, j: Array) -> Array:
-        val = np.arctan(zfun(x, j)) - atan_t[j]
-        return val if direction < 0 else -val
-
-    end = lo_end if direction < 0 else hi_end
-    other = hi_end if direction < 0 else lo_end
-    all_idx = np.arange(start.size)
-    f0 = f(start, all_idx)
-    result = np.full(start.size, np.nan)
-    acc, f_acc = start.copy(), f0.copy()
-    rej, f_rej = np.full(start.size, np.nan), np.full(start.size, np.nan)
-    # usual case: the start accepts; walk towards the end until rejecting
-    ok = f0 < 0
-    if np.any(ok):
-        j = np.flatnonzero(ok)
-
-        def fj(x: Array, k: Array) -> Array:
-            return f(x, j[k])
-
-        last, f_last, hit, f_hit = _walk(fj, start[j], f0[j], step[j], end[j], direction,
-                                         True)
-        acc[j], f_acc[j], rej[j], f_rej[j] = last, f_last, hit, f_hit
-        result[j] = np.where(np.isnan(hit), end[j], np.nan)
-    # the start rejects (only a surrogate start for an estimate at infinity): walk
-    # the other way until accepting
-    bad = ~ok
-    if np.any(bad):
-        j = np.flatnonzero(bad)
-
-        def fb(x: Array, k: Array) -> Array:
-            return f(x, j[k])
-
-        last, f_last, hit, f_hit = _walk(fb, start[j], f0[j], step[j], other[j], -direction,
-                                         False)
-        rej[j], f_rej[j], acc[j], f_acc[j] = last, f_last, hit, f_hit
-        # rejecting over the whole range at this side: report the far end
-        result[j] = np.where(np.isnan(hit), other[j], np.nan)
-    need = np.isnan(result)
-    if np.any(need):
-        j = np.flatnonzero(need)
-
-        def fs(x: Array, k: Array) -> Array:
-            return f(x, j[k])
-
-        _, acc_end = solve_brackets(fs, rej[j], acc[j], f_rej[j], f_acc[j], xtol[j])
-        result[j] = acc_end
+    m = u0.size
+    result = np.empty(m)
+    idx = np.arange(m)
+    pts = np.empty((m, _FIRST.size + 2))
+    pts[:, 0] = u0
+    pts[:, 1:-1] = u0[:, None] + size[:, None] * _FIRST
+    pts[:, -1] = u_end
+    pts[:, 1:-1][pts[:, 1:-1] >= u_end[:, None]] = np.nan
+    pts[np.isinf(pts)] = np.nan
+    a, fa, b, fb, c, fc = _narrow(f, idx, pts, np.full(m, -np.inf), np.full(m, np.nan),
+                                  np.full(m, np.inf), np.full(m, np.nan))
+    tol, ue, uo, start, reach = xtol, u_end, u_other, u0, size
+    for _ in range(max_calls):
+        # finished: a root met exactly, a bracket narrow enough (or between adjacent
+        # floats); no root in the range: nothing rejects up to the (probed, finite)
+        # end, or the start rejects down to the far end
+        done = (fb == 0) | (b - a <= tol) | (np.nextafter(a, np.inf) >= b)
+        res = np.where(fb == 0, b, a)
+        open_ = np.isinf(a) | np.isinf(b)
+        if open_.any():
+            beyond = np.isinf(b) & (np.isfinite(ue) | np.isinf(a))
+            below = np.isinf(a) & (b == uo)
+            res = np.where(beyond, ue, np.where(below, b, res))
+            done |= beyond | below
+        if done.any():
+            result[idx[done]] = res[done]
+            keep = ~done
+            if not keep.any():
+                return result
+            (idx, a, fa, b, fb, c, fc, tol, ue, uo, start, reach, open_) = (
+                v[keep] for v in (idx, a, fa, b, fb, c, fc, tol, ue, uo, start, reach,
+                                  open_))
+        # the estimate: inverse quadratic interpolation, else the secant of the
+        # ends, else the middle; its error bound: twice its distance to the secant
+        # point
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            sec = b - fb * (b - a) / (fb - fa)
+            dab, dac, dbc = fa - fb, fa - fc, fb - fc
+            iqi = a * fb * fc / (dab * dac) - b * fa * fc / (dab * dbc) \
+                + c * fa * fb / (dac * dbc)
+        good = (iqi > a) & (iqi < b)
+        err = np.where(np.isfinite(sec), 2.0 * np.abs(iqi - sec), b - a)
+        err = np.minimum(np.maximum(err, tol), b - a)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            rho = np.maximum((4.0 * err / tol) ** (1.0 / (_RUNGS - 1)), 2.0)
+            offs = (0.25 * tol)[:, None] * rho[:, None] ** _POWERS
+        pts = np.concatenate((iqi[:, None], iqi[:, None] - offs, iqi[:, None] + offs,
+                              0.5 * (a + b)[:, None]), axis=1)
+        if not good.all():
+            # no usable interpolation: the secant point and points evenly across
+            # the bracket
+            bad = ~good
+            even = a[bad, None] + (b - a)[bad, None] * _EVEN
+            pts[bad, :-1] = np.concatenate((sec[bad, None], even), axis=1)
+        pts = np.where((pts > a[:, None]) & (pts < b[:, None]), pts, np.nan)
+        if open_.any():
+            # no sign change yet: expand beyond the last point, towards the end
+            # (start accepting) or towards the far end (start rejecting)
+            up = np.isinf(b)
+            last = np.where(up, a, b)
+            reach = np.maximum(np.abs(last - start), reach)
+            far = last[:, None] + np.where(up, reach, -reach)[:, None] * _EXPAND
+            far = np.where((far > uo[:, None]) & (far < ue[:, None]), far, np.nan)
+            far = np.column_stack((far, np.where(~up & np.isfinite(uo), uo, np.nan)))
+            width = max(pts.shape[1], far.shape[1])
+            grid = np.full((idx.size, width), np.nan)
+            grid[~open_, :pts.shape[1]] = pts[~open_]
+            grid[open_, :far.shape[1]] = far[open_]
+            pts = grid
+        a, fa, b, fb, c, fc = _narrow(f, idx, pts, a, fa, b, fb)
+    # not reached in practice: the last bracket's accepting end, else an end
+    result[idx] = np.where(np.isfinite(a) & np.isfinite(b), a,
+                           np.where(np.isinf(b), ue, uo))
     return result
 
 
@@ -817,8 +897,17 @@ def interval(kind: str, x_c: Any, n_c: Any, x_t: Any, n_t: Any, critical: Any, *
     -------
     lower, upper : ndarray or float
         The broadcast shape. Accuracy: within ``1e-12 * max(scale, |estimate|)`` of
-        the root of the computed statistic, ``scale`` being a Wald-type standard
-        error (on the log ratio for the relative scale); see the module docstring.
+        the root of the computed statistic (of a sign change of it, where it is
+        noisy at the root), ``scale`` being a Wald-type standard error (on the log
+        ratio for the relative scale); see the module docstring.
+
+    Notes
+    -----
+    Both limits of every look are found together by :func:`_limit`: one vectorised
+    evaluation brackets each from a Wald-type guess, then inverse quadratic
+    interpolation with points each side of the estimate narrows the brackets to the
+    tolerance, typically in two more evaluations (the test at ``null`` rides along
+    with the first).
     """
     kind, scale = _check_kind_scale(kind, scale)
     if sides not in (1, 2) or isinstance(sides, bool):
@@ -836,7 +925,7 @@ def interval(kind: str, x_c: Any, n_c: Any, x_t: Any, n_t: Any, critical: Any, *
     shape = c.shape
     xc, nc, xt, nt, c = (np.array(v, float).ravel() for v in (xc, nc, xt, nt, c))
     # an infinite boundary (a look that spends no alpha) rejects nothing: the
-    # interval is the whole range; solved with a placeholder, then replaced
+    # interval is the whole range (not searched)
     endless = np.isinf(c)
     c = np.where(endless, 1.0, c)
     corr = bool(correction) and kind == "binary"
@@ -844,55 +933,80 @@ def interval(kind: str, x_c: Any, n_c: Any, x_t: Any, n_t: Any, critical: Any, *
     relative = scale == "relative"
 
     if relative:
-        # work on s = log phi0 (the log ratio)
-        def zfun(w: Array, j: Array) -> Array:
-            null_rel = np.expm1(np.clip(w, -_LOG_RANGE, _LOG_RANGE))
-            return _z_raw(kind, scale, xc[j], nc[j], xt[j], nt[j], null_rel, corr, skew)
-
+        # work on the log ratio log phi0
         half_t = (xt + 0.5) / (nt + 0.5) if kind == "binary" else (xt + 0.5) / nt
         half_c = (xc + 0.5) / (nc + 0.5) if kind == "binary" else (xc + 0.5) / nc
         with np.errstate(divide="ignore", invalid="ignore"):
             est = np.log(m_t) - np.log(m_c)     # nan or +-inf with a zero count
         start = np.where(np.isfinite(est), est, np.log(half_t) - np.log(half_c))
         step = np.sqrt(1.0 / (xt + 0.5) + 1.0 / (xc + 0.5))
-        lo_end = np.full(start.shape, -_LOG_RANGE)
-        hi_end = np.full(start.shape, _LOG_RANGE)
+        lo_end, hi_end = _LOG_FLOOR, _LOG_RANGE
     else:
-        def zfun(w: Array, j: Array) -> Array:
-            return _z_raw(kind, scale, xc[j], nc[j], xt[j], nt[j], w, corr, skew)
-
         start = m_t - m_c
         if kind == "binary":
             # the ends of the range: z there is +-inf (0 when the estimate is at the
-            # end), which arctan maps to finite values
+            # end)
             step = np.sqrt((xt + 0.5) * (nt - xt + 0.5) / (nt + 1.0) ** 3
                            + (xc + 0.5) * (nc - xc + 0.5) / (nc + 1.0) ** 3)
-            lo_end = np.full(start.shape, -1.0)
-            hi_end = np.full(start.shape, 1.0)
+            lo_end, hi_end = -1.0, 1.0
         else:
             step = np.sqrt((xt + 0.5) / nt ** 2 + (xc + 0.5) / nc ** 2)
-            lo_end = np.full(start.shape, -np.inf)
-            hi_end = np.full(start.shape, np.inf)
+            lo_end, hi_end = -np.inf, np.inf
     xtol = XTOL * np.maximum(step, np.abs(start))
-    lower = _limit(zfun, c, start, step, lo_end, hi_end, -1, xtol)
-    if sides == 2:
-        upper = _limit(zfun, -c, start, step, lo_end, hi_end, +1, xtol)
+    # both limits of every look with a finite critical value as one set of problems,
+    # on u = -theta (lower limit) and u = theta (upper), so that the test rejects
+    # towards larger u in each
+    solve_at = np.flatnonzero(~endless)
+    look = np.concatenate((solve_at, solve_at)) if sides == 2 else solve_at
+    lower_half = np.arange(look.size) < solve_at.size
+    sign = np.where(lower_half, -1.0, 1.0)
+    target = np.where(lower_half, c[look], -c[look])
+    d0 = None if null is None else np.broadcast_to(_check_null(kind, scale, null),
+                                                   shape).ravel()
+    z0 = np.zeros(xc.size)
+    pending = [d0 is not None]
+
+    def f(u: Array, j: Array) -> Array:
+        """The test's statistic at the problems' points, oriented so that >= 0
+        rejects; the first call also evaluates the test at ``null``."""
+        w = sign[j] * u
+        null_w = np.expm1(np.clip(w, -_LOG_RANGE, _LOG_RANGE)) if relative else w
+        i = look[j]
+        if pending[0]:
+            # one vectorised evaluation for both
+            assert d0 is not None
+            pending[0] = False
+            every = np.arange(xc.size)
+            i, null_w = np.concatenate((i, every)), np.concatenate((null_w, d0))
+            z = _z_raw(kind, scale, xc[i], nc[i], xt[i], nt[i], null_w, corr, skew)
+            z0[:] = z[u.size:]
+            z = z[:u.size]
+        else:
+            z = _z_raw(kind, scale, xc[i], nc[i], xt[i], nt[i], null_w, corr, skew)
+        return -sign[j] * (z - target[j])
+
+    u0 = sign * start[look]
+    u_end = np.where(lower_half, -lo_end, hi_end)
+    u_other = np.where(lower_half, -hi_end, lo_end)
+    if look.size:
+        root = sign * _limit(f, u0, c[look] * step[look], u_end, u_other, xtol[look])
     else:
-        upper = hi_end.copy()
+        root = np.zeros(0)
+    if pending[0]:
+        assert d0 is not None
+        z0 = _z_raw(kind, scale, xc, nc, xt, nt, d0, corr, skew)
+    lower = np.full(xc.size, float(lo_end))
+    upper = np.full(xc.size, float(hi_end))
+    lower[solve_at] = root[:solve_at.size]
+    if sides == 2:
+        upper[solve_at] = root[solve_at.size:]
     if relative:
-        lower = np.where(lower <= -_LOG_RANGE, -1.0, np.expm1(lower))
+        lower = np.where(lower <= _LOG_FLOOR, -1.0, np.expm1(lower))
         upper = np.where(upper >= _LOG_RANGE, np.inf, np.expm1(upper))
     if sides == 1 and not (kind == "binary" and not relative):
         upper = np.full(lower.shape, np.inf)
-    if np.any(endless):
-        low_end = -1.0 if (relative or kind == "binary") else -np.inf
-        high_end = 1.0 if (kind == "binary" and not relative) else np.inf
-        lower = np.where(endless, low_end, lower)
-        upper = np.where(endless, high_end, upper)
-    if null is not None:
-        # on the returned scale, so that no rounding of the scale change can undo it
-        d0 = np.broadcast_to(_check_null(kind, scale, null), shape).ravel()
-        z0 = _z_raw(kind, scale, xc, nc, xt, nt, d0, corr, skew)
+    if d0 is not None:
+        # on the returned scale, so that no rounding of the scale change can undo it;
         # the interval excludes d0 from below iff the test rejects upward, and from
         # above iff it rejects downward (two-sided)
         reject_up = (z0 >= c) & ~endless
