@@ -19,7 +19,18 @@ __all__ = ["plain", "floats_or_none"]
 
 def plain(value: Any) -> Any:
     """``value`` as plain JSON types (see the module docstring)."""
-    if value is None or isinstance(value, (str, bool)):
+    kind = type(value)
+    # the exact built-in types first (most of an analysis), each as the general
+    # rules below would give it; subclasses (numpy floats, str enums) go on to those
+    if kind is float:
+        return value if math.isfinite(value) else None
+    if kind is str or kind is int or kind is bool or value is None:
+        return value
+    if kind is dict:
+        return {str(k): plain(v) for k, v in value.items()}
+    if kind is list or kind is tuple:
+        return [plain(v) for v in value]
+    if isinstance(value, (str, bool)):
         return value.value if isinstance(value, Enum) else value
     if isinstance(value, Enum):
         return plain(value.value)
@@ -40,8 +51,14 @@ def plain(value: Any) -> Any:
     if isinstance(value, np.floating):
         return plain(float(value))
     if is_dataclass(value) and not isinstance(value, type):
-        return {f.name: plain(getattr(value, f.name)) for f in fields(value)}
+        names = _FIELDS.get(kind)
+        if names is None:
+            names = _FIELDS[kind] = tuple(f.name for f in fields(value))
+        return {name: plain(getattr(value, name)) for name in names}
     raise TypeError(f"cannot write a {type(value).__name__} as JSON")
+
+
+_FIELDS: dict[type, tuple[str, ...]] = {}  # field names of each dataclass met
 
 
 def floats_or_none(values: Any) -> list[float | None]:
