@@ -369,6 +369,12 @@ def _polish_difference_root(p: Array, p1: Array, p2: Array, th: Array, d: Array,
 def _binary_difference_null(x_c: Array, n_c: Array, x_t: Array, n_t: Array, d: Array
                             ) -> tuple[Array, Array]:
     """Restricted MLE ``(p~_c, p~_t)`` under ``p_t - p_c = d`` (Farrington-Manning)."""
+    pooled = (x_c + x_t) / (n_c + n_t)
+    if np.all(d == 0):
+        # no effect under the null: the pooled proportion in both arms (what the cubic
+        # gives, and what is returned below for d == 0 anyway), without solving it
+        p_same = np.where(d == 0, pooled, pooled)  # the broadcast shape, a new array
+        return p_same, p_same.copy()
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         p1 = x_t / n_t          # arm "1" of the paper is the treatment
         p2 = x_c / n_c
@@ -389,7 +395,6 @@ def _binary_difference_null(x_c: Array, n_c: Array, x_t: Array, n_t: Array, d: A
         hi = np.minimum(1.0, 1.0 + d)
         p = np.clip(np.where(np.isfinite(p), p, 0.5 * (lo + hi)), lo, hi)
         p = _polish_difference_root(p, p1, p2, th, d, lo, hi)
-    pooled = (x_c + x_t) / (n_c + n_t)
     p_t = np.where(d == 0, pooled, p)
     p_c = np.where(d == 0, pooled, np.clip(p_t - d, 0.0, 1.0))
     return p_c, p_t
