@@ -846,7 +846,7 @@ def _comparison_plan(level: float, sides: int, power: float, t: np.ndarray, effi
         def g(d: float) -> float:
             return _power(t, eff_z, futility_bounds(t, d, eff_z, sides, beta, fut, r),
                           sides, d, r)
-        drift = _solve_drift(g, power, fixed)
+        drift = _solve_drift(g, power, fixed, futility=True)
         b = futility_bounds(t, drift, eff_z, sides, beta, fut, r)
     plan = Plan(alpha=level, sides=sides, power=power, info_fractions=t, efficacy_z=eff_z,
                 futility_z=b, drift=float(drift), efficacy=efficacy, futility=fut,
