@@ -223,6 +223,7 @@ def spending_bounds(
     futility: ArrayLike | None = None,
     r: int = DEFAULT_R,
     reuse: bool = False,
+    r_after: tuple[int, int] | None = None,
 ) -> np.ndarray:
     """Efficacy boundaries that spend a given cumulative error at each look.
 
@@ -246,6 +247,10 @@ def spending_bounds(
     reuse : bool
         Take the looks already solved from :data:`SOLVED` (:class:`SolvedLooks`) and
         keep the new ones there: the same numbers, computed once.
+    r_after : (int, int), optional
+        ``(j, r2)``: the sub-densities after look ``j`` (0-based) on the grid ``r2``
+        instead (the looks from ``j + 1`` on are then as accurate as that grid; the
+        earlier ones are unchanged, as each depends only on the looks before it).
 
     Returns
     -------
@@ -274,11 +279,12 @@ def spending_bounds(
         raise ValueError(f"sides: got {sides!r}; allowed are 1 and 2")
     fut = None if futility is None else _as_bounds("futility", futility, k, -math.inf)
     r = check_r(r)
+    after, r2 = (k, r) if r_after is None else (int(r_after[0]), check_r(r_after[1]))
     inc = np.diff(np.concatenate(([0.0], cum))) * sides
     out = np.empty(k)
     state = _State.origin(0.0)
     memo = SOLVED if reuse else None
-    key: tuple = ("efficacy", sides, r)
+    key: tuple = ("efficacy", sides)
     for j in range(k):
         floor = 0.0 if sides == 2 else -BIG
         if fut is not None:
@@ -292,9 +298,11 @@ def spending_bounds(
         else:
             out[j] = hit
         if j + 1 < k:
+            # the state after look j, and the key of what follows, name its grid too
+            r_j = r2 if j >= after else r
+            key = (*key, r_j, float(inf[j + 1]))
             iv = _look_intervals(sides, float(out[j]), None if fut is None else float(fut[j]))
-            state = _next_state(memo, (*key, float(inf[j + 1])), state, iv, float(inf[j]),
-                                r, float(inf[j + 1]))
+            state = _next_state(memo, key, state, iv, float(inf[j]), r_j, float(inf[j + 1]))
     return out
 
 
