@@ -413,7 +413,7 @@ def _library_analysis(exp: Experiment, compute: Callable[[], Any],
     refusal becomes the service's error (nothing is stored): bad totals through
     ``totals_error``, other refusals a 422, a failed computation an AnalysisFailed."""
     try:
-        analysis = json_safe(compute().to_dict())
+        analysis = compute().to_dict()  # plain JSON types already (the library's to_dict)
     except LookDataError as exc:
         raise totals_error(exc) from exc
     except (ValueError, TypeError) as exc:

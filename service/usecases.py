@@ -513,13 +513,17 @@ def _store_look(conn: Connection, principal: Principal, exp: Experiment,
     the answer's body."""
     ts = repo.now()
     number = exp.look_count + 1
+    result_text, summary_text = repo.dump_json(outcome.result), repo.dump_json(outcome.summary)
     lk = Look(
         number=number, plan_version=exp.plan_version, totals=roles, final=final,
         decision=outcome.decision, state=outcome.state,
-        result=_canonical(outcome.result), summary=_canonical(outcome.summary),
+        result=json.loads(result_text), summary=json.loads(summary_text),
         recorded_at=ts, recorded_by=principal.key_id,
     )
-    repo.insert_look(conn, exp.id, lk)
+    # stored as written once, and answered as it reads back (sorted keys), so a
+    # rebuilt answer is identical
+    repo.insert_look(conn, exp.id, lk, texts={"result": result_text,
+                                              "analysis": summary_text})
     repo.update_after_look(conn, exp.id, number, outcome.state, outcome.decision, ts)
     exp_after = replace(exp, look_count=number, state=outcome.state,
                         decision=outcome.decision, updated_at=ts)
@@ -528,11 +532,6 @@ def _store_look(conn: Connection, principal: Principal, exp: Experiment,
         repo.remember_key(conn, principal.team_id, idem.key, idem.request_hash, 201,
                           None, experiment_id=exp.id, look_number=number)
     return body
-
-
-def _canonical(value: Any) -> Any:
-    """As it reads back from storage (sorted keys), so a rebuilt answer is identical."""
-    return json.loads(repo.dump_json(value))
 
 
 def amend_plan(db: Database, principal: Principal, exp_id: str, req: AmendRequest,

@@ -384,11 +384,16 @@ def look_history(conn: Connection, exp_id: str) -> tuple[list[dict[str, Any]],
     return totals, results
 
 
-def insert_look(conn: Connection, exp_id: str, look: Look) -> None:
+def insert_look(conn: Connection, exp_id: str, look: Look,
+                texts: dict[str, str] | None = None) -> None:
+    """``texts``: the ``result`` and ``analysis`` columns already written by
+    :func:`dump_json` (of ``look.result`` and ``look.summary``), not written again."""
+    done = texts or {}
     conn.execute(_INSERT_LOOK, {
         "experiment_id": exp_id, "number": look.number, "plan_version": look.plan_version,
         "totals": dump_json(look.totals), "final": look.final, "decision": look.decision,
-        "analysis": dump_json(look.summary), "result": dump_json(look.result),
+        "analysis": done.get("analysis") or dump_json(look.summary),
+        "result": done.get("result") or dump_json(look.result),
         "state": look.state, "recorded_at": look.recorded_at,
         "recorded_by": look.recorded_by,
     })
