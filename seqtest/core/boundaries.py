@@ -289,7 +289,9 @@ def spending_bounds(
         floor = 0.0 if sides == 2 else -BIG
         if fut is not None:
             floor = max(floor, fut[j])
-        key = (*key, float(inf[j]), float(inc[j]), -math.inf if fut is None else float(fut[j]))
+        if memo is not None:
+            key = (*key, float(inf[j]), float(inc[j]),
+                   -math.inf if fut is None else float(fut[j]))
         hit = None if memo is None else memo.get(key)
         if hit is None:
             out[j] = _solve_upper(state, inf[j], inc[j], sides, floor)
@@ -300,7 +302,8 @@ def spending_bounds(
         if j + 1 < k:
             # the state after look j, and the key of what follows, name its grid too
             r_j = r2 if j >= after else r
-            key = (*key, r_j, float(inf[j + 1]))
+            if memo is not None:
+                key = (*key, r_j, float(inf[j + 1]))
             iv = _look_intervals(sides, float(out[j]), None if fut is None else float(fut[j]))
             state = _next_state(memo, key, state, iv, float(inf[j]), r_j, float(inf[j + 1]))
     return out
