@@ -35,6 +35,7 @@ import seqtest.reporting.style as reporting_style
 from seqtest import DECISIONS as _DECISIONS
 from seqtest import LookDataError
 from seqtest.core.jsonable import plain
+from seqtest.core.recent import Recent
 from seqtest.core.vocabulary import ARMS, EXPERIMENT_KIND, METRIC_KINDS, PLAN_KINDS
 from seqtest.monitoring.rules import FRACTION_BASES
 from seqtest.planning.design import MAX_LOOKS, MIN_GRID_R
@@ -48,7 +49,7 @@ ROLES = ARMS  # the library's names of the two arms in a look
 # every kind of plan the service takes: the two-arm kinds and many-arm experiments
 DOCUMENT_KINDS = (*PLAN_KINDS, EXPERIMENT_KIND)
 __all__ = ["DECISIONS", "DOCUMENT_KINDS", "EXPERIMENT_KIND", "FRACTION_BASES", "MAX_LOOKS",
-           "METRIC_KINDS", "PLAN_KINDS", "ROLES"]
+           "METRIC_KINDS", "PLAN_KINDS", "ROLES", "Recent"]
 
 # design inputs per kind of plan (the library's argument names)
 DESIGN_INPUTS = {

@@ -19,7 +19,6 @@ import json
 import secrets
 import threading
 import time
-from collections import OrderedDict
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -347,43 +346,17 @@ _SNAPSHOT_TRIES = 3  # snapshots analysed; the last, if stale, is redone under t
 _PLAN_CACHE_SIZE = 256
 
 
-class PlanCache:
+class PlanCache(library.Recent[tuple[str, str, int], library.PlanInfo]):
     """Plans read from stored versions, most recently used first, at most ``size``.
 
     Keyed by (database URL, experiment id, plan version): a stored version is never
     changed (plan versions are append-only, their rows refuse UPDATE and DELETE), so
     an entry never goes stale, and a look neither reads nor parses the plan document
-    again. Process-local and thread-safe (one lock around the dictionary; the plans
+    again. Process-local and thread-safe (the library's bounded memo; the plans
     themselves are immutable)."""
 
     def __init__(self, size: int = _PLAN_CACHE_SIZE) -> None:
-        self.size = size
-        self._items: OrderedDict[tuple[str, str, int], library.PlanInfo] = OrderedDict()
-        self._lock = threading.Lock()
-        self.hits = 0
-        self.misses = 0
-
-    def get(self, key: tuple[str, str, int]) -> library.PlanInfo | None:
-        with self._lock:
-            info = self._items.get(key)
-            if info is None:
-                self.misses += 1
-                return None
-            self._items.move_to_end(key)
-            self.hits += 1
-            return info
-
-    def put(self, key: tuple[str, str, int], info: library.PlanInfo) -> None:
-        with self._lock:
-            self._items[key] = info
-            self._items.move_to_end(key)
-            while len(self._items) > self.size:
-                self._items.popitem(last=False)
-
-    def clear(self) -> None:
-        with self._lock:
-            self._items.clear()
-            self.hits = self.misses = 0
+        super().__init__(size)
 
 
 PLANS = PlanCache()

@@ -22,8 +22,6 @@ References
 from __future__ import annotations
 
 import math
-import threading
-from collections import OrderedDict
 from typing import Any
 
 import numpy as np
@@ -31,6 +29,7 @@ from numpy.typing import ArrayLike
 from scipy import special
 
 from seqtest.core.classical import ClassicalBoundary
+from seqtest.core.recent import Recent
 from seqtest.core.recursion import (
     BIG,
     DEFAULT_R,
@@ -60,7 +59,7 @@ __all__ = [
 Boundary = SpendingFunction | ClassicalBoundary
 
 
-class SolvedLooks:
+class SolvedLooks(Recent[tuple, Any]):
     """Boundaries already solved look by look, and the recursion's states after them,
     kept so that a later computation on the same first looks does not solve them again.
 
@@ -74,39 +73,13 @@ class SolvedLooks:
     after a look also depends on the information of the look after it (it shapes the
     next grid), which its key includes.
 
-    At most ``size`` entries, the least recently used dropped first; thread-safe (one
-    lock around the dictionary; states are not changed once made, apart from caches
-    of their own that any thread may fill with the same values).
+    At most ``size`` entries, the least recently used dropped first
+    (:class:`seqtest.core.recent.Recent`; states are not changed once made, apart from
+    caches of their own that any thread may fill with the same values).
     """
 
     def __init__(self, size: int = 4096) -> None:
-        self.size = size
-        self._items: OrderedDict[tuple, Any] = OrderedDict()
-        self._lock = threading.Lock()
-        self.hits = 0
-        self.misses = 0
-
-    def get(self, key: tuple) -> Any:
-        with self._lock:
-            value = self._items.get(key)
-            if value is None:
-                self.misses += 1
-                return None
-            self._items.move_to_end(key)
-            self.hits += 1
-            return value
-
-    def put(self, key: tuple, value: Any) -> None:
-        with self._lock:
-            self._items[key] = value
-            self._items.move_to_end(key)
-            while len(self._items) > self.size:
-                self._items.popitem(last=False)
-
-    def clear(self) -> None:
-        with self._lock:
-            self._items.clear()
-            self.hits = self.misses = 0
+        super().__init__(size)
 
 
 #: The memo monitoring passes to the solvers (``reuse=True``); simulations, whose looks
