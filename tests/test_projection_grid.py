@@ -63,3 +63,18 @@ def test_conditional_power_on_the_coarse_grid(design: dict, upto: int, lift: int
                                           sides=plan.sides, r=48)
     assert res.projection.conditional_power_planned == pytest.approx(ref_plan, abs=1e-6)
     assert res.projection.conditional_power_current == pytest.approx(ref_now, abs=1e-6)
+
+
+@pytest.mark.parametrize("z_now, drift, sides", [(0.13, 42.0, 2), (2.5, 8.0, 1), (-3.0, -9.0, 2),
+                                                 (0.5, 3.2, 2)])
+def test_conditional_power_stops_only_when_nothing_is_left(monkeypatch: pytest.MonkeyPatch,
+                                                           z_now: float, drift: float,
+                                                           sides: int) -> None:
+    """Once fewer than 1e-12 of the paths go on, later looks are not integrated: the
+    answer is within 1e-12 of integrating every look (forced here)."""
+    future = np.array([0.2, 0.4, 0.6, 0.8, 1.0])
+    bounds = np.array([4.877, 3.357, 2.68, 2.29, 2.031])
+    quick = inference.conditional_power(z_now, 0.01, future, bounds, drift, sides=sides)
+    monkeypatch.setattr(inference, "_GOING_ON", -1.0)
+    every = inference.conditional_power(z_now, 0.01, future, bounds, drift, sides=sides)
+    assert abs(quick - every) <= 1e-12

@@ -224,7 +224,9 @@ def conditional_power(
     -----
     The recursion of :mod:`seqtest.core.recursion` started from the point mass
     ``S = z_now sqrt(t_now)``; futility boundaries are not applied (the chance of
-    reaching significance if the experiment continues to its end).
+    reaching significance if the experiment continues to its end). Once fewer than
+    1e-12 of the paths are still going on after a look, the looks after it are not
+    integrated (they could add no more than that).
     """
     tf = np.asarray(future_fractions, float).ravel()
     uf = np.asarray(future_upper, float).ravel()
@@ -236,12 +238,20 @@ def conditional_power(
     region = Region.of_plan(sides, uf)
     total = 0.0
     for j in range(tf.size):
-        total += state.prob_above(uf[j], tf[j])
+        exits = state.prob_above(uf[j], tf[j])
         if sides == 2:
-            total += state.prob_below(-uf[j], tf[j])
-        if j + 1 < tf.size:
+            exits += state.prob_below(-uf[j], tf[j])
+        total += exits
+        # paths still going on after this look: when they are below 1e-12 of all, the
+        # looks after it cannot add more than that (no futility stops them)
+        if j + 1 < tf.size and state.mass() - exits > _GOING_ON:
             state = state.advance(region.intervals(j), tf[j], r, tf[j + 1])
+        else:
+            break
     return float(min(1.0, total))
+
+
+_GOING_ON = 1e-12  # below this share of paths, conditional power stops integrating
 
 
 def naive_ci(estimate: float, se: float, alpha: float, sides: int) -> tuple[float, float]:
