@@ -75,7 +75,9 @@ class SolvedLooks(Recent[tuple, Any]):
 
     At most ``size`` entries, the least recently used dropped first
     (:class:`seqtest.core.recent.Recent`; states are not changed once made, apart from
-    caches of their own that any thread may fill with the same values).
+    caches of their own that any thread may fill with the same values). A state holds
+    a few hundred nodes (about 5 KB, 9 KB at most in the tests), so the default 4096
+    entries, half of them states, stay below about 20 MB.
     """
 
     def __init__(self, size: int = 4096) -> None:
