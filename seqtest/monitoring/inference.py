@@ -193,6 +193,10 @@ def repeated_ci(estimate: np.ndarray, se: np.ndarray, bound: np.ndarray, sides: 
     return lo, hi
 
 
+# below this share of paths still going on, conditional power stops integrating
+_GOING_ON = 1e-12
+
+
 def conditional_power(
     z_now: float,
     t_now: float,
@@ -250,8 +254,6 @@ def conditional_power(
             break
     return float(min(1.0, total))
 
-
-_GOING_ON = 1e-12  # below this share of paths, conditional power stops integrating
 
 
 def naive_ci(estimate: float, se: float, alpha: float, sides: int) -> tuple[float, float]:

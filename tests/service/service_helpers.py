@@ -9,10 +9,13 @@ import subprocess
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 import httpx
+from fastapi.testclient import TestClient
 
 from service import usecases
+from service.api import create_app
 from service.config import Settings
 from service.db.engine import Database
 
@@ -122,6 +125,12 @@ class Server:
 
 def open_db(database_url: str, **settings: object) -> Database:
     return Database(Settings.from_env({"database_url": database_url, **settings}))
+
+
+def app_client(db: Database, **options: Any) -> TestClient:
+    """The app in process over ``db`` (use as a context manager); a server error comes
+    back as a 500 response, not as an exception, for tests that check there is none."""
+    return TestClient(create_app(db=db, **options), raise_server_exceptions=False)
 
 
 def new_key(database_url: str, team: str, label: str = "tests") -> str:

@@ -11,7 +11,7 @@ import json
 
 import pytest
 from fastapi.testclient import TestClient
-from service_helpers import auth, open_db
+from service_helpers import app_client, auth, open_db
 
 import seqtest
 from service import usecases
@@ -33,7 +33,7 @@ def store(sqlite_url: str):
 
 @pytest.fixture
 def client(store: Database):
-    with TestClient(create_app(db=store), raise_server_exceptions=False) as c:
+    with app_client(store) as c:
         yield c
 
 

@@ -16,15 +16,14 @@ import pytest
 from fastapi.testclient import TestClient
 from service_helpers import (
     EXPERIMENT_ARMS,
+    app_client,
     auth,
     experiment_document,
     experiment_inputs,
-    open_db,
 )
 
 import seqtest
 from service import usecases
-from service.api import create_app
 from service.db.engine import Database
 from service.library import json_safe
 
@@ -37,21 +36,14 @@ def document() -> dict:
 
 
 @pytest.fixture
-def store(database_url: str):
-    s = open_db(database_url)
-    yield s
-    s.close()
-
-
-@pytest.fixture
-def client(store: Database):
-    with TestClient(create_app(db=store), raise_server_exceptions=False) as c:
+def client(storage: Database):
+    with app_client(storage) as c:
         yield c
 
 
 @pytest.fixture
-def key(store: Database) -> dict[str, str]:
-    return auth(usecases.create_key(store, "millbrook-tea-room", "tests")[1])
+def key(storage: Database) -> dict[str, str]:
+    return auth(usecases.create_key(storage, "millbrook-tea-room", "tests")[1])
 
 
 def create(client: TestClient, key: dict, document: dict, **over: Any) -> dict:

@@ -14,13 +14,11 @@ import json
 from urllib.parse import quote
 
 import pytest
-from fastapi.testclient import TestClient
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from service_helpers import auth, open_db
+from service_helpers import app_client, auth, open_db
 
 from service import usecases
-from service.api import create_app
 
 SETTINGS = settings(
     max_examples=100,
@@ -94,7 +92,7 @@ create_bodies = st.fixed_dictionaries(
 def world(tmp_path_factory):
     store = open_db(f"sqlite:///{tmp_path_factory.mktemp('fuzz') / 'fuzz.db'}")
     key = auth(usecases.create_key(store, "fuzzers")[1])
-    client = TestClient(create_app(db=store), raise_server_exceptions=False)
+    client = app_client(store)
     experiments = {}
     for kind, metric in METRICS.items():
         r = client.post("/v1/experiments", headers=key, json={

@@ -18,7 +18,7 @@ from typing import Any
 
 import pytest
 from fastapi.testclient import TestClient
-from service_helpers import EXPERIMENT_ARMS, auth, experiment_document, open_db
+from service_helpers import EXPERIMENT_ARMS, app_client, auth, experiment_document, open_db
 
 import seqtest
 from service import usecases
@@ -43,7 +43,7 @@ def app_db(database_url: str) -> Iterator[Database]:
 
 @pytest.fixture
 def client(app_db: Database) -> Iterator[TestClient]:
-    with TestClient(create_app(db=app_db), raise_server_exceptions=False) as c:
+    with app_client(app_db) as c:
         yield c
 
 

@@ -22,7 +22,7 @@ from typing import Any
 import httpx
 import pytest
 from fastapi.testclient import TestClient
-from service_helpers import Server, auth, new_key, open_db
+from service_helpers import Server, app_client, auth, new_key, open_db
 from sqlalchemy import func, select, text, update
 
 import seqtest
@@ -41,7 +41,7 @@ ARMS = {"control": "classic", "treatment": "large"}
 def world(database_url: str) -> Iterator[tuple[TestClient, dict[str, str], Database]]:
     db = open_db(database_url)
     key = auth(usecases.create_key(db, "juniper-bakery")[1])
-    with TestClient(create_app(db=db), raise_server_exceptions=False) as client:
+    with app_client(db) as client:
         yield client, key, db
     db.close()
 
@@ -779,7 +779,7 @@ def test_10_11_a_version_2_database_upgrades_in_place_and_stays_readable(databas
         _, token = usecases.create_key(db, "juniper-bakery")
         key = auth(token)
         assert team_id == "team_1"
-        with TestClient(create_app(db=db), raise_server_exceptions=False) as client:
+        with app_client(db) as client:
             got = client.get("/v1/experiments/exp_v2", headers=key)
             assert got.status_code == 200, got.text
             body = got.json()
