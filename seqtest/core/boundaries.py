@@ -427,7 +427,8 @@ def futility_with_power(t: np.ndarray, drift: float, a: np.ndarray, sides: int,
     memo = SOLVED if reuse and start is None else None
     key: tuple = ("futility", float(drift), sides, r)
     for j in range(k):
-        key = (*key, float(t[j]), float(a[j]), float(inc[j]))
+        if memo is not None:
+            key = (*key, float(t[j]), float(a[j]), float(inc[j]))
         if j == k - 1 and final:
             upper += state.prob_above(float(a[j]), t[j])
             b[j] = a[j]
@@ -444,7 +445,9 @@ def futility_with_power(t: np.ndarray, drift: float, a: np.ndarray, sides: int,
         upper += exit_up
         if j == k - 1:
             break
-        state = _next_state(memo, (*key, float(t[j + 1])), state,
+        if memo is not None:
+            key = (*key, float(t[j + 1]))
+        state = _next_state(memo, key, state,
                             _look_intervals(sides, float(a[j]), float(b[j])), float(t[j]), r,
                             float(t[j + 1]))
     return b, upper
