@@ -231,3 +231,35 @@ def test_sqlite_writers_of_one_process_queue_and_a_long_wait_is_a_503(sqlite_url
         assert conn.execute(select(func.count()).select_from(tables.health_checks)
                             ).scalar() == 1
     db.close()
+
+
+def test_sqlite_lock_held_by_another_connection_is_a_503_at_begin(sqlite_url: str):
+    """Another process's writer (here a bare sqlite3 connection, outside this
+    process's queue of writers) holds the file's write lock: our ``BEGIN IMMEDIATE``
+    fails after the busy timeout, and the failure is a 503 that says nothing was
+    stored, as any storage failure (the statement runs on the driver's connection,
+    its error wrapped for the classifier)."""
+    import sqlite3
+
+    from service_helpers import open_db
+    from sqlalchemy import text
+
+    from service.errors import Unavailable
+
+    db = open_db(sqlite_url, busy_timeout_s=0.2)
+    other = sqlite3.connect(sqlite_url.split("sqlite:///", 1)[1], isolation_level=None)
+    try:
+        other.execute("BEGIN IMMEDIATE")
+        with pytest.raises(Unavailable, match="Nothing was stored") as caught:
+            with db.write() as conn:
+                conn.execute(text("INSERT INTO health_checks (checked_at) VALUES ('x')"))
+        assert caught.value.details == [{"location": ["database"], "message": "busy"}]
+        other.execute("ROLLBACK")
+        with db.write() as conn:  # the lock released, the same write goes through
+            conn.execute(text("INSERT INTO health_checks (checked_at) VALUES ('y')"))
+        with db.read() as conn:
+            assert conn.execute(text("SELECT checked_at FROM health_checks")
+                                ).scalars().all() == ["y"]
+    finally:
+        other.close()
+        db.close()
