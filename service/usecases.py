@@ -416,24 +416,69 @@ def _analyse(snap: _Snapshot, req: LookRequest) -> _Snapshot:
     return snap
 
 
+def _read_snapshot(db: Database, conn: Connection, team_id: str, exp_id: str
+                   ) -> _Snapshot | None:
+    """The experiment's snapshot, read on ``conn`` (not analysed yet); None when the
+    experiment is closed (the write path answers that, after the idempotency check)."""
+    exp = repo.get_experiment(conn, team_id, exp_id)
+    if exp is None:
+        raise _not_found(exp_id)
+    if exp.state in ("stopped", "completed"):
+        return None
+    return _read_state(db, conn, exp)
+
+
 def _snapshot(db: Database, principal: Principal, exp_id: str, req: LookRequest
               ) -> _Snapshot | None:
     """The look analysed on a read snapshot, outside the write lock and after the read
     transaction ended (it holds no connection while it computes); None when the
-    experiment is closed (the write path answers that, after the idempotency check)."""
+    experiment is closed."""
     with db.read() as conn:
-        exp = repo.get_experiment(conn, principal.team_id, exp_id)
-        if exp is None:
-            raise _not_found(exp_id)
-        if exp.state in ("stopped", "completed"):
-            return None
-        snap = _read_state(db, conn, exp)
-    return _analyse(snap, req)
+        snap = _read_snapshot(db, conn, principal.team_id, exp_id)
+    return None if snap is None else _analyse(snap, req)
+
+
+@dataclass
+class LookRead:
+    """What a look's request reads before its body is checked, in the transaction
+    that checks the caller's key (:func:`read_for_look`): the caller, and the
+    snapshot of the experiment the look is for (not analysed yet). It serves as the
+    look's first snapshot, which :func:`append_look` checks under the lock like any
+    other."""
+
+    principal: Principal
+    exp_id: str | None = None
+    snapshot: _Snapshot | None = None
+    missing: NotFound | None = None
+
+    def analysed(self, req: LookRequest) -> _Snapshot | None:
+        """The snapshot analysed for ``req`` (as :func:`_snapshot` gives it)."""
+        if self.missing is not None:
+            raise self.missing
+        return None if self.snapshot is None else _analyse(self.snapshot, req)
+
+
+def read_for_look(db: Database, token: str, exp_id: str | None) -> LookRead | None:
+    """The caller's key checked and, when it is valid and ``exp_id`` is given, the
+    experiment's snapshot read, in one read transaction (a look's request makes one
+    transaction fewer); None when the key is not valid. An unknown experiment is
+    answered later, by :func:`append_look` (after the body is checked, as for any
+    refusal of the experiment)."""
+    with db.read() as conn:
+        principal = repo.authenticate(conn, token)
+        if principal is None or exp_id is None:
+            return None if principal is None else LookRead(principal)
+        try:
+            snap = _read_snapshot(db, conn, principal.team_id, exp_id)
+        except NotFound as exc:
+            return LookRead(principal, exp_id, missing=exc)
+    return LookRead(principal, exp_id, snap)
 
 
 def append_look(db: Database, principal: Principal, exp_id: str, req: LookRequest,
-                idem: Idem | None = None) -> Answer:
-    """Record a look.
+                idem: Idem | None = None, *, read: LookRead | None = None) -> Answer:
+    """Record a look (``read``: the first snapshot, already read with the caller's key
+    by :func:`read_for_look`, else it is read here).
 
     The analysis (the dear part) runs outside the write lock, on a read snapshot:
     the experiment row, its stored looks and its plan in force. The write then locks
@@ -453,7 +498,11 @@ def append_look(db: Database, principal: Principal, exp_id: str, req: LookReques
         return prior
     try:
         for attempt in range(_SNAPSHOT_TRIES):
-            snap = _snapshot(db, principal, exp_id, req)
+            if attempt == 0 and read is not None and read.exp_id == exp_id \
+                    and read.principal == principal:
+                snap = read.analysed(req)
+            else:
+                snap = _snapshot(db, principal, exp_id, req)
             with db.write() as conn:
                 exp = repo.lock_experiment(conn, principal.team_id, exp_id)
                 if exp is None:

@@ -40,20 +40,19 @@ async def get_db(request: Request) -> Database:
 DatabaseDep = Annotated[Database, Depends(get_db)]
 
 
-def get_principal(
-    request: Request,
-    credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(bearer)],
-    db: DatabaseDep,
-) -> Principal:
-    """The team calling, from its API key (dependency); 401 when missing or wrong."""
+def _token(credentials: HTTPAuthorizationCredentials | None) -> str:
+    """The bearer token sent; 401 when there is none."""
     if credentials is None:
         raise Unauthorized(
             "An API key is required: send the header 'Authorization: Bearer <key>'. "
             "An administrator makes keys with `seqtest keys create --team NAME`.",
             headers=_CHALLENGE,
         )
-    token = credentials.credentials.strip()
-    principal = usecases.authenticate(db, token) if 0 < len(token) <= 200 else None
+    return credentials.credentials.strip()
+
+
+def _admitted(request: Request, principal: Principal | None) -> Principal:
+    """The caller, once its key was found valid; 401 otherwise."""
     if principal is None:
         raise Unauthorized(
             "The API key is not valid (unknown or revoked). Check it, or ask an "
@@ -64,7 +63,41 @@ def get_principal(
     return principal
 
 
+def _plausible(token: str) -> bool:
+    return 0 < len(token) <= 200
+
+
+def get_principal(
+    request: Request,
+    credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(bearer)],
+    db: DatabaseDep,
+) -> Principal:
+    """The team calling, from its API key (dependency); 401 when missing or wrong."""
+    token = _token(credentials)
+    return _admitted(request, usecases.authenticate(db, token) if _plausible(token) else None)
+
+
+def get_look_read(
+    request: Request,
+    credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(bearer)],
+    db: DatabaseDep,
+) -> usecases.LookRead:
+    """The caller, as :func:`get_principal` (401 first, like every route), and in the
+    same read transaction the snapshot of the experiment the look is for
+    (dependency of posting a look: one transaction fewer). A malformed id is not
+    read; the route's path check answers it."""
+    token = _token(credentials)
+    exp_id = request.path_params.get("experiment_id")
+    if not (isinstance(exp_id, str) and _ID.match(exp_id)):
+        exp_id = None
+    read = usecases.read_for_look(db, token, exp_id) if _plausible(token) else None
+    _admitted(request, None if read is None else read.principal)
+    assert read is not None
+    return read
+
+
 PrincipalDep = Annotated[Principal, Depends(get_principal)]
+LookReadDep = Annotated[usecases.LookRead, Depends(get_look_read)]
 
 
 async def experiment_id(

@@ -119,6 +119,33 @@ def test_missing_and_wrong_keys_get_401(client: TestClient, store: Database):
     assert_error(client.get("/v1/experiments", headers=auth(token)), 401, "revoked")
 
 
+def test_a_look_is_answered_in_a_fixed_order_key_then_body_then_experiment(
+        client: TestClient, store: Database, key):
+    """Posting a look checks the key first (401 before anything about the body or the
+    experiment, so a caller without a valid key learns nothing), then the path and
+    the body (422), then the experiment (404, 409); a revoked key is refused at
+    once. The order is the service's contract (service/README.md)."""
+    exp = create(client, key)
+    bad_body = {"totals": 5}  # not a mapping of arms: the body check refuses it
+    good = (1000, 100), (1000, 120)
+    url = "/v1/experiments/{}/looks"
+    for headers in ({}, auth("sqt_nope"), {"Authorization": "Basic abc"}):
+        for exp_id in (exp["id"], "exp_" + "0" * 24, "bad id"):
+            assert_error(client.post(url.format(exp_id), json=bad_body, headers=headers),
+                         401)
+        assert_error(look(client, headers, exp["id"], *good), 401)
+    assert_error(client.post(url.format("bad id"), json=bad_body, headers=key), 422)
+    assert_error(client.post(url.format("exp_" + "0" * 24), json=bad_body, headers=key),
+                 422)
+    assert_error(look(client, key, "exp_" + "0" * 24, *good), 404)
+    assert look(client, key, exp["id"], *good).status_code == 201
+    record, token = usecases.create_key(store, "juniper-bakery", "soon revoked")
+    assert look(client, auth(token), exp["id"], (2000, 200), (2000, 240)).status_code == 201
+    usecases.revoke_key(store, record.id)
+    assert_error(look(client, auth(token), exp["id"], (3000, 300), (3000, 360)), 401,
+                 "revoked")
+
+
 def test_a_team_sees_only_its_own_experiments(client: TestClient, store: Database, key):
     other = auth(usecases.create_key(store, "another-shop")[1])
     exp = create(client, key)

@@ -263,3 +263,59 @@ def test_sqlite_lock_held_by_another_connection_is_a_503_at_begin(sqlite_url: st
     finally:
         other.close()
         db.close()
+
+
+# ---------------------- the first snapshot, read with the caller's key (one transaction)
+
+
+def test_the_first_snapshot_read_with_the_key_is_checked_like_any_other(storage: Database):
+    """``read_for_look`` reads the caller and the experiment in one transaction; a look
+    that came in after that read makes it stale, and the look is analysed again over
+    every stored look (the same row as a reference posted in turn)."""
+    _, token = usecases.create_key(storage, "t")
+    read = usecases.read_for_look(storage, token, None)
+    assert read is not None and read.snapshot is None and read.exp_id is None
+    p = read.principal
+    exp_id, ref_id = _new(storage, p), _new(storage, p)
+    for n in (1000, 2000):
+        ref = usecases.append_look(storage, p, ref_id, look_of(n, extra=n // 50))
+    early = usecases.read_for_look(storage, token, exp_id)
+    assert early is not None and early.snapshot is not None
+    assert early.snapshot.exp.look_count == 0
+    usecases.append_look(storage, p, exp_id, look_of(1000, extra=20))  # after the read
+    got = usecases.append_look(storage, p, exp_id, look_of(2000, extra=40), read=early)
+    assert got.body["look"] == 2 and len(got.body["analysis"]["looks"]) == 2
+    assert got.body["result"] == ref.body["result"]
+    assert [lk["look"] for lk in _looks(storage, p.team_id, exp_id)] == [1, 2]
+    # a fresh read is used as it is: the look is analysed once
+    fresh = usecases.read_for_look(storage, token, ref_id)
+    assert fresh is not None and fresh.snapshot is not None
+    assert fresh.snapshot.exp.look_count == 2
+    third = usecases.append_look(storage, p, ref_id, look_of(3000, extra=60), read=fresh)
+    assert third.body["look"] == 3
+
+
+def test_the_first_read_answers_a_bad_key_an_unknown_and_a_closed_experiment(
+        storage: Database):
+    from service.errors import NotFound
+
+    _, token = usecases.create_key(storage, "t")
+    assert usecases.read_for_look(storage, token + "x", None) is None  # not a valid key
+    read = usecases.read_for_look(storage, token, "exp_unknown")
+    assert read is not None and read.missing is not None
+    with pytest.raises(NotFound):
+        usecases.append_look(storage, read.principal, "exp_unknown", look_of(1000),
+                             read=read)
+    p = read.principal
+    exp_id = _new(storage, p)
+    usecases.append_look(storage, p, exp_id, look_of(1000))
+    usecases.append_look(storage, p, exp_id, usecases.LookRequest(
+        totals=look_of(2000).totals, final=True))  # final: the experiment completes
+    closed = usecases.read_for_look(storage, token, exp_id)
+    assert closed is not None and closed.snapshot is None and closed.missing is None
+    with pytest.raises(StateConflict):
+        usecases.append_look(storage, p, exp_id, look_of(3000), read=closed)
+    # a read of another experiment is not used for this one
+    other = usecases.read_for_look(storage, token, "exp_unknown")
+    got = usecases.append_look(storage, p, _new(storage, p), look_of(1000), read=other)
+    assert got.body["look"] == 1

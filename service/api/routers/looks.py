@@ -13,6 +13,7 @@ from service.api.deps import (
     DatabaseDep,
     ExperimentIdDep,
     IdempotencyKeyDep,
+    LookReadDep,
     PrincipalDep,
     idem_for,
     respond,
@@ -31,7 +32,7 @@ router = APIRouter(prefix="/v1/experiments/{experiment_id}/looks", tags=["looks"
     summary="Record a look: cumulative totals per arm",
 )
 def post_look(
-    principal: PrincipalDep,
+    read: LookReadDep,
     db: DatabaseDep,
     key: IdempotencyKeyDep,
     request: Request,
@@ -54,8 +55,8 @@ def post_look(
     field]`."""
     req = usecases.LookRequest(totals=body.totals, final=body.final,
                                daily_traffic=body.daily_traffic)
-    answer = usecases.append_look(db, principal, experiment_id, req,
-                                  idem_for(key, request, body))
+    answer = usecases.append_look(db, read.principal, experiment_id, req,
+                                  idem_for(key, request, body), read=read)
     return respond(answer, {
         "Location": f"/v1/experiments/{experiment_id}/looks/{answer.body['look']}"})
 
