@@ -17,8 +17,9 @@ Loopback only. Prints p50/p99 latency, throughput, and the ratios look/health.
 ``--compare`` measures, in one run and side by side, on SQLite (synchronous FULL and
 NORMAL) and on PostgreSQL (a fresh schema in ``--postgres-url``, dropped after):
 
-- server CPU per request: the server process's own CPU time (user + system, from
-  /proc/PID/stat) over N health requests and over N look posts, one client;
+- server CPU per request: the server process's own CPU time (its threads' time on
+  a CPU, /proc/PID/task/*/schedstat) over N health requests and over N look posts,
+  one client, in alternating blocks of N/10 of each kind;
 - latency under load: 50 concurrent clients (threads, one keep-alive connection
   each), first all asking for health, then all posting looks (each client to its own
   experiment, cumulative totals); p50 and p99 of each, and their ratio.
@@ -119,8 +120,23 @@ def pct(values: list[float], q: float) -> float:
 
 
 def cpu_seconds(pid: int) -> float:
-    """User + system CPU time of process ``pid`` and of its finished, waited-for
-    children (/proc/PID/stat fields 14-17, in clock ticks)."""
+    """CPU time of process ``pid``, in seconds: the sum over its threads of the time
+    on a CPU from /proc/PID/task/TID/schedstat (nanoseconds; the clock ticks of
+    /proc/PID/stat are 10 ms, too coarse for a few hundred requests of 1 ms), else
+    user + system from /proc/PID/stat (fields 14-17, with its waited-for children)."""
+    total, seen = 0, False
+    try:
+        tasks = list(Path(f"/proc/{pid}/task").iterdir())
+    except OSError:
+        tasks = []
+    for task in tasks:
+        try:
+            total += int((task / "schedstat").read_text().split()[0])
+            seen = True
+        except (OSError, ValueError, IndexError):
+            continue
+    if seen:
+        return total / 1e9
     fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
     ticks = sum(int(x) for x in fields[11:15])
     return ticks / os.sysconf("SC_CLK_TCK")
@@ -159,9 +175,12 @@ def new_experiments(client: httpx.Client, count: int) -> list[str]:
 
 
 def concurrent(base: str, headers: dict, clients: int, each: int,
-               request: Callable[[httpx.Client, int, int], httpx.Response]) -> list[float]:
+               request: Callable[[httpx.Client, int, int], httpx.Response],
+               pid: int | None = None) -> tuple[list[float], float, float]:
     """``clients`` threads, each with its own keep-alive connection, each sending
-    ``each`` requests back to back (``request(client, thread, i)``); the latencies."""
+    ``each`` requests back to back (``request(client, thread, i)``); the latencies,
+    and the CPU seconds the server (process ``pid``) and this process spent from the
+    start (every client connected) to the last answer."""
     latencies: list[float] = []
     errors: list[str] = []
     lock = threading.Lock()
@@ -185,11 +204,14 @@ def concurrent(base: str, headers: dict, clients: int, each: int,
     for th in threads:
         th.start()
     ready.wait()
+    s0, b0 = (server_cpu(pid) if pid else 0.0), time.process_time()
     for th in threads:
         th.join()
+    server_s = (server_cpu(pid) - s0) if pid else 0.0
+    client_s = time.process_time() - b0
     if errors:
         raise SystemExit(f"{len(errors)} requests failed under load, e.g. {errors[0]}")
-    return latencies
+    return latencies, server_s, client_s
 
 
 def compare_one(label: str, url: str, tmp: Path, requests: int, clients: int, each: int,
@@ -218,32 +240,45 @@ def compare_one(label: str, url: str, tmp: Path, requests: int, clients: int, ea
             seq, load = exps[:n_exp], exps[n_exp:]
             for _ in range(20):
                 client.get("/v1/health").raise_for_status()
-            # (a) server CPU per request, one client, one request at a time
-            c0 = server_cpu(proc.pid)
-            for _ in range(requests):
-                client.get("/v1/health").raise_for_status()
-            c1 = server_cpu(proc.pid)
+            # (a) server CPU per request, one client, one request at a time, in
+            # alternating blocks of each kind (a machine that slows down or speeds
+            # up during the run weighs on both alike)
+            cpu = {"health": 0.0, "look": 0.0}
             one: list[float] = []
-            for k in range(requests):
-                t0 = time.perf_counter()
-                r = client.post(f"/v1/experiments/{seq[k % n_exp]}/looks",
-                                json=look_body(k, 1000 * (k // n_exp + 1)))
-                one.append(time.perf_counter() - t0)
-                if r.status_code != 201:
-                    raise SystemExit(f"look refused: {r.status_code} {r.text}")
-            c2 = server_cpu(proc.pid)
-        out["cpu_health_ms"] = (c1 - c0) / requests * 1e3
-        out["cpu_look_ms"] = (c2 - c1) / requests * 1e3
+            block = max(10, requests // 10)
+            for start in range(0, requests, block):
+                size = min(block, requests - start)
+                c0 = server_cpu(proc.pid)
+                for _ in range(size):
+                    client.get("/v1/health").raise_for_status()
+                c1 = server_cpu(proc.pid)
+                for k in range(start, start + size):
+                    t0 = time.perf_counter()
+                    r = client.post(f"/v1/experiments/{seq[k % n_exp]}/looks",
+                                    json=look_body(k, 1000 * (k // n_exp + 1)))
+                    one.append(time.perf_counter() - t0)
+                    if r.status_code != 201:
+                        raise SystemExit(f"look refused: {r.status_code} {r.text}")
+                c2 = server_cpu(proc.pid)
+                cpu["health"] += c1 - c0
+                cpu["look"] += c2 - c1
+        out["cpu_health_ms"] = cpu["health"] / requests * 1e3
+        out["cpu_look_ms"] = cpu["look"] / requests * 1e3
         out["one_look_ms"] = pct(one, 0.5) * 1e3
         # (b) latency at `clients` concurrent clients: health, then looks
-        health = concurrent(base, headers, clients, each,
-                            lambda c, t, i: c.get("/v1/health"))
-        looks = concurrent(base, headers, clients, each,
-                           lambda c, t, i: c.post(f"/v1/experiments/{load[t]}/looks",
-                                                  json=look_body(i, 1000 * (i + 1))))
-        for name, xs in (("health", health), ("look", looks)):
+        # (and the CPU each request costs the server and these clients: on a machine
+        # that runs both, the slower of the two paces the queue)
+        runs: dict[str, tuple[list[float], float, float]] = {}
+        for name, request in (
+                ("health", lambda c, t, i: c.get("/v1/health")),
+                ("look", lambda c, t, i: c.post(f"/v1/experiments/{load[t]}/looks",
+                                                json=look_body(i, 1000 * (i + 1))))):
+            runs[name] = concurrent(base, headers, clients, each, request, proc.pid)
+        for name, (xs, server_s, client_s) in runs.items():
             out[f"p50_{name}_ms"] = pct(xs, 0.50) * 1e3
             out[f"p99_{name}_ms"] = pct(xs, 0.99) * 1e3
+            out[f"load_server_{name}_ms"] = server_s / len(xs) * 1e3
+            out[f"load_client_{name}_ms"] = client_s / len(xs) * 1e3
     finally:
         os.killpg(proc.pid, signal.SIGTERM)
         proc.wait(timeout=30)
@@ -301,6 +336,12 @@ def compare(args: argparse.Namespace) -> int:
               f"{r['p99_health_ms']:>12.1f}{r['p99_look_ms']:>10.1f}"
               f"{r['p99_look_ms'] / r['p99_health_ms']:>6.1f}x")
     print("goals: CPU ratio look/health <= 4x; p99 ratio look/health <= 2x")
+    print(f"(b) CPU per request under load, ms: {'server health':>14}{'clients health':>15}"
+          f"{'server look':>12}{'clients look':>13}")
+    for label, r in rows:
+        print(f"{label:<26}{'':>9}{r['load_server_health_ms']:>14.2f}"
+              f"{r['load_client_health_ms']:>15.2f}{r['load_server_look_ms']:>12.2f}"
+              f"{r['load_client_look_ms']:>13.2f}")
     return 0
 
 
