@@ -319,3 +319,42 @@ def test_the_first_read_answers_a_bad_key_an_unknown_and_a_closed_experiment(
     other = usecases.read_for_look(storage, token, "exp_unknown")
     got = usecases.append_look(storage, p, _new(storage, p), look_of(1000), read=other)
     assert got.body["look"] == 1
+
+
+def test_posting_a_look_makes_two_transactions(storage: Database):
+    """Counted, not timed (a cost the code fixes, checked like a behaviour): a look
+    posted without an Idempotency-Key reads once (the key and the snapshot together)
+    and writes once. The pool's checkouts and the transactions begun are counted
+    with SQLAlchemy's events (on PostgreSQL each checkout also pings the server in a
+    transaction of its own, under the watchdog)."""
+    from service_helpers import app_client, auth
+    from sqlalchemy import event
+
+    counts = {"checkout": 0, "begin": 0}
+
+    def on_checkout(*_: Any) -> None:
+        counts["checkout"] += 1
+
+    def on_begin(*_: Any) -> None:
+        counts["begin"] += 1
+
+    _, token = usecases.create_key(storage, "t")
+    with app_client(storage) as client:
+        exp = client.post("/v1/experiments", headers=auth(token), json={
+            "name": "lemon tart", "metric_kind": "binary", "max_n": 10**6,
+            "design": {"looks": 5}}).json()
+        client.get("/v1/health")  # its write probe (once a second) done before counting
+        event.listen(storage.engine.pool, "checkout", on_checkout)
+        event.listen(storage.engine, "begin", on_begin)
+        try:
+            for n in (1000, 2000):
+                r = client.post(f"/v1/experiments/{exp['id']}/looks", headers=auth(token),
+                                json={"totals": {"control": {"n": n, "successes": n // 10},
+                                                 "treatment": {"n": n, "successes": n // 9}}})
+                assert r.status_code == 201, r.text
+                begins = 4 if storage.dialect == "postgresql" else 2
+                assert counts == {"checkout": 2, "begin": begins}, counts
+                counts.update(checkout=0, begin=0)
+        finally:
+            event.remove(storage.engine.pool, "checkout", on_checkout)
+            event.remove(storage.engine, "begin", on_begin)
