@@ -1,0 +1,175 @@
+"""Where a look's server CPU goes: HTTP and framework, storage, the analysis.
+
+One run, side by side, the same sequence of looks each way (20 experiments of a
+5-look design, 10 looks each, cumulative totals as in ``bench_service.py``):
+
+1. the server (``python -m service serve``, SQLite, one client): CPU per health
+   request and per look, in alternating blocks (``bench_service.server_cpu``);
+2. the look's use case in this process, without HTTP: the caller's key and first
+   snapshot read together, the analysis, the write (``usecases.read_for_look`` and
+   ``usecases.append_look``, on a SQLite file of its own);
+3. the analysis alone: ``seqtest.analyze(...).to_dict()`` on the same histories.
+
+The differences give the parts: HTTP and framework (1 - 2; uvicorn, the request
+guard, FastAPI's dependencies and body check, two thread hops, the answer's JSON),
+storage and the service's glue (2 - 3; two transactions, the JSON stored, the
+answer's view), the analysis (3). Each is also shown in units of the health
+route's CPU, the baseline of the service's speed goal (a look within 4x of health).
+
+    python benchmarks/bench_look_parts.py [--looks 400] [--rounds 3]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import signal
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import httpx
+
+REPO = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(REPO))
+sys.path.insert(0, str(REPO / "benchmarks"))
+
+from bench_service import look_body, server_cpu, start_server  # noqa: E402
+
+import seqtest  # noqa: E402
+from service import usecases  # noqa: E402
+from service.api.schemas import LookCreate  # noqa: E402
+from service.config import Settings  # noqa: E402
+from service.db.engine import Database  # noqa: E402
+
+EXPERIMENTS, PER_EXPERIMENT = 20, 10
+DESIGN = {"name": "bench", "metric_kind": "binary", "max_n": 10**9, "design": {"looks": 5}}
+
+
+def sequence(count: int) -> list[tuple[int, int]]:
+    """(experiment index, look index) of each look posted, in order."""
+    return [(k % EXPERIMENTS, k // EXPERIMENTS % PER_EXPERIMENT) for k in range(count)]
+
+
+def body(exp: int, i: int) -> dict:
+    k = i * EXPERIMENTS + exp
+    return look_body(k, 1000 * (i + 1))
+
+
+def server_part(looks: int, tmp: Path) -> tuple[float, float]:
+    """Server CPU (ms) per health request and per look."""
+    url = f"sqlite:///{tmp / 'server.db'}"
+    store = Database(Settings.from_env({"database_url": url}))
+    token = usecases.create_key(store, "bench-bakery", "benchmark")[1]
+    store.close()
+    proc, base = start_server(url, tmp / "server.log")
+    cpu = {"health": 0.0, "look": 0.0}
+    try:
+        with httpx.Client(base_url=base, timeout=60,
+                          headers={"Authorization": f"Bearer {token}"}) as client:
+            for _ in range(20):
+                client.get("/v1/health").raise_for_status()
+            order = sequence(looks)
+            ids: list[str] = []
+            for start in range(0, looks, 50):
+                c0 = server_cpu(proc.pid)
+                for _ in range(50):
+                    client.get("/v1/health").raise_for_status()
+                c1 = server_cpu(proc.pid)
+                cpu["health"] += c1 - c0
+                for exp, i in order[start:start + 50]:
+                    if exp == 0 and i == 0:  # a new round of experiments
+                        ids = [client.post("/v1/experiments", json=DESIGN).json()["id"]
+                               for _ in range(EXPERIMENTS)]
+                    c1 = server_cpu(proc.pid)
+                    r = client.post(f"/v1/experiments/{ids[exp]}/looks", json=body(exp, i))
+                    cpu["look"] += server_cpu(proc.pid) - c1
+                    if r.status_code != 201:
+                        raise SystemExit(f"look refused: {r.status_code} {r.text}")
+    finally:
+        os.killpg(proc.pid, signal.SIGTERM)
+        proc.wait(timeout=30)
+    return cpu["health"] / looks * 1e3, cpu["look"] / looks * 1e3
+
+
+def usecase_part(looks: int, tmp: Path) -> float:
+    """CPU (ms) per look of the use case, in this process, without HTTP."""
+    from fastapi.testclient import TestClient
+
+    from service.api.app import create_app
+
+    db = Database(Settings.from_env({"database_url": f"sqlite:///{tmp / 'inproc.db'}"}))
+    _, token = usecases.create_key(db, "bench-bakery", "benchmark")
+    maker = TestClient(create_app(db=db), headers={"Authorization": f"Bearer {token}"})
+    total, ids = 0.0, []
+    try:
+        for exp, i in sequence(looks):
+            if exp == 0 and i == 0:
+                ids = [maker.post("/v1/experiments", json=DESIGN).json()["id"]
+                       for _ in range(EXPERIMENTS)]  # (not counted)
+            t0 = time.process_time()
+            given = LookCreate.model_validate(body(exp, i))
+            req = usecases.LookRequest(totals=given.totals, final=given.final,
+                                       daily_traffic=given.daily_traffic)
+            read = usecases.read_for_look(db, token, ids[exp])
+            assert read is not None
+            answer = usecases.append_look(db, read.principal, ids[exp], req, read=read)
+            total += time.process_time() - t0
+            if answer.status_code != 201:
+                raise SystemExit(f"look refused: {answer.status_code} {answer.body}")
+    finally:
+        db.close()
+    return total / looks * 1e3
+
+
+def library_part(looks: int) -> float:
+    """CPU (ms) per look of the analysis alone, on the same histories."""
+    plan = seqtest.design(looks=5)
+    total = 0.0
+    for exp, i in sequence(looks):
+        history = [body(exp, j)["totals"] for j in range(i + 1)]
+        t0 = time.process_time()
+        seqtest.analyze(plan, history, metric="binary", allocation=1.0,
+                        max_n=10**9).to_dict()
+        total += time.process_time() - t0
+    return total / looks * 1e3
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--looks", type=int, default=400, help="looks per part and round")
+    ap.add_argument("--rounds", type=int, default=3,
+                    help="rounds of the three parts, one after the other (medians shown)")
+    args = ap.parse_args()
+    looks = max(50, min(args.looks, 5000)) // 50 * 50
+    rows: dict[str, list[float]] = {"health": [], "look": [], "usecase": [], "library": []}
+    for _ in range(max(1, args.rounds)):
+        tmp = Path(tempfile.mkdtemp(prefix="seqtest-parts-"))
+        health, look = server_part(looks, tmp)
+        rows["health"].append(health)
+        rows["look"].append(look)
+        rows["usecase"].append(usecase_part(looks, tmp))
+        rows["library"].append(library_part(looks))
+    m = {k: statistics.median(v) for k, v in rows.items()}
+    h = m["health"]
+    parts = [
+        ("health route (server)", m["health"]),
+        ("look (server)", m["look"]),
+        ("  HTTP and framework", m["look"] - m["usecase"]),
+        ("  storage and the service's glue", m["usecase"] - m["library"]),
+        ("  analysis (seqtest.analyze)", m["library"]),
+    ]
+    sync = os.environ.get("SEQTEST_SQLITE_SYNCHRONOUS", "FULL")
+    print(f"CPU per request, SQLite (synchronous={sync}), {looks} looks per part, "
+          f"median of {len(rows['look'])} rounds; {os.cpu_count()} CPUs")
+    print(f"{'part':<32}{'ms':>8}{'x health':>10}")
+    for name, ms in parts:
+        print(f"{name:<32}{ms:>8.2f}{ms / h:>9.1f}x")
+    print("goal: look within 4x of health")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
