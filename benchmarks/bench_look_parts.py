@@ -8,7 +8,9 @@ One run, side by side, the same sequence of looks each way (20 experiments of a
 2. the look's use case in this process, without HTTP: the caller's key and first
    snapshot read together, the analysis, the write (``usecases.read_for_look`` and
    ``usecases.append_look``, on a SQLite file of its own);
-3. the analysis alone: ``seqtest.analyze(...).to_dict()`` on the same histories.
+3. the analysis within it, timed where the use case calls it
+   (``service.library.analyze_look``: ``seqtest.analyze`` on the stored plan and
+   looks, with the options the service passes, and its JSON).
 
 The differences give the parts: HTTP and framework (1 - 2; uvicorn, the request
 guard, FastAPI's dependencies and body check, two thread hops, the answer's JSON),
@@ -38,7 +40,6 @@ sys.path.insert(0, str(REPO / "benchmarks"))
 
 from bench_service import look_body, server_cpu, start_server  # noqa: E402
 
-import seqtest  # noqa: E402
 from service import usecases  # noqa: E402
 from service.api.schemas import LookCreate  # noqa: E402
 from service.config import Settings  # noqa: E402
@@ -94,16 +95,30 @@ def server_part(looks: int, tmp: Path) -> tuple[float, float]:
     return cpu["health"] / looks * 1e3, cpu["look"] / looks * 1e3
 
 
-def usecase_part(looks: int, tmp: Path) -> float:
-    """CPU (ms) per look of the use case, in this process, without HTTP."""
+def usecase_part(looks: int, tmp: Path) -> tuple[float, float]:
+    """CPU (ms) per look of the use case, in this process, without HTTP, and of the
+    analysis within it (``service.library.analyze_look``, timed where the use case
+    calls it: the plan, the stored looks and the options the service passes)."""
     from fastapi.testclient import TestClient
 
+    from service import library
     from service.api.app import create_app
 
     db = Database(Settings.from_env({"database_url": f"sqlite:///{tmp / 'inproc.db'}"}))
     _, token = usecases.create_key(db, "bench-bakery", "benchmark")
     maker = TestClient(create_app(db=db), headers={"Authorization": f"Bearer {token}"})
+    analysis = [0.0]
+    analyze_look = library.analyze_look
+
+    def timed(*args: object, **kwargs: object) -> library.LookOutcome:
+        t0 = time.process_time()
+        try:
+            return analyze_look(*args, **kwargs)  # type: ignore[arg-type]
+        finally:
+            analysis[0] += time.process_time() - t0
+
     total, ids = 0.0, []
+    library.analyze_look = timed
     try:
         for exp, i in sequence(looks):
             if exp == 0 and i == 0:
@@ -120,21 +135,9 @@ def usecase_part(looks: int, tmp: Path) -> float:
             if answer.status_code != 201:
                 raise SystemExit(f"look refused: {answer.status_code} {answer.body}")
     finally:
+        library.analyze_look = analyze_look
         db.close()
-    return total / looks * 1e3
-
-
-def library_part(looks: int) -> float:
-    """CPU (ms) per look of the analysis alone, on the same histories."""
-    plan = seqtest.design(looks=5)
-    total = 0.0
-    for exp, i in sequence(looks):
-        history = [body(exp, j)["totals"] for j in range(i + 1)]
-        t0 = time.process_time()
-        seqtest.analyze(plan, history, metric="binary", allocation=1.0,
-                        max_n=10**9).to_dict()
-        total += time.process_time() - t0
-    return total / looks * 1e3
+    return total / looks * 1e3, analysis[0] / looks * 1e3
 
 
 def main() -> int:
@@ -150,8 +153,9 @@ def main() -> int:
         health, look = server_part(looks, tmp)
         rows["health"].append(health)
         rows["look"].append(look)
-        rows["usecase"].append(usecase_part(looks, tmp))
-        rows["library"].append(library_part(looks))
+        usecase, analysis = usecase_part(looks, tmp)
+        rows["usecase"].append(usecase)
+        rows["library"].append(analysis)
     m = {k: statistics.median(v) for k, v in rows.items()}
     h = m["health"]
     parts = [
@@ -159,7 +163,7 @@ def main() -> int:
         ("look (server)", m["look"]),
         ("  HTTP and framework", m["look"] - m["usecase"]),
         ("  storage and the service's glue", m["usecase"] - m["library"]),
-        ("  analysis (seqtest.analyze)", m["library"]),
+        ("  analysis (as the service runs it)", m["library"]),
     ]
     sync = os.environ.get("SEQTEST_SQLITE_SYNCHRONOUS", "FULL")
     print(f"CPU per request, SQLite (synchronous={sync}), {looks} looks per part, "

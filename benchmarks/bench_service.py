@@ -252,10 +252,10 @@ def compare_one(label: str, url: str, tmp: Path, requests: int, clients: int, ea
                 for _ in range(size):
                     client.get("/v1/health").raise_for_status()
                 c1 = server_cpu(proc.pid)
-                for k in range(start, start + size):
+                for j in range(start, start + size):
                     t0 = time.perf_counter()
-                    r = client.post(f"/v1/experiments/{seq[k % n_exp]}/looks",
-                                    json=look_body(k, 1000 * (k // n_exp + 1)))
+                    r = client.post(f"/v1/experiments/{seq[j % n_exp]}/looks",
+                                    json=look_body(j, 1000 * (j // n_exp + 1)))
                     one.append(time.perf_counter() - t0)
                     if r.status_code != 201:
                         raise SystemExit(f"look refused: {r.status_code} {r.text}")
