@@ -53,6 +53,9 @@ SETTINGS: tuple[Setting, ...] = (
             "seconds a client has to send a request's body once its headers are in"),
     Setting("keep_alive_s", "SEQTEST_KEEP_ALIVE", 5.0, float, 0.1, 600,
             "seconds an idle keep-alive connection stays open"),
+    Setting("looks_at_once", "SEQTEST_LOOKS_AT_ONCE", 2, int, 1, 64,
+            "looks one server process analyses and stores at once; the others wait their "
+            "turn, first come first served"),
     Setting("max_body_bytes", "SEQTEST_MAX_BODY_BYTES", 64 * 1024, int, 1024, 16 * 2**20,
             "largest request body accepted (413 above)"),
     Setting("log_level", "SEQTEST_LOG_LEVEL", "info", str, help="critical ... debug"),
@@ -130,6 +133,7 @@ class Settings:
     header_timeout_s: float = 10.0
     body_timeout_s: float = 30.0
     keep_alive_s: float = 5.0
+    looks_at_once: int = 2
     max_body_bytes: int = 64 * 1024
     log_level: str = "info"
     access_log: bool = True

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import functools
 from typing import Annotated, Any
 
+import anyio
 from fastapi import APIRouter, Body, Path, Request
 from fastapi.responses import JSONResponse
 
@@ -14,6 +16,7 @@ from service.api.deps import (
     ExperimentIdDep,
     IdempotencyKeyDep,
     LookReadDep,
+    LookTurnsDep,
     PrincipalDep,
     idem_for,
     respond,
@@ -31,8 +34,9 @@ router = APIRouter(prefix="/v1/experiments/{experiment_id}/looks", tags=["looks"
     responses=ERRORS,
     summary="Record a look: cumulative totals per arm",
 )
-def post_look(
+async def post_look(
     read: LookReadDep,
+    turns: LookTurnsDep,
     db: DatabaseDep,
     key: IdempotencyKeyDep,
     request: Request,
@@ -55,8 +59,9 @@ def post_look(
     field]`."""
     req = usecases.LookRequest(totals=body.totals, final=body.final,
                                daily_traffic=body.daily_traffic)
-    answer = usecases.append_look(db, read.principal, experiment_id, req,
-                                  idem_for(key, request, body), read=read)
+    work = functools.partial(usecases.append_look, db, read.principal, experiment_id, req,
+                             idem_for(key, request, body), read=read)
+    answer = await anyio.to_thread.run_sync(work, limiter=turns)  # in its turn
     return respond(answer, {
         "Location": f"/v1/experiments/{experiment_id}/looks/{answer.body['look']}"})
 
