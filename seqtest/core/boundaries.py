@@ -22,7 +22,8 @@ References
 from __future__ import annotations
 
 import math
-from typing import Any
+from collections.abc import Callable
+from typing import Any, TypeVar
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -57,6 +58,7 @@ __all__ = [
 
 #: How a plan's efficacy boundary is made: error spending or a classical shape.
 Boundary = SpendingFunction | ClassicalBoundary
+T = TypeVar("T")
 
 
 class SolvedLooks(Recent[tuple, Any]):
@@ -267,35 +269,37 @@ def spending_bounds(
         if memo is not None:
             key = (*key, float(inf[j]), float(inc[j]),
                    -math.inf if fut is None else float(fut[j]))
-        hit = None if memo is None else memo.get(key)
-        if hit is None:
-            out[j] = _solve_upper(state, inf[j], inc[j], sides, floor)
-            if memo is not None:
-                memo.put(key, float(out[j]))
-        else:
-            out[j] = hit
+        out[j] = _recall(memo, key, _solve_upper, state, inf[j], inc[j], sides, floor)
         if j + 1 < k:
             # the state after look j, and the key of what follows, name its grid too
             r_j = r2 if j >= after else r
             if memo is not None:
                 key = (*key, r_j, float(inf[j + 1]))
             iv = _look_intervals(sides, float(out[j]), None if fut is None else float(fut[j]))
-            state = _next_state(memo, key, state, iv, float(inf[j]), r_j, float(inf[j + 1]))
+            state = _recall(memo, key, state.advance, iv, float(inf[j]), r_j,
+                            float(inf[j + 1]))
     return out
 
 
-def _next_state(memo: SolvedLooks | None, key: tuple, state: _State,
-                intervals: list[tuple[float, float]], info: float, r: int, info_after: float
-                ) -> _State:
-    """``state.advance(intervals, info, r, info_after)``, taken from ``memo`` when it
-    holds ``key`` (which must name everything the advance depends on)."""
+def _recall(memo: SolvedLooks | None, key: tuple, compute: Callable[..., T], *args: Any
+            ) -> T:
+    """``compute(*args)``, taken from ``memo`` when it holds ``key`` (which must name
+    everything the result depends on), else computed and, with a memo, kept there."""
     hit = None if memo is None else memo.get(key)
     if hit is None:
-        hit = state.advance(intervals, info, r, info_after)
+        hit = compute(*args)
         if memo is not None:
             memo.put(key, hit)
-    out: _State = hit
+    out: T = hit
     return out
+
+
+def _futility_look(state: _State, info: float, a: float, target: float, sides: int,
+                   start: float | None) -> tuple[float, float]:
+    """One look of a futility recursion: its boundary and the exit probability above
+    the efficacy boundary ``a`` there."""
+    exit_up = state.prob_above(a, info)
+    return float(_solve_futility(state, info, target, a, sides, start)), exit_up
 
 
 def constant_bounds(
@@ -433,23 +437,16 @@ def futility_with_power(t: np.ndarray, drift: float, a: np.ndarray, sides: int,
             upper += state.prob_above(float(a[j]), t[j])
             b[j] = a[j]
             break
-        hit = None if memo is None else memo.get(key)
-        if hit is None:
-            exit_up = state.prob_above(float(a[j]), t[j])
-            b[j] = _solve_futility(state, t[j], inc[j], a[j], sides,
-                                   None if start is None else float(start[j]))
-            if memo is not None:
-                memo.put(key, (float(b[j]), exit_up))
-        else:
-            b[j], exit_up = hit
+        b[j], exit_up = _recall(memo, key, _futility_look, state, t[j], a[j], inc[j], sides,
+                                None if start is None else float(start[j]))
         upper += exit_up
         if j == k - 1:
             break
         if memo is not None:
             key = (*key, float(t[j + 1]))
-        state = _next_state(memo, key, state,
-                            _look_intervals(sides, float(a[j]), float(b[j])), float(t[j]), r,
-                            float(t[j + 1]))
+        state = _recall(memo, key, state.advance,
+                        _look_intervals(sides, float(a[j]), float(b[j])), float(t[j]), r,
+                        float(t[j + 1]))
     return b, upper
 
 

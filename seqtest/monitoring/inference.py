@@ -255,7 +255,6 @@ def conditional_power(
     return float(min(1.0, total))
 
 
-
 def naive_ci(estimate: float, se: float, alpha: float, sides: int) -> tuple[float, float]:
     """Unadjusted fixed-sample interval, for comparison with the adjusted one."""
     q = float(-special.ndtri(alpha / sides))

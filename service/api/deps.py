@@ -104,10 +104,7 @@ LookReadDep = Annotated[usecases.LookRead, Depends(get_look_read)]
 async def look_turns(request: Request) -> anyio.CapacityLimiter:
     """The process's queue of looks (dependency): at most ``looks_at_once`` (a
     setting) are analysed and stored at once, the others wait their turn, first come
-    first served. A look's work holds the interpreter most of the time, so more of
-    them at once only take turns on it, each with its own thread and database
-    connection; under load, with 40 at once, a look cost the server about 1.5 times
-    the CPU it costs alone, and its p99 was longer (``bench_service.py --compare``).
+    first served (why, with measurements: service/README.md, "Looks take turns").
     Made on first use, inside the event loop."""
     turns: anyio.CapacityLimiter | None = getattr(request.app.state, "look_turns", None)
     if turns is None:
