@@ -56,16 +56,19 @@ RUNNING = re.compile(r"Uvicorn running on http://127\.0\.0\.1:(\d+)")
 
 
 def start_server(database_url: str, log: Path, plain_uvicorn: bool = False,
-                 extra: tuple[str, ...] = ()) -> tuple[subprocess.Popen, str]:
+                 extra: tuple[str, ...] = (), launcher: tuple[str, ...] = ("-m", "service")
+                 ) -> tuple[subprocess.Popen, str]:
     """``python -m service serve`` (or, with ``plain_uvicorn``, the same app under
-    uvicorn's own command line, without the service's header deadline)."""
+    uvicorn's own command line, without the service's header deadline; with
+    ``launcher``, ``python *launcher serve ...``, a script that runs the service's
+    command line)."""
     env = dict(os.environ, PYTHONPATH=str(REPO), SEQTEST_DATABASE_URL=database_url,
                SEQTEST_ACCESS_LOG="false")
     if plain_uvicorn:
         cmd = [sys.executable, "-m", "uvicorn", "--factory", "service.api:create_app",
                "--host", "127.0.0.1", "--port", "0", "--no-access-log", "--http", "h11"]
     else:
-        cmd = [sys.executable, "-m", "service", "serve", "--host", "127.0.0.1", "--port", "0",
+        cmd = [sys.executable, *launcher, "serve", "--host", "127.0.0.1", "--port", "0",
                "--database-url", database_url, "--no-access-log", *extra]
     with open(log, "w") as out:
         proc = subprocess.Popen(cmd, cwd=REPO, env=env, stdout=out, stderr=subprocess.STDOUT,
@@ -456,25 +459,25 @@ def main() -> int:
                             ("plain uvicorn, h11", True)):
             p2, b2 = start_server(url, tmp / f"hdr-{plain}.log", plain_uvicorn=plain)
             try:
-                closed, last = unfinished_headers(b2, 200, args.header_limit)
+                closed, took = unfinished_headers(b2, 200, args.header_limit)
             finally:
                 os.killpg(p2.pid, signal.SIGTERM)
                 p2.wait(timeout=30)
-            header_rows.append((name, closed, last))
+            header_rows.append((name, closed, took))
 
     sync = os.environ.get("SEQTEST_SQLITE_SYNCHRONOUS", "FULL").upper()
     database = "PostgreSQL" if url.startswith("postgres") else f"SQLite (WAL, synchronous={sync})"
     print(f"seqtest service on {database}; {len(looks)} looks over {n_exp} experiments "
           f"(1..{per_exp} looks per analysis), one client, loopback")
     print(f"{'route':<22}{'p50 ms':>10}{'p99 ms':>10}{'req/s':>10}")
-    rows = {}
+    by_route: dict[str, tuple[float, float, float]] = {}
     for name, xs in (("GET /v1/health", health), ("POST .../looks", looks),
                      ("(seqtest.analyze)", library)):
         p50, p99 = pct(xs, 0.50) * 1e3, pct(xs, 0.99) * 1e3
         rate = len(xs) / sum(xs)
-        rows[name] = (p50, p99, rate)
+        by_route[name] = (p50, p99, rate)
         print(f"{name:<22}{p50:>10.2f}{p99:>10.2f}{rate:>10.0f}")
-    h, lk = rows["GET /v1/health"], rows["POST .../looks"]
+    h, lk = by_route["GET /v1/health"], by_route["POST .../looks"]
     print(f"ratio look/health: p50 {lk[0] / h[0]:.1f}x, p99 {lk[1] / h[1]:.1f}x, "
           f"throughput {h[2] / lk[2]:.1f}x fewer looks per second (goal: <= 3x)")
     print(f"mean look latency {statistics.fmean(looks) * 1e3:.2f} ms, of which the "
@@ -482,9 +485,9 @@ def main() -> int:
           "(same analyses, in this process)")
     if bytes_per_look:
         print(bytes_per_look)
-    for name, closed, last in header_rows:
+    for name, closed, took in header_rows:
         print(f"200 unfinished headers, {name}: {closed} closed within "
-              f"{args.header_limit:g} s (last at {last:.1f} s)")
+              f"{args.header_limit:g} s (last at {took:.1f} s)")
     print(f"look minus monitor, p50: {(pct(looks, 0.5) - pct(library, 0.5)) * 1e3:.2f} ms "
           f"= {(pct(looks, 0.5) - pct(library, 0.5)) / pct(health, 0.5):.1f}x health")
     return 0
