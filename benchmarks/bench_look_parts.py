@@ -75,8 +75,11 @@ def server_part(looks: int, tmp: Path, canned: bool = False) -> tuple[float, flo
     store = Database(Settings.from_env({"database_url": url}))
     token = usecases.create_key(store, "bench-bakery", "benchmark")[1]
     store.close()
-    launcher = (str(Path(__file__).resolve()), "--canned") if canned else ("-m", "service")
-    proc, base = start_server(url, tmp / f"{name}.log", launcher=launcher)
+    if canned:
+        proc, base = start_server(url, tmp / f"{name}.log",
+                                  launcher=(str(Path(__file__).resolve()), "--canned"))
+    else:
+        proc, base = start_server(url, tmp / f"{name}.log")
     cpu = {"health": 0.0, "look": 0.0}
     try:
         with httpx.Client(base_url=base, timeout=60,
@@ -188,7 +191,7 @@ def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--looks", type=int, default=400, help="looks per part and round")
     ap.add_argument("--rounds", type=int, default=3,
-                    help="rounds of the three parts, one after the other (medians shown)")
+                    help="rounds of the four parts, one after the other (medians shown)")
     args = ap.parse_args()
     looks = max(50, min(args.looks, 5000)) // 50 * 50
     rows: dict[str, list[float]] = {"health": [], "look": [], "usecase": [], "library": [],
